@@ -1,0 +1,212 @@
+//! `spurion explain`: one reading, written as reading.json, map.npy, map.png and overlay.png.
+
+use std::path::{Path, PathBuf};
+
+use anyhow::{Context, Result, bail};
+use clap::Args;
+use indicatif::{ProgressBar, ProgressStyle};
+use ndarray::{Array2, Array3};
+
+use super::{InputArgs, ModelArgs, load_input};
+use crate::control::Control;
+use crate::methods::{self, Baseline, Input, Method, Request, Rule, ScoreKind, TargetSpec};
+use crate::render::Sign;
+
+#[derive(Args, Debug)]
+pub struct ExplainArgs {
+    #[command(flatten)]
+    pub model: ModelArgs,
+    #[command(flatten)]
+    pub input: InputArgs,
+    /// integrated-gradients | occlusion | gradient | gradient-x-input | smoothgrad | expected-gradients
+    #[arg(long, default_value = "integrated-gradients")]
+    pub method: String,
+    /// black | grey | value:V | blur:SIGMA | uniform-noise:SEED | gaussian-noise:SIGMA:SEED |
+    /// mean:DIR | image:PATH | tensor:PATH.npy | folder:DIR (expected-gradients draws)
+    #[arg(long, default_value = "black")]
+    pub baseline: String,
+    /// Integrated-gradients steps (the start count when --adaptive).
+    #[arg(long, default_value_t = methods::DEFAULT_STEPS)]
+    pub steps: usize,
+    /// Integrated-gradients quadrature: gauss-legendre | midpoint | trapezoid.
+    #[arg(long, default_value = "gauss-legendre")]
+    pub rule: String,
+    /// Refine integrated gradients until the completeness gap is below GAP (relative).
+    #[arg(long, num_args = 0..=1, default_missing_value = "0.01", value_name = "GAP")]
+    pub adaptive: Option<f32>,
+    /// Occlusion window side in model-input pixels.
+    #[arg(long, default_value_t = 16)]
+    pub window: usize,
+    /// Occlusion stride in model-input pixels.
+    #[arg(long, default_value_t = 8)]
+    pub stride: usize,
+    /// SmoothGrad noise, as a share of the input's value range.
+    #[arg(long, default_value_t = 0.15)]
+    pub noise: f32,
+    /// Samples for SmoothGrad and expected gradients.
+    #[arg(long, default_value_t = 32)]
+    pub samples: usize,
+    /// Seed for SmoothGrad noise and expected-gradient draws.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    /// top | a class index | a label from the feed card.
+    #[arg(long, default_value = "top")]
+    pub target: String,
+    /// logits | softmax | raw.
+    #[arg(long, default_value = "logits")]
+    pub score: String,
+    /// Folder for the reading's files (default: reading-<input name>-<method>).
+    #[arg(long)]
+    pub out: Option<PathBuf>,
+    /// Which sign the pictures show: both | supporting | opposing | magnitude.
+    #[arg(long, default_value = "both")]
+    pub sign: String,
+    /// Tint opacity in overlay.png, 0..1.
+    #[arg(long, default_value_t = 0.75)]
+    pub opacity: f32,
+    /// No progress bar.
+    #[arg(long, short = 'q')]
+    pub quiet: bool,
+}
+
+pub(crate) fn progress_bar(what: &str) -> ProgressBar {
+    let bar = ProgressBar::new(1);
+    bar.set_style(
+        ProgressStyle::with_template("{msg} [{bar:32}] {pos}/{len} passes, {elapsed} (eta {eta})")
+            .unwrap()
+            .progress_chars("=> "),
+    );
+    bar.set_message(what.to_string());
+    bar
+}
+
+pub(crate) fn control_for(bar: &ProgressBar) -> Control {
+    let b = bar.clone();
+    Control::with_callback(move |done, total| {
+        b.set_length(total);
+        b.set_position(done);
+    })
+}
+
+pub fn parse_method(a: &ExplainArgs) -> Result<Method> {
+    Ok(match a.method.as_str() {
+        "integrated-gradients" | "ig" => {
+            Method::IntegratedGradients { steps: a.steps, rule: Rule::parse(&a.rule)?, adaptive: a.adaptive }
+        }
+        "occlusion" => Method::Occlusion { window: a.window, stride: a.stride },
+        "gradient" | "saliency" => Method::Gradient,
+        "gradient-x-input" => Method::GradientXInput,
+        "smoothgrad" => Method::SmoothGrad { noise: a.noise, samples: a.samples, seed: a.seed },
+        "expected-gradients" => Method::ExpectedGradients { samples: a.samples, seed: a.seed },
+        m => bail!("unknown method \"{m}\"; use one of: {}", methods::METHOD_NAMES.join(", ")),
+    })
+}
+
+fn parse_sign(s: &str) -> Result<Sign> {
+    Sign::ALL
+        .into_iter()
+        .find(|k| k.name() == s)
+        .with_context(|| format!("unknown sign \"{s}\"; use both, supporting, opposing or magnitude"))
+}
+
+pub fn run(a: &ExplainArgs) -> Result<()> {
+    let method = parse_method(a)?;
+    let baseline = Baseline::parse(&a.baseline)?;
+    let score = ScoreKind::parse(&a.score)?;
+    let sign = parse_sign(&a.sign)?;
+    if !(0.0..=1.0).contains(&a.opacity) {
+        bail!("--opacity must be between 0 and 1");
+    }
+    let model = a.model.load()?;
+    let (input, card) = load_input(&model, &a.model, &a.input)?;
+    let req = Request { method, baseline, target: TargetSpec::parse(&a.target), score };
+    let bar = if a.quiet { ProgressBar::hidden() } else { progress_bar(req.method.name()) };
+    let ctl = control_for(&bar);
+    let reading = methods::explain(&model, card.as_ref(), &input, &req, &ctl)?;
+    bar.finish_and_clear();
+
+    let out = a.out.clone().unwrap_or_else(|| default_out(&input, &reading.method));
+    std::fs::create_dir_all(&out).with_context(|| format!("cannot create output folder {}", out.display()))?;
+    let map2 = reading.map2d();
+    let (json, suspect) = reading_json(&reading, &input, &map2)?;
+    write_json(&out.join("reading.json"), &json)?;
+    crate::feed::write_tensor(&out.join("map.npy"), &reading.map)?;
+    crate::render::write_map_png(&out.join("map.png"), &map2, sign)?;
+    let backdrop = backdrop(&input, &map2);
+    crate::render::write_overlay_png(&out.join("overlay.png"), &backdrop, &map2, sign, a.opacity)?;
+
+    println!("{} on {} ({}), target {} \"{}\"", reading.method, reading.input, reading.model_file, reading.target.index, reading.target.label);
+    if let Some(b) = &reading.baseline {
+        println!("baseline {b}");
+    }
+    println!(
+        "score at input {:.6}{}",
+        reading.score_input,
+        reading.score_baseline.map(|s| format!(", at baseline {s:.6}")).unwrap_or_default()
+    );
+    println!(
+        "attribution sum {:.6}{}",
+        reading.attribution_sum,
+        reading
+            .completeness_gap
+            .map(|g| format!(", completeness gap {:.3}% ({} steps)", g * 100.0, reading.steps.unwrap_or(0)))
+            .unwrap_or_default()
+    );
+    if let Some((flag, why)) = suspect {
+        println!("{}", if flag { format!("SUSPECT: {why}") } else { format!("not suspect: {why}") });
+    }
+    println!("wrote {} (reading.json, map.npy, map.png, overlay.png) in {:.0} ms", out.display(), reading.elapsed_ms);
+    Ok(())
+}
+
+fn default_out(input: &Input, method: &str) -> PathBuf {
+    let name = input.name();
+    let stem = Path::new(&name).file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or(name);
+    PathBuf::from(format!("reading-{stem}-{method}"))
+}
+
+/// reading.json: the reading's fields plus, for pictures, the regions found and the flag.
+pub fn reading_json(
+    reading: &methods::Reading,
+    input: &Input,
+    map2: &Array2<f32>,
+) -> Result<(serde_json::Value, Option<(bool, String)>)> {
+    let mut v = serde_json::to_value(reading)?;
+    v["caution"] = serde_json::Value::String(crate::CAUTION.into());
+    let mut suspect = None;
+    if let Input::Picture { picture, .. } = input {
+        let lum = picture.luminance();
+        let regions = crate::regions::find_regions(&lum, &Default::default());
+        let a = crate::regions::assess_regions(map2, &regions, &Default::default())?;
+        let obj = serde_json::to_value(&a)?;
+        if let serde_json::Value::Object(m) = obj {
+            for (k, val) in m {
+                v[k] = val;
+            }
+        }
+        suspect = Some((a.suspect, a.reason.clone()));
+    }
+    Ok((v, suspect))
+}
+
+fn write_json(path: &Path, v: &serde_json::Value) -> Result<()> {
+    let tmp = path.with_extension("json.part");
+    std::fs::write(&tmp, serde_json::to_string_pretty(v)? + "\n")
+        .with_context(|| format!("cannot write {}", tmp.display()))?;
+    std::fs::rename(&tmp, path).with_context(|| format!("cannot write {}", path.display()))
+}
+
+/// What the overlay is drawn on: the picture, or a tensor's first channel scaled to 0..1.
+fn backdrop(input: &Input, map2: &Array2<f32>) -> Array3<f32> {
+    match input {
+        Input::Picture { picture, .. } => picture.pixels.clone(),
+        Input::Tensor { tensor, .. } => {
+            let (h, w) = map2.dim();
+            let flat: Vec<f32> = tensor.iter().cloned().collect();
+            let plane = if flat.len() >= h * w { &flat[..h * w] } else { &flat[..] };
+            let (lo, hi) = plane.iter().fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+            let span = (hi - lo).max(f32::EPSILON);
+            Array3::from_shape_fn((h, w, 1), |(y, x, _)| plane.get(y * w + x).map(|v| (v - lo) / span).unwrap_or(0.0))
+        }
+    }
+}

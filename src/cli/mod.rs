@@ -1,0 +1,264 @@
+//! The command line: a thin layer over the library. Every error names the file, what is wrong
+//! and what to do; exit codes: 0 done, 1 bad input or failed computation, 2 usage error.
+
+mod explain;
+
+use std::path::PathBuf;
+
+use anyhow::{Context, Result};
+use clap::{Args, Parser, Subcommand};
+
+use crate::model::{LoadOptions, Model};
+
+#[derive(Parser, Debug)]
+#[command(
+    name = "spurion",
+    version,
+    about = "Shows what an image classifier is looking at, and catches it when the answer is a shortcut.",
+    long_about = None,
+    after_help = "With no command, spurion opens the desktop inspector on the bundled demo.\n\n\
+                  spurion is a research and data-quality tool, not a diagnostic device."
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Option<Command>,
+}
+
+#[derive(Subcommand, Debug)]
+pub enum Command {
+    /// Inputs, outputs and ops of a model, and which ops have a reverse step.
+    Info(InfoArgs),
+    /// Raw output values of a model for one image or tensor.
+    Predict(PredictArgs),
+    /// One reading: an attribution map for one image or tensor, written to a folder.
+    Explain(explain::ExplainArgs),
+    /// Border bands and burned-in marks of an image, found without any model.
+    Regions(RegionsArgs),
+    /// Writes a demo set of phantom images with ground-truth masks and a manifest.
+    Demo(DemoArgs),
+    /// Opens the desktop inspector.
+    Gui(GuiArgs),
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct ModelArgs {
+    /// The ONNX model file.
+    #[arg(long, short = 'm')]
+    pub model: PathBuf,
+    /// Input shape, e.g. 1,3,224,224, for models with dynamic input dimensions.
+    #[arg(long, value_delimiter = ',')]
+    pub input_shape: Option<Vec<usize>>,
+    /// Feed card to use instead of the sidecar MODEL.feed.toml.
+    #[arg(long)]
+    pub feed: Option<PathBuf>,
+}
+
+impl ModelArgs {
+    pub fn load(&self) -> Result<Model> {
+        let shape = self.input_shape.clone().or_else(|| {
+            // A feed card fixes the input shape of a model with dynamic dimensions.
+            self.card_path().and_then(|p| crate::feed::FeedCard::load(&p).ok()).map(|c| c.tensor_shape())
+        });
+        Model::load(&self.model, &LoadOptions { input_shape: shape })
+    }
+
+    fn card_path(&self) -> Option<PathBuf> {
+        self.feed.clone().or_else(|| {
+            let p = crate::feed::FeedCard::sidecar_path(&self.model);
+            p.exists().then_some(p)
+        })
+    }
+
+    /// The feed card: the one named, the sidecar, or one inferred from the graph.
+    pub fn card(&self, model: &Model) -> Result<crate::feed::FeedCard> {
+        match &self.feed {
+            Some(p) => {
+                let c = crate::feed::FeedCard::load(p)?;
+                c.check_against(model)?;
+                Ok(c)
+            }
+            None => crate::feed::FeedCard::for_loaded(model),
+        }
+    }
+}
+
+#[derive(Args, Debug)]
+pub struct InfoArgs {
+    #[command(flatten)]
+    pub model: ModelArgs,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Args, Debug)]
+pub struct InputArgs {
+    /// An image (PNG 8/16-bit, JPEG, TIFF, BMP), fed through the feed card.
+    #[arg(long, short = 'i', conflicts_with = "tensor", required_unless_present = "tensor")]
+    pub image: Option<PathBuf>,
+    /// A NumPy .npy tensor fed exactly as the model input (no feed card).
+    #[arg(long)]
+    pub tensor: Option<PathBuf>,
+}
+
+#[derive(Args, Debug)]
+pub struct PredictArgs {
+    #[command(flatten)]
+    pub model: ModelArgs,
+    #[command(flatten)]
+    pub input: InputArgs,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Args, Debug)]
+pub struct RegionsArgs {
+    /// The image to search.
+    #[arg(long, short = 'i')]
+    pub image: PathBuf,
+    /// Folder for regions.json and one mask PNG per region (default: print JSON only).
+    #[arg(long)]
+    pub out: Option<PathBuf>,
+}
+
+#[derive(Args, Debug)]
+pub struct DemoArgs {
+    /// Folder to write into (created if missing).
+    #[arg(long)]
+    pub out: PathBuf,
+    /// How many images.
+    #[arg(long, default_value_t = 36)]
+    pub count: usize,
+    /// Seed of the whole set.
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+}
+
+#[derive(Args, Debug)]
+pub struct GuiArgs {
+    /// Model to open (default: the bundled shortcut sample model).
+    #[arg(long, short = 'm')]
+    pub model: Option<PathBuf>,
+    /// Images or folders to open.
+    pub paths: Vec<PathBuf>,
+}
+
+/// Runs the parsed command line; the binary maps errors to exit code 1.
+pub fn run(cli: Cli) -> Result<()> {
+    match cli.command {
+        None => crate::gui::run(crate::gui::GuiOptions::default()),
+        Some(Command::Gui(a)) => crate::gui::run(crate::gui::GuiOptions { model: a.model, paths: a.paths }),
+        Some(Command::Info(a)) => info(&a),
+        Some(Command::Predict(a)) => predict(&a),
+        Some(Command::Explain(a)) => explain::run(&a),
+        Some(Command::Regions(a)) => {
+            crate::regions::run_regions_command(&a.image, a.out.as_deref(), &Default::default())
+        }
+        Some(Command::Demo(a)) => demo(&a),
+    }
+}
+
+fn info(a: &InfoArgs) -> Result<()> {
+    let m = a.model.load()?;
+    let info = m.info();
+    if a.json {
+        println!("{}", serde_json::to_string_pretty(&info)?);
+        return Ok(());
+    }
+    println!("model    {}", info.path.display());
+    println!("sha256   {}", info.sha256);
+    for t in &info.inputs {
+        println!("input    {}  {:?}", t.name, t.shape);
+    }
+    for t in &info.outputs {
+        println!("output   {}  {:?}", t.name, t.shape);
+    }
+    println!("ends in softmax: {}", if info.ends_in_softmax { "yes" } else { "no" });
+    println!("\nONNX operators:");
+    for o in &info.onnx_ops {
+        println!("  {:<28} {:>5}", o.op, o.count);
+    }
+    println!("\nops of the graph the reverse pass walks:");
+    for o in &info.ops {
+        let r = match o.reverse_step {
+            Some(true) => "reverse step",
+            Some(false) => "NO reverse step",
+            None => "",
+        };
+        println!("  {:<28} {:>5}  {}", o.op, o.count, r);
+    }
+    if info.gradient_ready {
+        println!("\ngradients: ready (all methods available)");
+    } else {
+        println!("\ngradients: not available; occlusion still works. Nodes without a reverse step:");
+        for u in &info.unsupported {
+            println!("  {} (node \"{}\")", u.op, u.node);
+        }
+    }
+    Ok(())
+}
+
+/// The model-input tensor for an image or a tensor file, with the card used (if any).
+pub(crate) fn load_input(
+    model: &Model,
+    margs: &ModelArgs,
+    input: &InputArgs,
+) -> Result<(crate::methods::Input, Option<crate::feed::FeedCard>)> {
+    if let Some(t) = &input.tensor {
+        let x = crate::feed::read_tensor(t)?;
+        if x.shape() != model.input_shape() {
+            anyhow::bail!(
+                "tensor {} has shape {:?} but model {} takes {:?}. Reshape it, or load the model with \
+                 --input-shape if its input dimensions are dynamic.",
+                t.display(),
+                x.shape(),
+                model.path().display(),
+                model.input_shape()
+            );
+        }
+        let card = margs.card(model).ok();
+        let name = t.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+        return Ok((crate::methods::Input::tensor(x, name), card));
+    }
+    let path = input.image.as_ref().context("give --image or --tensor")?;
+    let card = margs.card(model)?;
+    let pic = crate::feed::Picture::open(path)?;
+    let inp = crate::methods::Input::picture(pic, &card).with_context(|| format!("image {}", path.display()))?;
+    Ok((inp, Some(card)))
+}
+
+fn predict(a: &PredictArgs) -> Result<()> {
+    let m = a.model.load()?;
+    let (input, card) = load_input(&m, &a.model, &a.input)?;
+    let x = input.model_tensor()?;
+    let out = m.forward(&x, crate::model::Tap::Output)?;
+    let labels: Vec<String> =
+        (0..out.len()).map(|i| card.as_ref().map(|c| c.label(i)).unwrap_or_else(|| format!("class {i}"))).collect();
+    if a.json {
+        let v = serde_json::json!({
+            "model_sha256": m.sha256(),
+            "input": input.name(),
+            "outputs": out.to_vec(),
+            "labels": labels,
+        });
+        println!("{}", serde_json::to_string_pretty(&v)?);
+    } else {
+        let wl = labels.iter().map(|l| l.len()).max().unwrap_or(5).max(5);
+        println!("{:>5}  {:<wl$}  {:>12}", "index", "label", "output");
+        for (i, (v, l)) in out.iter().zip(&labels).enumerate() {
+            println!("{i:>5}  {l:<wl$}  {v:>12.6}");
+        }
+    }
+    Ok(())
+}
+
+fn demo(a: &DemoArgs) -> Result<()> {
+    let spec = crate::demo::SetSpec { count: a.count, seed: a.seed, ..Default::default() };
+    let bar = explain::progress_bar("writing demo set");
+    let ctl = explain::control_for(&bar);
+    crate::demo::write_demo_set(&a.out, &spec, &ctl)?;
+    bar.finish_and_clear();
+    eprintln!("wrote {} images with masks and manifest.csv to {}", a.count, a.out.display());
+    Ok(())
+}

@@ -1,0 +1,311 @@
+//! The feed card: a TOML sidecar saying how an image becomes a model's input tensor.
+//!
+//! `chest.onnx` is fed by `chest.feed.toml` beside it. Every field has a default so a card can
+//! be as short as the one thing the graph cannot tell (usually the normalisation). Example:
+//!
+//! ```toml
+//! [input]
+//! layout = "nchw"            # nchw | nhwc
+//! channels = 1               # 1 | 3
+//! height = 128
+//! width = 128
+//! resize = "stretch"         # stretch | shorter-side-crop
+//! gray_to_rgb = "replicate"  # replicate | refuse  (grayscale image, 3-channel model)
+//! scale = "unit"             # unit: pixels 0..1 | byte: pixels 0..255
+//! mean = [0.5]               # per channel, subtracted after scaling
+//! std = [0.25]               # per channel, divided after the mean
+//!
+//! [output]
+//! kind = "logits"            # logits | probabilities
+//! labels = ["no finding", "finding present"]
+//! ```
+
+use std::path::{Path, PathBuf};
+
+use anyhow::{Context, Result, bail};
+use serde::{Deserialize, Serialize};
+
+use crate::model::Model;
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Layout {
+    Nchw,
+    Nhwc,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Resize {
+    /// Scale each axis to the model's size, ignoring the aspect ratio.
+    Stretch,
+    /// Scale so the shorter side fits, then cut the centre.
+    ShorterSideCrop,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum GrayRule {
+    Replicate,
+    Refuse,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Scale {
+    /// Pixel values 0..1.
+    Unit,
+    /// Pixel values 0..255 (16-bit images are scaled down to this range too).
+    Byte,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum OutputKind {
+    Logits,
+    Probabilities,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct InputCard {
+    #[serde(default = "default_layout")]
+    pub layout: Layout,
+    #[serde(default = "default_channels")]
+    pub channels: usize,
+    pub height: usize,
+    pub width: usize,
+    #[serde(default = "default_resize")]
+    pub resize: Resize,
+    #[serde(default = "default_gray")]
+    pub gray_to_rgb: GrayRule,
+    #[serde(default = "default_scale")]
+    pub scale: Scale,
+    #[serde(default)]
+    pub mean: Vec<f32>,
+    #[serde(default)]
+    pub std: Vec<f32>,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct OutputCard {
+    #[serde(default = "default_kind")]
+    pub kind: OutputKind,
+    #[serde(default)]
+    pub labels: Vec<String>,
+}
+
+impl Default for OutputCard {
+    fn default() -> Self {
+        OutputCard { kind: OutputKind::Logits, labels: Vec::new() }
+    }
+}
+
+/// How an image is fed to one model. See the module docs for the file format.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FeedCard {
+    pub input: InputCard,
+    #[serde(default)]
+    pub output: OutputCard,
+}
+
+fn default_layout() -> Layout {
+    Layout::Nchw
+}
+fn default_channels() -> usize {
+    1
+}
+fn default_resize() -> Resize {
+    Resize::Stretch
+}
+fn default_gray() -> GrayRule {
+    GrayRule::Replicate
+}
+fn default_scale() -> Scale {
+    Scale::Unit
+}
+fn default_kind() -> OutputKind {
+    OutputKind::Logits
+}
+
+impl FeedCard {
+    /// Reads and checks a card.
+    pub fn load(path: &Path) -> Result<FeedCard> {
+        let text = std::fs::read_to_string(path)
+            .with_context(|| format!("cannot read feed card {}", path.display()))?;
+        let card: FeedCard = toml::from_str(&text).map_err(|e| {
+            anyhow::anyhow!(
+                "feed card {} is not valid: {}\nSee the example in DEVELOPERS.md (section \"Feed cards\").",
+                path.display(),
+                e.to_string().trim()
+            )
+        })?;
+        card.check().with_context(|| format!("feed card {}", path.display()))?;
+        Ok(card)
+    }
+
+    /// The sidecar path for a model: `m.onnx` → `m.feed.toml`.
+    pub fn sidecar_path(model_path: &Path) -> PathBuf {
+        let stem = model_path.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+        model_path.with_file_name(format!("{stem}.feed.toml"))
+    }
+
+    /// The card beside a model, if there is one.
+    pub fn for_model(model_path: &Path) -> Result<Option<FeedCard>> {
+        let p = Self::sidecar_path(model_path);
+        if p.exists() { Self::load(&p).map(Some) } else { Ok(None) }
+    }
+
+    /// The card beside the model, else one inferred from the graph.
+    pub fn for_loaded(model: &Model) -> Result<FeedCard> {
+        match Self::for_model(model.path())? {
+            Some(c) => {
+                c.check_against(model)?;
+                Ok(c)
+            }
+            None => Self::infer(model),
+        }
+    }
+
+    /// A card guessed from the model's input shape: layout from where the 1 or 3 channel axis
+    /// sits, no normalisation, labels `class 0..n`.
+    pub fn infer(model: &Model) -> Result<FeedCard> {
+        let shape = model.input_shape();
+        if shape.len() != 4 {
+            bail!(
+                "model {} takes a rank-{} input {:?}; image feeding needs rank 4 (N,C,H,W or N,H,W,C). \
+                 Feed it a tensor with --tensor instead.",
+                model.path().display(),
+                shape.len(),
+                shape
+            );
+        }
+        let (layout, c, h, w) = if matches!(shape[1], 1 | 3) {
+            (Layout::Nchw, shape[1], shape[2], shape[3])
+        } else if matches!(shape[3], 1 | 3) {
+            (Layout::Nhwc, shape[3], shape[1], shape[2])
+        } else {
+            bail!(
+                "cannot tell the channel axis of model {} from its input shape {:?}. \
+                 Write a feed card {} saying layout and channels.",
+                model.path().display(),
+                shape,
+                Self::sidecar_path(model.path()).display()
+            );
+        };
+        let kind = if model.ends_in_softmax() { OutputKind::Probabilities } else { OutputKind::Logits };
+        Ok(FeedCard {
+            input: InputCard {
+                layout,
+                channels: c,
+                height: h,
+                width: w,
+                resize: Resize::Stretch,
+                gray_to_rgb: GrayRule::Replicate,
+                scale: Scale::Unit,
+                mean: vec![0.0; c],
+                std: vec![1.0; c],
+            },
+            output: OutputCard { kind, labels: (0..model.output_len()).map(|i| format!("class {i}")).collect() },
+        })
+    }
+
+    /// The input tensor shape this card produces (batch 1).
+    pub fn tensor_shape(&self) -> Vec<usize> {
+        let i = &self.input;
+        match i.layout {
+            Layout::Nchw => vec![1, i.channels, i.height, i.width],
+            Layout::Nhwc => vec![1, i.height, i.width, i.channels],
+        }
+    }
+
+    /// Label of class `index`, or `class N` when the card has none.
+    pub fn label(&self, index: usize) -> String {
+        self.output.labels.get(index).cloned().unwrap_or_else(|| format!("class {index}"))
+    }
+
+    /// Per-channel mean and std, expanded from zero, one or `channels` values.
+    pub fn mean_std(&self) -> (Vec<f32>, Vec<f32>) {
+        let c = self.input.channels;
+        let expand = |v: &[f32], dflt: f32| match v.len() {
+            0 => vec![dflt; c],
+            1 => vec![v[0]; c],
+            _ => v.to_vec(),
+        };
+        (expand(&self.input.mean, 0.0), expand(&self.input.std, 1.0))
+    }
+
+    fn check(&self) -> Result<()> {
+        let i = &self.input;
+        if !matches!(i.channels, 1 | 3) {
+            bail!("input.channels is {}; spurion feeds 1- or 3-channel images", i.channels);
+        }
+        if i.height == 0 || i.width == 0 {
+            bail!("input.height and input.width must be positive");
+        }
+        for (name, v) in [("mean", &i.mean), ("std", &i.std)] {
+            if !(v.is_empty() || v.len() == 1 || v.len() == i.channels) {
+                bail!("input.{name} has {} values; give 1 or {} (one per channel)", v.len(), i.channels);
+            }
+            if v.iter().any(|x| !x.is_finite()) {
+                bail!("input.{name} has a value that is not a finite number");
+            }
+        }
+        if i.std.iter().any(|s| *s == 0.0) {
+            bail!("input.std has a zero; division by zero would make every input infinite");
+        }
+        Ok(())
+    }
+
+    /// Checks that the card's tensor shape is what the model takes.
+    pub fn check_against(&self, model: &Model) -> Result<()> {
+        let want = model.input_shape();
+        let got = self.tensor_shape();
+        if want != got.as_slice() {
+            bail!(
+                "feed card {} makes input tensors of shape {:?} but model {} takes {:?}. \
+                 Fix layout/channels/height/width in the card.",
+                Self::sidecar_path(model.path()).display(),
+                got,
+                model.path().display(),
+                want
+            );
+        }
+        if !self.output.labels.is_empty() && self.output.labels.len() != model.output_len() {
+            bail!(
+                "feed card {} lists {} labels but model {} has {} outputs",
+                Self::sidecar_path(model.path()).display(),
+                self.output.labels.len(),
+                model.path().display(),
+                model.output_len()
+            );
+        }
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn short_card_fills_defaults() {
+        let c: FeedCard = toml::from_str("[input]\nheight = 8\nwidth = 6\n").unwrap();
+        c.check().unwrap();
+        assert_eq!(c.tensor_shape(), vec![1, 1, 8, 6]);
+        assert_eq!(c.mean_std(), (vec![0.0], vec![1.0]));
+        assert_eq!(c.label(1), "class 1");
+    }
+
+    #[test]
+    fn bad_cards_are_refused_with_the_field_named() {
+        let c: FeedCard = toml::from_str("[input]\nheight = 8\nwidth = 6\nchannels = 3\nmean = [1.0, 2.0]\n").unwrap();
+        let e = c.check().unwrap_err().to_string();
+        assert!(e.contains("input.mean"), "{e}");
+        let c: FeedCard = toml::from_str("[input]\nheight = 8\nwidth = 6\nstd = [0.0]\n").unwrap();
+        assert!(c.check().unwrap_err().to_string().contains("zero"));
+        assert!(toml::from_str::<FeedCard>("[input]\nheight = 8\nwidth = 6\nlayuot = \"nchw\"\n").is_err());
+    }
+}

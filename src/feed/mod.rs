@@ -1,0 +1,40 @@
+//! Feeding a model: the feed card, pictures, tensors, and the way back from tensor to picture.
+
+mod card;
+mod picture;
+mod prepare;
+
+pub use card::{FeedCard, GrayRule, InputCard, Layout, OutputCard, OutputKind, Resize, Scale};
+pub use picture::{IMAGE_ENDINGS, LUMA, Picture, list_images, luminance};
+pub use prepare::{ChannelRule, Feeder, axis_weights, grid_to_tensor, tensor_to_grid};
+
+use std::path::Path;
+
+use anyhow::{Context, Result, bail};
+use ndarray::ArrayD;
+
+/// Reads a float32 (or float64, converted) `.npy` tensor.
+pub fn read_tensor(path: &Path) -> Result<ArrayD<f32>> {
+    use ndarray_npy::ReadNpyExt;
+    let bytes = std::fs::read(path).with_context(|| format!("cannot read tensor file {}", path.display()))?;
+    if let Ok(a) = ArrayD::<f32>::read_npy(std::io::Cursor::new(&bytes)) {
+        return Ok(a);
+    }
+    match ArrayD::<f64>::read_npy(std::io::Cursor::new(&bytes)) {
+        Ok(a) => Ok(a.mapv(|v| v as f32)),
+        Err(e) => bail!(
+            "{} is not a NumPy .npy file of float32 or float64 values ({e}). \
+             Save it with numpy.save(path, array.astype(numpy.float32)).",
+            path.display()
+        ),
+    }
+}
+
+/// Writes a float32 `.npy` file.
+pub fn write_tensor(path: &Path, a: &ArrayD<f32>) -> Result<()> {
+    use ndarray_npy::WriteNpyExt;
+    let f = std::fs::File::create(path).with_context(|| format!("cannot create {}", path.display()))?;
+    a.as_standard_layout()
+        .write_npy(std::io::BufWriter::new(f))
+        .with_context(|| format!("cannot write {}", path.display()))
+}

@@ -1,0 +1,27 @@
+//! spurion: shows what an image classifier is looking at, and catches it when the answer is a
+//! shortcut (a burned-in mark or a border band instead of the anatomy).
+//!
+//! The modules follow the pipeline: [`feed`] (feed card, images and tensors in) → [`model`]
+//! (ONNX on CPU, forward) and [`grad`] (exact reverse pass) → [`methods`] (attribution methods
+//! and baselines, producing a [`methods::Reading`]) → [`regions`] (border bands, burned-in marks
+//! and the figures over them) → presentation ([`render`] for pictures, [`cli`], [`gui`]).
+//! The engine knows nothing of egui; only [`gui`] does.
+//!
+//! spurion is a research and data-quality tool, not a diagnostic device.
+
+pub mod control;
+pub mod demo;
+pub mod feed;
+pub mod grad;
+pub mod methods;
+pub mod model;
+pub mod regions;
+pub mod render;
+
+pub mod cli;
+pub mod gui;
+
+/// The caution every front end shows. One wording, kept here so the CLI, GUI and reports agree.
+pub const CAUTION: &str = "spurion is a research and data-quality tool, not a diagnostic device. \
+An attribution map is a hint about what a model responds to, not proof of what it does. \
+Any clinical use defers to local regulation and licensed practice.";

@@ -1,0 +1,20 @@
+//! The `spurion` binary: with no arguments it opens the desktop inspector on the bundled demo;
+//! otherwise see `spurion --help`.
+
+use clap::Parser;
+
+fn main() -> std::process::ExitCode {
+    let cli = spurion::cli::Cli::parse();
+    match spurion::cli::run(cli) {
+        Ok(()) => std::process::ExitCode::SUCCESS,
+        Err(e) => {
+            // One paragraph: the chain of causes, outermost first, no backtrace.
+            let mut msg = format!("spurion: {e}");
+            for cause in e.chain().skip(1) {
+                msg.push_str(&format!(": {cause}"));
+            }
+            eprintln!("{msg}");
+            std::process::ExitCode::from(1)
+        }
+    }
+}

@@ -1,0 +1,49 @@
+//! Shared helpers for integration tests: finding the reference Python and running it.
+#![allow(dead_code)]
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+/// The manifest directory (repository root).
+pub fn root() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+pub fn fixture(rel: &str) -> PathBuf {
+    root().join("tests").join("fixtures").join(rel)
+}
+
+/// The Python with the reference libraries: $SPURION_PYTHON, else ./.venv/bin/python.
+/// Returns None outside CI when neither exists (the caller then skips, saying why); under CI
+/// (CI set) a missing Python is a failure, so reference checks cannot silently vanish.
+pub fn reference_python() -> Option<PathBuf> {
+    let p = std::env::var_os("SPURION_PYTHON").map(PathBuf::from).unwrap_or_else(|| root().join(".venv/bin/python"));
+    if p.exists() {
+        return Some(p);
+    }
+    if std::env::var_os("CI").is_some() {
+        panic!("reference Python not found at {}; .ci/run should have created it", p.display());
+    }
+    eprintln!("SKIPPED: no reference Python at {} (run .ci/run once to make .venv)", p.display());
+    None
+}
+
+/// Runs a reference script; panics with its stderr if it fails.
+pub fn run_python(py: &Path, script: &str, args: &[&str]) -> String {
+    let out = Command::new(py)
+        .arg(root().join("tests/reference").join(script))
+        .args(args)
+        .output()
+        .expect("start reference python");
+    if !out.status.success() {
+        panic!("{script} failed:\n{}", String::from_utf8_lossy(&out.stderr));
+    }
+    String::from_utf8_lossy(&out.stdout).into_owned()
+}
+
+/// max |a − b| / max(max |b|, floor)
+pub fn rel_err(a: &[f32], b: &[f32], floor: f32) -> f32 {
+    assert_eq!(a.len(), b.len(), "length mismatch");
+    let scale = b.iter().fold(floor, |m, v| m.max(v.abs()));
+    a.iter().zip(b).fold(0.0f32, |m, (x, y)| m.max((x - y).abs())) / scale
+}

@@ -1,0 +1,160 @@
+//! Attribution methods checked against their published properties and an independent
+//! occlusion written with onnxruntime. Fixtures: tests/reference/make_method_fixtures.py.
+
+mod common;
+
+use common::{fixture, reference_python, rel_err, run_python};
+use ndarray::{ArrayD, Axis};
+use spurion::control::Control;
+use spurion::feed::read_tensor;
+use spurion::methods::{Baseline, Input, Method, Request, Rule, ScoreKind, TargetSpec, explain};
+use spurion::model::{LoadOptions, Model};
+
+fn load(name: &str) -> Model {
+    Model::load(&fixture(&format!("methods/{name}")), &LoadOptions::default()).expect("fixture model loads")
+}
+
+fn x16() -> ArrayD<f32> {
+    read_tensor(&fixture("methods/x16.npy")).unwrap()
+}
+
+fn run(model: &Model, x: &ArrayD<f32>, method: Method, baseline: Baseline, target: usize, score: ScoreKind) -> spurion::methods::Reading {
+    let req = Request { method, baseline, target: TargetSpec::Index(target), score };
+    explain(model, None, &Input::tensor(x.clone(), "x"), &req, &Control::new()).expect("explain runs")
+}
+
+fn ig(steps: usize, rule: Rule) -> Method {
+    Method::IntegratedGradients { steps, rule, adaptive: None }
+}
+
+#[test]
+fn integrated_gradients_on_a_linear_model_is_input_minus_baseline_times_weight() {
+    // Sundararajan, Taly, Yan (2017), section 2/3: for F(x) = w·x + b, IG_i = (x_i − x′_i) w_i,
+    // whatever the step count, since the gradient is constant along the path.
+    let m = load("linear.onnx");
+    let w = read_tensor(&fixture("methods/linear_w.npy")).unwrap();
+    let x = ArrayD::from_shape_fn(ndarray::IxDyn(&[1, 1, 8, 8]), |i| ((i[2] * 8 + i[3]) as f32 * 0.37).sin());
+    let xb = ArrayD::from_elem(x.raw_dim(), 0.2f32);
+    let dir = tempfile::tempdir().unwrap();
+    let bp = dir.path().join("b.npy");
+    spurion::feed::write_tensor(&bp, &xb).unwrap();
+    for (steps, rule) in [(1, Rule::Midpoint), (5, Rule::Trapezoid), (64, Rule::GaussLegendre)] {
+        for t in 0..3 {
+            let r = run(&m, &x, ig(steps, rule), Baseline::Tensor { path: bp.clone() }, t, ScoreKind::Raw);
+            let want: Vec<f32> = (0..64).map(|k| (x.as_slice().unwrap()[k] - 0.2) * w[[t, k]]).collect();
+            let got: Vec<f32> = r.map.iter().cloned().collect();
+            assert!(rel_err(&got, &want, 1e-6) < 1e-5, "rule {rule:?} target {t}");
+            assert!(r.completeness_gap.unwrap() < 1e-5);
+        }
+    }
+}
+
+#[test]
+fn integrated_gradients_are_complete_at_the_default_steps() {
+    // Completeness (Sundararajan et al. 2017, prop. 1): sum of attributions = F(x) − F(x′).
+    // The paper advises checking it within 5%; we hold the default (64 Gauss–Legendre steps)
+    // to 1% on this smooth network.
+    let m = load("small_cnn.onnx");
+    let x = x16();
+    for b in [Baseline::Black, Baseline::Blur { sigma: 2.0 }, Baseline::UniformNoise { seed: 3 }] {
+        let r = run(&m, &x, Method::integrated_gradients(), b.clone(), 1, ScoreKind::Raw);
+        let diff = (r.score_input - r.score_baseline.unwrap()) as f64;
+        assert!((r.attribution_sum - diff).abs() <= 0.01 * diff.abs(), "{b:?}: sum {} vs {diff}", r.attribution_sum);
+        assert!(r.completeness_gap.unwrap() < 0.01);
+    }
+}
+
+#[test]
+fn adaptive_integrated_gradients_reach_the_asked_gap_and_say_how_many_steps() {
+    let m = load("small_cnn.onnx");
+    let x = x16();
+    let method = Method::IntegratedGradients { steps: 2, rule: Rule::Midpoint, adaptive: Some(0.001) };
+    let r = run(&m, &x, method, Baseline::Black, 0, ScoreKind::Raw);
+    assert!(r.completeness_gap.unwrap() <= 0.001, "gap {:?}", r.completeness_gap);
+    let steps = r.steps.unwrap();
+    assert!(steps >= 2 && [2, 6, 18, 54, 162, 486, 1458].contains(&steps), "steps {steps}");
+}
+
+#[test]
+fn logits_of_a_softmax_model_are_the_logits_model() {
+    // The two fixtures share weights; one ends in Softmax. Scoring the logits (the input of
+    // the final softmax) must give the same reading as the raw output of the logits model,
+    // and scoring the softmax of the logits model the same as the softmax model's output.
+    let (plain, soft) = (load("small_cnn.onnx"), load("small_cnn_softmax.onnx"));
+    assert!(soft.ends_in_softmax() && !plain.ends_in_softmax());
+    let x = x16();
+    let a = run(&plain, &x, ig(16, Rule::GaussLegendre), Baseline::Black, 2, ScoreKind::Raw);
+    let b = run(&soft, &x, ig(16, Rule::GaussLegendre), Baseline::Black, 2, ScoreKind::Logits);
+    assert!(rel_err(b.map.as_slice().unwrap(), a.map.as_slice().unwrap(), 1e-6) < 1e-4);
+    let c = run(&plain, &x, Method::Gradient, Baseline::Black, 2, ScoreKind::Softmax);
+    let d = run(&soft, &x, Method::Gradient, Baseline::Black, 2, ScoreKind::Raw);
+    assert!((c.score_input - d.score_input).abs() < 1e-6);
+    assert!(rel_err(c.map.as_slice().unwrap(), d.map.as_slice().unwrap(), 1e-6) < 1e-4);
+}
+
+#[test]
+fn gradient_family_agrees_with_itself() {
+    let m = load("small_cnn.onnx");
+    let x = x16();
+    let g = run(&m, &x, Method::Gradient, Baseline::Black, 0, ScoreKind::Raw);
+    let gx = run(&m, &x, Method::GradientXInput, Baseline::Black, 0, ScoreKind::Raw);
+    let want = &g.map * &x;
+    assert!(rel_err(gx.map.as_slice().unwrap(), want.as_slice().unwrap(), 1e-6) < 1e-6);
+    // SmoothGrad (Smilkov et al. 2017) with no noise is the plain gradient.
+    let s = run(&m, &x, Method::SmoothGrad { noise: 0.0, samples: 3, seed: 1 }, Baseline::Black, 0, ScoreKind::Raw);
+    assert!(rel_err(s.map.as_slice().unwrap(), g.map.as_slice().unwrap(), 1e-6) < 1e-5);
+    // With noise it differs, and the same seed gives the same map.
+    let s1 = run(&m, &x, Method::SmoothGrad { noise: 0.2, samples: 8, seed: 1 }, Baseline::Black, 0, ScoreKind::Raw);
+    let s2 = run(&m, &x, Method::SmoothGrad { noise: 0.2, samples: 8, seed: 1 }, Baseline::Black, 0, ScoreKind::Raw);
+    assert_eq!(s1.map, s2.map);
+    assert!(rel_err(s1.map.as_slice().unwrap(), g.map.as_slice().unwrap(), 1e-6) > 1e-3);
+}
+
+#[test]
+fn expected_gradients_with_one_fixed_baseline_tend_to_integrated_gradients() {
+    // Erion et al. (2021): EG is IG averaged over baselines, with α drawn uniformly; with a
+    // single baseline it is a Monte Carlo estimate of IG against it. 2000 draws put the
+    // sampling error well under the 5% allowed here (standard error ~ 1/√2000 ≈ 2%).
+    let m = load("small_cnn.onnx");
+    let x = x16();
+    let igr = run(&m, &x, ig(64, Rule::GaussLegendre), Baseline::Black, 1, ScoreKind::Raw);
+    let eg = run(&m, &x, Method::ExpectedGradients { samples: 2000, seed: 5 }, Baseline::Black, 1, ScoreKind::Raw);
+    let num: f32 = (&eg.map - &igr.map).iter().map(|v| v * v).sum::<f32>().sqrt();
+    let den: f32 = igr.map.iter().map(|v| v * v).sum::<f32>().sqrt();
+    assert!(num / den < 0.05, "relative L2 distance {}", num / den);
+    assert!(eg.completeness_gap.unwrap() < 0.05);
+}
+
+#[test]
+fn occlusion_equals_an_independent_onnxruntime_occlusion() {
+    // Reference: tests/reference/ort_occlusion.py, the Zeiler & Fergus (2014) sliding-square
+    // occlusion written from the definition and run on onnxruntime 1.32.0.
+    let Some(py) = reference_python() else { return };
+    let m = load("small_cnn.onnx");
+    let x = x16();
+    let dir = tempfile::tempdir().unwrap();
+    let (xp, bp, op) = (dir.path().join("x.npy"), dir.path().join("b.npy"), dir.path().join("o.npy"));
+    spurion::feed::write_tensor(&xp, &x).unwrap();
+    let blur = Baseline::Blur { sigma: 1.5 };
+    for (w, s) in [(4usize, 2usize), (5, 3)] {
+        let r = run(&m, &x, Method::Occlusion { window: w, stride: s }, blur.clone(), 1, ScoreKind::Raw);
+        // The same blurred fill, handed to the reference as a tensor.
+        let fill = spurion_blur(&x, 1.5);
+        spurion::feed::write_tensor(&bp, &fill).unwrap();
+        let args = [m.path().to_str().unwrap(), xp.to_str().unwrap(), bp.to_str().unwrap(), &w.to_string(), &s.to_string(), "1", op.to_str().unwrap()];
+        run_python(&py, "ort_occlusion.py", &args);
+        let want = read_tensor(&op).unwrap();
+        let got = r.map.sum_axis(Axis(1)).index_axis(Axis(0), 0).to_owned();
+        assert_eq!(got.shape(), want.shape());
+        assert!(rel_err(got.as_slice().unwrap(), want.as_slice().unwrap(), 1e-5) < 1e-4, "window {w} stride {s}");
+    }
+}
+
+/// The blur baseline of a one-channel NCHW tensor, through spurion's public blur (Gaussian, σ in
+/// pixels, radius ⌈3σ⌉, reflected edges), so the reference is handed the very same fill and the
+/// comparison tests occlusion alone.
+fn spurion_blur(x: &ArrayD<f32>, sigma: f32) -> ArrayD<f32> {
+    let plane = x.view().into_dimensionality::<ndarray::Ix4>().unwrap().index_axis(Axis(0), 0).index_axis(Axis(0), 0).to_owned();
+    let b = spurion::methods::blur_grid(&plane.insert_axis(Axis(2)), sigma);
+    b.index_axis(Axis(2), 0).to_owned().insert_axis(Axis(0)).insert_axis(Axis(0)).into_dyn()
+}
