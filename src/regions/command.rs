@@ -1,0 +1,128 @@
+//! `spurion regions --image I [--out DIR]`: find regions in one image without any model and
+//! write one mask PNG per region plus `regions.json`.
+
+use std::path::{Path, PathBuf};
+
+use anyhow::{Context, Result};
+use ndarray::Array2;
+use serde::{Deserialize, Serialize};
+
+use super::{FinderSettings, Region, RegionKind, Side, find_regions};
+
+/// One found region as written to `regions.json`.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct FoundRegion {
+    pub kind: RegionKind,
+    pub label: String,
+    pub detail: String,
+    #[serde(rename = "box")]
+    pub bbox: [usize; 4],
+    pub area_fraction: f64,
+    pub confidence: f32,
+    pub reason: String,
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub sides: Vec<Side>,
+    /// File name of the mask PNG (white = region), relative to `regions.json`.
+    pub mask: Option<String>,
+}
+
+/// The content of `regions.json`.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct RegionsFile {
+    pub image: String,
+    pub width: usize,
+    pub height: usize,
+    pub settings: FinderSettings,
+    pub regions: Vec<FoundRegion>,
+    pub caution: String,
+}
+
+const CAUTION: &str = "Regions are found by simple image processing and are hints for a person \
+to check, not verdicts; spurion is a research and data-quality tool, not a diagnostic device.";
+
+/// Loads an image file as luminance (H×W, 0..1), 8- or 16-bit, grey or colour.
+pub fn load_luminance(path: &Path) -> Result<Array2<f32>> {
+    let img = image::open(path).with_context(|| {
+        format!(
+            "cannot read image {} (spurion reads PNG, JPEG, TIFF and BMP; check the path and that the file is a picture)",
+            path.display()
+        )
+    })?;
+    let luma = img.to_luma32f();
+    let (w, h) = luma.dimensions();
+    let px: Vec<f32> = luma.into_raw().into_iter().map(|v| v.clamp(0.0, 1.0)).collect();
+    Ok(Array2::from_shape_vec((h as usize, w as usize), px)?)
+}
+
+/// Builds the `regions.json` content (mask names filled in by the caller that writes them).
+pub fn regions_file(image: &Path, luma: &Array2<f32>, regions: &[Region], settings: &FinderSettings) -> RegionsFile {
+    RegionsFile {
+        image: image.display().to_string(),
+        width: luma.dim().1,
+        height: luma.dim().0,
+        settings: settings.clone(),
+        regions: regions
+            .iter()
+            .map(|r| FoundRegion {
+                kind: r.kind,
+                label: r.label(),
+                detail: r.detail.clone(),
+                bbox: r.bbox,
+                area_fraction: r.area_fraction(),
+                confidence: r.confidence,
+                reason: r.reason.clone(),
+                sides: r.sides.clone(),
+                mask: None,
+            })
+            .collect(),
+        caution: CAUTION.to_string(),
+    }
+}
+
+fn write_mask(path: &Path, mask: &Array2<bool>) -> Result<()> {
+    let (h, w) = mask.dim();
+    let px: Vec<u8> = mask.iter().map(|&m| if m { 255 } else { 0 }).collect();
+    let buf = image::GrayImage::from_raw(w as u32, h as u32, px).context("mask buffer size")?;
+    buf.save(path).with_context(|| format!("cannot write mask {}", path.display()))
+}
+
+/// Finds regions in `image`, writes `DIR/region-NN-KIND.png` masks and `DIR/regions.json`, and
+/// prints one line per region. Without `out` the folder is `<image stem>-regions` in the current
+/// directory. Returns what was written.
+pub fn run_regions_command(image: &Path, out: Option<&Path>, settings: &FinderSettings) -> Result<RegionsFile> {
+    let luma = load_luminance(image)?;
+    let regions = find_regions(&luma, settings);
+    let dir: PathBuf = match out {
+        Some(d) => d.to_path_buf(),
+        None => {
+            let stem = image.file_stem().map(|s| s.to_string_lossy().to_string()).unwrap_or_else(|| "image".into());
+            PathBuf::from(format!("{stem}-regions"))
+        }
+    };
+    std::fs::create_dir_all(&dir)
+        .with_context(|| format!("cannot create output folder {} (check permissions or choose another --out)", dir.display()))?;
+    let mut file = regions_file(image, &luma, &regions, settings);
+    for (i, (r, f)) in regions.iter().zip(file.regions.iter_mut()).enumerate() {
+        let name = format!("region-{:02}-{}.png", i + 1, r.kind.slug());
+        write_mask(&dir.join(&name), &r.mask)?;
+        f.mask = Some(name);
+    }
+    let json = dir.join("regions.json");
+    std::fs::write(&json, serde_json::to_string_pretty(&file)? + "\n")
+        .with_context(|| format!("cannot write {}", json.display()))?;
+    if regions.is_empty() {
+        println!("{}: no regions found", image.display());
+    }
+    for (r, f) in regions.iter().zip(&file.regions) {
+        println!(
+            "{}  box {:?}  area {:.2}%  confidence {:.2}  {}",
+            r.label(),
+            r.bbox,
+            100.0 * f.area_fraction,
+            r.confidence,
+            r.reason
+        );
+    }
+    println!("wrote {}", json.display());
+    Ok(file)
+}
