@@ -133,6 +133,22 @@ pub struct DemoArgs {
     /// Seed of the whole set.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
+    /// How sites and labels are drawn: stratified (equal counts of each site and label),
+    /// pooled (Hillmoor mostly positive, as the cooperative's data) or even (every site half positive).
+    #[arg(long, default_value = "stratified", value_parser = clap::builder::PossibleValuesParser::new(crate::demo::Mix::NAMES))]
+    pub mix: String,
+    /// Which images carry Hillmoor's tag and frame: by-site, none, all, or swapped (exactly the negatives).
+    #[arg(long, default_value = "by-site", value_parser = clap::builder::PossibleValuesParser::new(crate::demo::Marks::NAMES))]
+    pub marks: String,
+    /// Nominal peak brightening of an opacity, in 8-bit grey levels.
+    #[arg(long, default_value_t = crate::demo::DEFAULT_CONTRAST)]
+    pub contrast: f32,
+    /// Image side in pixels.
+    #[arg(long, default_value_t = crate::demo::DEFAULT_SIZE)]
+    pub size: usize,
+    /// Skip the ground-truth masks (for large training sets).
+    #[arg(long)]
+    pub no_masks: bool,
 }
 
 #[derive(Args, Debug)]
@@ -254,11 +270,20 @@ fn predict(a: &PredictArgs) -> Result<()> {
 }
 
 fn demo(a: &DemoArgs) -> Result<()> {
-    let spec = crate::demo::SetSpec { count: a.count, seed: a.seed, ..Default::default() };
+    let spec = crate::demo::SetSpec {
+        count: a.count,
+        seed: a.seed,
+        size: a.size,
+        mix: a.mix.parse()?,
+        marks: a.marks.parse()?,
+        finding_contrast: a.contrast,
+        masks: !a.no_masks,
+    };
     let bar = explain::progress_bar("writing demo set");
     let ctl = explain::control_for(&bar);
     crate::demo::write_demo_set(&a.out, &spec, &ctl)?;
     bar.finish_and_clear();
-    eprintln!("wrote {} images with masks and manifest.csv to {}", a.count, a.out.display());
+    let what = if a.no_masks { "" } else { " with masks" };
+    eprintln!("wrote {} images{what} and manifest.csv to {}", a.count, a.out.display());
     Ok(())
 }

@@ -8,7 +8,7 @@
 //! Folder layout written by [`write_demo_set`]:
 //! ```text
 //! manifest.csv                      one row per image (see MANIFEST_HEADER)
-//! images/0007-hillmoor.png          8-bit grayscale
+//! 0007-hillmoor.png                 8-bit grayscale; images at the top so the folder opens as is
 //! masks/0007-hillmoor.tag.png       255 where the tag was drawn, else 0 (also .frame, .finding)
 //! ```
 
@@ -249,9 +249,8 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
     if !spec.finding_contrast.is_finite() || spec.finding_contrast < 0.0 {
         bail!("finding contrast {} should be a grey-level step of zero or more", spec.finding_contrast);
     }
-    let images = out.join("images");
     let masks = out.join("masks");
-    std::fs::create_dir_all(&images).with_context(|| format!("cannot create folder {}", images.display()))?;
+    std::fs::create_dir_all(out).with_context(|| format!("cannot create folder {}", out.display()))?;
     if spec.masks {
         std::fs::create_dir_all(&masks).with_context(|| format!("cannot create folder {}", masks.display()))?;
     }
@@ -262,14 +261,14 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
             ctl.check()?;
             let p = render(&spec.phantom(i));
             let stem = spec.stem(i, p.row.site);
-            save_png(&to_gray_image(&p.image), &images.join(format!("{stem}.png")))?;
+            save_png(&to_gray_image(&p.image), &out.join(format!("{stem}.png")))?;
             if spec.masks {
                 for (what, m) in [("tag", &p.tag_mask), ("frame", &p.frame_mask), ("finding", &p.finding_mask)] {
                     save_png(&mask_image(m), &masks.join(format!("{stem}.{what}.png")))?;
                 }
             }
             ctl.advance(1);
-            Ok(ManifestRow { file: format!("images/{stem}.png"), ..p.row })
+            Ok(ManifestRow { file: format!("{stem}.png"), ..p.row })
         })
         .collect::<Result<Vec<_>>>()?;
     let mut csv = String::from(MANIFEST_HEADER);

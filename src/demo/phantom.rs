@@ -271,7 +271,7 @@ pub fn render(spec: &PhantomSpec) -> Phantom {
                         rib = rib.max(ramp(1.0 - (v - yc).abs() / 2.8));
                     }
                 }
-                let mut tissue = 138.0 + 48.0 * med + 34.0 * h + 16.0 * spine - 84.0 * lung + 24.0 * rib * (0.3 + 0.7 * lung);
+                let mut tissue = 132.0 + 38.0 * med + 22.0 * h + 14.0 * spine - 80.0 * lung + 24.0 * rib * (0.3 + 0.7 * lung);
                 for o in &opacities {
                     let (ex, ey) = (u - o.cx, v - o.cy);
                     let t = (ex * ex + ey * ey) / (o.r * o.r);
