@@ -10,7 +10,7 @@
 
 use ndarray::Array2;
 
-use super::grid::{flat, median, noise_sigma, to_mask};
+use super::grid::{flat, median, to_mask};
 use super::{BorderSettings, Region, RegionKind, Side};
 
 struct SideBand {
@@ -25,6 +25,7 @@ struct SideBand {
     tilt: f32,
     mean_depth: f32,
     detail: &'static str,
+    tol: f32,
 }
 
 /// Finds border bands on any side of a luminance image (H×W, 0..1). Sides that share a kind
@@ -34,14 +35,8 @@ pub fn find_border_bands(image: &Array2<f32>, s: &BorderSettings) -> Vec<Region>
     if h < 8 || w < 8 {
         return Vec::new();
     }
-    let sigma = noise_sigma(h, w, &v);
-    let tol = s.flat_tolerance.max(s.noise_factor * sigma);
-    let contrast = s.edge_contrast.max(2.0 * tol);
-    let bands: Vec<SideBand> = Side::ALL
-        .iter()
-        .filter_map(|&side| side_band(h, w, &v, side, tol, contrast, s))
-        .collect();
-    merge(h, w, bands, tol)
+    let bands: Vec<SideBand> = Side::ALL.iter().filter_map(|&side| side_band(h, w, &v, side, s)).collect();
+    merge(h, w, bands)
 }
 
 /// Flat index of the pixel `depth` pixels in from `side` at position `pos` along it.
@@ -59,8 +54,6 @@ fn side_band(
     w: usize,
     v: &[f32],
     side: Side,
-    tol: f32,
-    contrast: f32,
     s: &BorderSettings,
 ) -> Option<SideBand> {
     let (n, across) = match side {
@@ -71,6 +64,12 @@ fn side_band(
     let px = |pos: usize, d: usize| v[at(h, w, side, pos, d)];
     let outer: Vec<f32> = (0..n).map(|p| px(p, 0)).collect();
     let value = median(&outer);
+    // The tolerance follows the outermost line's own noise (robust: 1.4826·MAD, common
+    // practice), so a digitally flat frame is held to a tight tolerance and a noisy exposed
+    // margin to a loose one, whatever the rest of the image does.
+    let dev: Vec<f32> = outer.iter().map(|x| (x - value).abs()).collect();
+    let tol = s.flat_tolerance.max(s.noise_factor * 1.4826 * median(&dev));
+    let contrast = s.edge_contrast.max(2.0 * tol);
     let near = |x: f32| (x - value).abs() <= tol;
 
     // Walk inward; a single stray noisy pixel followed by two in-band ones does not end the band.
@@ -181,6 +180,7 @@ fn side_band(
         tilt: b,
         mean_depth,
         detail,
+        tol,
     })
 }
 
@@ -198,7 +198,7 @@ fn line_fit(pts: &[(f32, f32)]) -> (f32, f32) {
     ((my - b * mx) as f32, b as f32)
 }
 
-fn merge(h: usize, w: usize, bands: Vec<SideBand>, tol: f32) -> Vec<Region> {
+fn merge(h: usize, w: usize, bands: Vec<SideBand>) -> Vec<Region> {
     let mut used = vec![false; bands.len()];
     let mut out = Vec::new();
     for i in 0..bands.len() {
@@ -212,7 +212,7 @@ fn merge(h: usize, w: usize, bands: Vec<SideBand>, tol: f32) -> Vec<Region> {
             let same = !used[j]
                 && p.detail == q.detail
                 && p.dark == q.dark
-                && (p.value - q.value).abs() <= tol
+                && (p.value - q.value).abs() <= p.tol.max(q.tol)
                 && (p.detail != "frame" || (p.mean_depth - q.mean_depth).abs() <= 2.0);
             if same {
                 used[j] = true;
@@ -234,7 +234,7 @@ fn merge(h: usize, w: usize, bands: Vec<SideBand>, tol: f32) -> Vec<Region> {
             .iter()
             .map(|&g| {
                 let b = &bands[g];
-                b.inliers.min(1.0) * (b.step / (2.0 * tol.max(0.04))).clamp(0.5, 1.0)
+                b.inliers.min(1.0) * (b.step / (2.0 * b.tol.max(0.04))).clamp(0.5, 1.0)
             })
             .sum::<f32>()
             / group.len() as f32;

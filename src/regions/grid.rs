@@ -13,35 +13,6 @@ pub(crate) fn flat(image: &Array2<f32>) -> (usize, usize, Vec<f32>) {
     (h, w, v)
 }
 
-/// Robust estimate of additive pixel noise σ: the median absolute difference of horizontal
-/// neighbours divided by 0.6745·√2 (the MAD of a Gaussian difference; common practice).
-/// Uses a 4096-bin histogram instead of a sort.
-pub(crate) fn noise_sigma(h: usize, w: usize, v: &[f32]) -> f32 {
-    const BINS: usize = 4096;
-    let mut hist = vec![0u32; BINS];
-    let mut n = 0u32;
-    for y in 0..h {
-        let row = &v[y * w..(y + 1) * w];
-        for x in 1..w {
-            let d = (row[x] - row[x - 1]).abs().min(1.0);
-            hist[((d * (BINS - 1) as f32) as usize).min(BINS - 1)] += 1;
-            n += 1;
-        }
-    }
-    if n == 0 {
-        return 0.0;
-    }
-    let half = n.div_ceil(2);
-    let mut acc = 0u32;
-    for (i, &c) in hist.iter().enumerate() {
-        acc += c;
-        if acc >= half {
-            return (i as f32 + 0.5) / (BINS - 1) as f32 / (0.6745 * std::f32::consts::SQRT_2);
-        }
-    }
-    0.0
-}
-
 /// Mean over a (2r+1)² window clipped at the image edge, from an integral image.
 pub(crate) fn box_mean(h: usize, w: usize, v: &[f32], r: usize) -> Vec<f32> {
     let mut ii = vec![0f64; (h + 1) * (w + 1)];

@@ -227,21 +227,23 @@ fn group(h: usize, w: usize, glyphs: Vec<Glyph>, s: &MarkSettings) -> Vec<Region
         if !near_edge && !(k >= s.interior_min_glyphs && aligned) {
             continue;
         }
-        let mut conf = 0.35f32;
-        if k >= 2 {
-            conf += 0.2;
-        }
+        let mean_step = gs.iter().map(|g| g.step).sum::<f32>() / k as f32;
+        // Evidence adds up: text-like layout, position where digitisers write, crisp rendering.
+        let mut conf = 0.3f32;
         if aligned {
-            conf += 0.1;
+            conf += 0.35;
         }
         if even_strokes {
-            conf += 0.1;
+            conf += 0.05;
         }
         if near_edge {
-            conf += 0.15;
+            conf += 0.1;
         }
         if near_corner {
-            conf += 0.1;
+            conf += 0.05;
+        }
+        if mean_step >= s.crisp_edge_step {
+            conf += 0.15;
         }
         let conf = conf.min(1.0);
         if conf < s.min_confidence {
@@ -264,7 +266,6 @@ fn group(h: usize, w: usize, glyphs: Vec<Glyph>, s: &MarkSettings) -> Vec<Region
             _ => "interior",
         };
         let height = gs.iter().map(|g| g.height()).max().unwrap_or(0);
-        let mean_step = gs.iter().map(|g| g.step).sum::<f32>() / k as f32;
         let mean_stroke = strokes.iter().sum::<f32>() / k as f32;
         let reason = format!(
             "{k} {shade} sharp-edged glyph{plural}{line} near the {place}, {height} px high, stroke {mean_stroke:.1} px, edge step {mean_step:.2} of the value range",

@@ -27,11 +27,11 @@ pub struct BorderSettings {
     pub max_depth_fraction: f32,
     /// Smallest tolerance on band values. Default 0.02 (about 5 grey levels of 255).
     pub flat_tolerance: f32,
-    /// The tolerance grows to this many times the estimated pixel noise (robust estimate from
-    /// neighbour differences), so noisy film still counts as flat. Default 3.
+    /// The tolerance grows to this many times the noise of the outermost line (1.4826·MAD), so
+    /// a noisy exposed margin still counts as flat. Default 3.
     pub noise_factor: f32,
-    /// Smallest step between the band value and the content just inside the edge. Default 0.08;
-    /// the step used is at least twice the tolerance.
+    /// Smallest step between the band value and the content just inside the edge. Default 0.05
+    /// (about 13 grey levels of 255); the step used is at least twice the tolerance.
     pub edge_contrast: f32,
     /// Share of positions along the side whose edge must agree with the fitted straight edge.
     /// Default 0.8.
@@ -55,7 +55,7 @@ impl Default for BorderSettings {
             max_depth_fraction: 0.25,
             flat_tolerance: 0.02,
             noise_factor: 3.0,
-            edge_contrast: 0.08,
+            edge_contrast: 0.05,
             min_coverage: 0.8,
             max_edge_residual: 1.5,
             max_tilt: 0.25,
@@ -82,6 +82,9 @@ pub struct MarkSettings {
     /// Mean step across a component's outline, as a fraction of the range: burned-in pixels end
     /// abruptly, soft highlights do not. Default 0.3.
     pub min_edge_step: f32,
+    /// A mark whose mean edge step reaches this is "crisp" (drawn pixels next to untouched
+    /// ones) and believed more. Default 0.6.
+    pub crisp_edge_step: f32,
     /// Smallest glyph size (longer side of its box, pixels). Default 3.
     pub min_glyph_px: usize,
     /// Largest glyph size, as a fraction of the image's shorter side. Default 0.15.
@@ -111,6 +114,7 @@ impl Default for MarkSettings {
             local_contrast: 0.25,
             window: 21,
             min_edge_step: 0.3,
+            crisp_edge_step: 0.6,
             min_glyph_px: 3,
             max_glyph_fraction: 0.15,
             max_stroke_px: 3.5,
