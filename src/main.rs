@@ -7,6 +7,10 @@ fn main() -> std::process::ExitCode {
     let cli = spurion::cli::Cli::parse();
     match spurion::cli::run(cli) {
         Ok(()) => std::process::ExitCode::SUCCESS,
+        Err(e) if spurion::model::is_cancelled(&e) => {
+            eprintln!("spurion: cancelled; no reading was written");
+            std::process::ExitCode::from(130)
+        }
         Err(e) => {
             // One paragraph: the chain of causes, outermost first, no backtrace.
             let mut msg = format!("spurion: {e}");

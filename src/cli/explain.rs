@@ -80,12 +80,25 @@ pub(crate) fn progress_bar(what: &str) -> ProgressBar {
     bar
 }
 
+/// A control that drives the progress bar and is cancelled by Ctrl-C.
 pub(crate) fn control_for(bar: &ProgressBar) -> Control {
+    static CURRENT: std::sync::OnceLock<std::sync::Mutex<Option<Control>>> = std::sync::OnceLock::new();
     let b = bar.clone();
-    Control::with_callback(move |done, total| {
+    let ctl = Control::with_callback(move |done, total| {
         b.set_length(total);
         b.set_position(done);
-    })
+    });
+    let slot = CURRENT.get_or_init(|| {
+        // Failing to install the handler only loses Ctrl-C cancelling; the default kill remains.
+        let _ = ctrlc::set_handler(|| {
+            if let Some(c) = CURRENT.get().and_then(|m| m.lock().ok()).and_then(|g| g.clone()) {
+                c.cancel();
+            }
+        });
+        std::sync::Mutex::new(None)
+    });
+    *slot.lock().unwrap() = Some(ctl.clone());
+    ctl
 }
 
 pub fn parse_method(a: &ExplainArgs) -> Result<Method> {
