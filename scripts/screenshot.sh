@@ -1,0 +1,42 @@
+#!/usr/bin/env bash
+# Runs the inspector on the bundled demo under Xvfb and saves a screenshot for the README:
+# assets/screenshots/inspector.png. Needs the Debian packages xvfb and imagemagick
+# (apt-get install -y xvfb imagemagick). Uses the dev build (dependencies are optimised there).
+#
+#   scripts/screenshot.sh [seconds-to-wait]
+#
+# SPURION_INSPECTOR_STRIP=1 makes the inspector fill the baseline strip once the first reading is
+# in, so the picture shows it; SPURION_FRAME_LOG names a file for the UI pass times.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+for tool in Xvfb import; do
+    command -v "$tool" >/dev/null || { echo "screenshot.sh needs $tool: apt-get install -y xvfb imagemagick" >&2; exit 1; }
+done
+wait_s="${1:-40}"
+out=assets/screenshots/inspector.png
+mkdir -p "$(dirname "$out")"
+cargo build --bin spurion
+
+display=":${SPURION_XVFB_DISPLAY:-87}"
+Xvfb "$display" -screen 0 1440x900x24 -nolisten tcp >/tmp/spurion-xvfb.log 2>&1 &
+xvfb_pid=$!
+app_pid=""
+cleanup() {
+    [ -n "$app_pid" ] && kill "$app_pid" 2>/dev/null || true
+    kill "$xvfb_pid" 2>/dev/null || true
+}
+trap cleanup EXIT
+sleep 1
+# A fresh config folder, so the picture does not show this machine's recent files.
+export XDG_CONFIG_HOME
+XDG_CONFIG_HOME="$(mktemp -d)"
+DISPLAY="$display" SPURION_INSPECTOR_STRIP="${SPURION_INSPECTOR_STRIP:-1}" target/debug/spurion >/tmp/spurion-gui.log 2>&1 &
+app_pid=$!
+sleep "$wait_s"
+if ! kill -0 "$app_pid" 2>/dev/null; then
+    echo "the inspector exited early; its log:" >&2
+    cat /tmp/spurion-gui.log >&2
+    exit 1
+fi
+DISPLAY="$display" import -window root "$out"
+echo "wrote $out"

@@ -1,0 +1,218 @@
+//! The inspector's state as plain data: what is open, what has been read, what is selected and
+//! how it is shown. Panels read it; only [`super::app::Inspector`] changes it.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use ndarray::Array2;
+
+use crate::feed::{FeedCard, Picture};
+use crate::methods::Reading;
+use crate::methods::agree::{Agreement, Sign, Spread};
+
+use crate::model::Model;
+use crate::regions::{Assessment, Region};
+
+use super::form::{Ask, BaselineChoice, BaselineSpec, Form};
+
+/// A loaded model with the card it is fed by.
+pub struct Session {
+    pub model: Arc<Model>,
+    pub card: Arc<FeedCard>,
+    /// One label per output position (from the card, else "class N").
+    pub labels: Vec<String>,
+    /// Where the card came from, for the header ("beside the model" or "inferred").
+    pub card_note: String,
+}
+
+/// An image after the worker opened it: pixels, the model's scores, the regions found in it.
+pub struct Prepared {
+    pub picture: Arc<Picture>,
+    /// Output 0 for this image, one value per class.
+    pub scores: Vec<f32>,
+    pub regions: Vec<Region>,
+    /// Each region's outline as pixel-edge segments (for drawing at any zoom).
+    pub region_edges: Vec<Vec<[[f32; 2]; 2]>>,
+    /// The picture ready to upload as a texture.
+    pub base_image: egui::ColorImage,
+}
+
+/// One entry of the image list.
+pub struct ImageEntry {
+    pub path: PathBuf,
+    pub state: ImageState,
+}
+
+pub enum ImageState {
+    NotOpened,
+    Opening,
+    Ready(Arc<Prepared>),
+    Failed(String),
+}
+
+/// A finished reading ready to draw.
+pub struct Shown {
+    pub reading: Arc<Reading>,
+    /// The map on the image grid (channels summed).
+    pub map: Array2<f32>,
+    /// The signed map's values sorted, for the hover percentile.
+    pub spread: Spread,
+    /// Region figures and the flag (the regions module's rule, on the supporting part).
+    pub assessment: Assessment,
+}
+
+/// A reading's identity: which image, which request. Equal keys give the same reading.
+#[derive(Clone, Debug, PartialEq, Eq, Hash)]
+pub struct Key {
+    pub image: PathBuf,
+    pub ask: Ask,
+}
+
+pub type JobId = u64;
+
+pub enum Slot {
+    Pending(JobId),
+    Done(Arc<Shown>),
+    Failed(String),
+}
+
+/// Readings by key; switching back to a key already read shows it at once.
+#[derive(Default)]
+pub struct ReadingCache {
+    pub slots: HashMap<Key, Slot>,
+}
+
+impl ReadingCache {
+    pub fn done(&self, key: &Key) -> Option<&Arc<Shown>> {
+        match self.slots.get(key) {
+            Some(Slot::Done(s)) => Some(s),
+            _ => None,
+        }
+    }
+    pub fn len_done(&self) -> usize {
+        self.slots.values().filter(|s| matches!(s, Slot::Done(_))).count()
+    }
+}
+
+/// How the reading is drawn over the image.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum Overlay {
+    Tint,
+    Contour,
+    Reveal,
+    /// The image alone (to look at what the map covers).
+    Off,
+}
+
+impl Overlay {
+    pub const ALL: [Overlay; 4] = [Overlay::Tint, Overlay::Contour, Overlay::Reveal, Overlay::Off];
+    pub fn name(self) -> &'static str {
+        match self {
+            Overlay::Tint => "tint",
+            Overlay::Contour => "contour",
+            Overlay::Reveal => "reveal",
+            Overlay::Off => "image only",
+        }
+    }
+}
+
+/// The top share the contour and reveal overlays and the overlap figure use.
+pub const TOP_SHARES: [f64; 3] = [0.05, 0.10, 0.20];
+
+/// Slide view settings.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ViewSettings {
+    pub overlay: Overlay,
+    pub opacity: f32,
+    pub sign: Sign,
+    pub top_share: f64,
+    pub show_regions: bool,
+    /// Image pixels per screen point; `None` fits the image to the panel.
+    pub zoom: Option<f32>,
+    /// Image-pixel position shown at the panel centre (when zoomed).
+    pub centre: [f32; 2],
+}
+
+impl Default for ViewSettings {
+    fn default() -> Self {
+        ViewSettings {
+            overlay: Overlay::Tint,
+            opacity: 0.7,
+            sign: Sign::Supporting,
+            top_share: 0.10,
+            show_regions: true,
+            zoom: None,
+            centre: [0.0, 0.0],
+        }
+    }
+}
+
+/// The baseline strip: which readings it shows and the agreement over them.
+#[derive(Default)]
+pub struct StripState {
+    /// One colour scale for all maps (else each map its own).
+    pub per_map_scale: bool,
+    /// Set when the user asked for the strip of the current image and settings.
+    pub wanted: Option<StripPlan>,
+    /// Agreement by the keys of the maps it compares.
+    pub agreement: HashMap<AgreementKey, AgreementSlot>,
+}
+
+/// The baselines one strip shows, with the reason for each left out.
+#[derive(Clone, Debug, PartialEq)]
+pub struct StripPlan {
+    pub image: PathBuf,
+    pub tiles: Vec<(BaselineChoice, Result<Key, String>)>,
+}
+
+impl StripPlan {
+    pub fn new(image: &Path, form: &Form, image_dir: Option<&Path>) -> StripPlan {
+        let tiles = form
+            .strip_specs(image_dir)
+            .into_iter()
+            .map(|(c, spec)| {
+                let key = spec.map(|s: BaselineSpec| Key { image: image.to_path_buf(), ask: form.ask_with(s) });
+                (c, key)
+            })
+            .collect();
+        StripPlan { image: image.to_path_buf(), tiles }
+    }
+
+    pub fn keys(&self) -> Vec<Key> {
+        self.tiles.iter().filter_map(|(_, k)| k.as_ref().ok().cloned()).collect()
+    }
+}
+
+#[derive(Clone, Debug, PartialEq, Eq, Hash)]
+pub struct AgreementKey {
+    pub keys: Vec<Key>,
+    /// The sign's name (the render module's `Sign` does not hash).
+    pub sign: &'static str,
+    /// Top share in per mille, so the key hashes.
+    pub share_permille: u32,
+}
+
+pub enum AgreementSlot {
+    Pending,
+    Done(Arc<Agreement>),
+}
+
+/// One message in the status line, kept with its kind so it can be coloured.
+#[derive(Clone, Debug)]
+pub struct Note {
+    pub text: String,
+    pub kind: NoteKind,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum NoteKind {
+    Info,
+    Warning,
+    Error,
+}
+
+/// Where exports go when no save dialog is available (editable in the export panel).
+pub fn default_export_dir() -> PathBuf {
+    std::env::current_dir().unwrap_or_else(|_| PathBuf::from(".")).join("spurion-export")
+}

@@ -1,0 +1,155 @@
+//! Worker threads: everything slow (loading a model, opening an image, a reading, the agreement
+//! figures, file dialogs, writing exports) runs here and reports back over one channel.
+//!
+//! Each job gets a thread of its own; the engine parallelises inside a job. The frame polls the
+//! channel with `try_recv` and never blocks; each worker asks for a repaint when it sends, and the
+//! job's [`Control`] asks for one whenever progress moves, so the progress bar stays live without
+//! the UI spinning.
+
+use std::path::PathBuf;
+use std::sync::Arc;
+use std::sync::mpsc::{Receiver, Sender, channel};
+use std::time::{Duration, Instant};
+
+use crate::control::Control;
+use crate::methods::agree::Agreement;
+
+use super::state::{AgreementKey, JobId, Key, Prepared, Session, Shown};
+
+/// What a finished job sends back.
+pub enum Done {
+    Model { path: PathBuf, result: Result<Session, String> },
+    Image { path: PathBuf, result: Result<Prepared, String> },
+    Reading { key: Key, result: Result<Shown, String>, cancelled: bool },
+    Agreement { key: AgreementKey, result: Agreement },
+    Picked { purpose: Pick, paths: Option<Vec<PathBuf>>, took: Duration },
+    Exported { result: Result<Vec<PathBuf>, String> },
+}
+
+/// Why a file dialog was opened (decides what is done with its answer).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Pick {
+    Model,
+    Images,
+    Folder,
+    CustomBaseline,
+    MeanFolder,
+    ExportFolder,
+}
+
+impl Pick {
+    pub fn title(self) -> &'static str {
+        match self {
+            Pick::Model => "Open an ONNX model",
+            Pick::Images => "Open images",
+            Pick::Folder => "Open a folder of images",
+            Pick::CustomBaseline => "Choose the custom baseline image",
+            Pick::MeanFolder => "Choose the folder for the dataset mean",
+            Pick::ExportFolder => "Choose where exports go",
+        }
+    }
+}
+
+/// Lets a job send results before it ends (the strip sends each map as it is read).
+pub struct Outbox {
+    id: JobId,
+    tx: Sender<(JobId, Done, bool)>,
+    ctx: egui::Context,
+}
+
+impl Outbox {
+    pub fn send(&self, done: Done) {
+        let _ = self.tx.send((self.id, done, false));
+        self.ctx.request_repaint();
+    }
+}
+
+/// A job still running, for the progress list.
+pub struct Running {
+    pub id: JobId,
+    pub label: String,
+    pub ctl: Control,
+    pub started: Instant,
+    /// Readings are cancellable; dialogs and exports are not worth it.
+    pub cancellable: bool,
+}
+
+/// The job list and the channel results come back on.
+pub struct Workers {
+    tx: Sender<(JobId, Done, bool)>,
+    rx: Receiver<(JobId, Done, bool)>,
+    next: JobId,
+    pub running: Vec<Running>,
+    repaint: egui::Context,
+}
+
+impl Workers {
+    pub fn new(repaint: egui::Context) -> Workers {
+        let (tx, rx) = channel();
+        Workers { tx, rx, next: 1, running: Vec::new(), repaint }
+    }
+
+    /// Starts `job` on its own thread; it gets a fresh [`Control`] wired to repaint the UI.
+    pub fn spawn(
+        &mut self,
+        label: impl Into<String>,
+        cancellable: bool,
+        job: impl FnOnce(&Control, &Outbox) -> Done + Send + 'static,
+    ) -> (JobId, Control) {
+        let id = self.next;
+        self.next += 1;
+        let ctx = self.repaint.clone();
+        let ctl = Control::with_callback(move |_, _| ctx.request_repaint_after(Duration::from_millis(30)));
+        let tx = self.tx.clone();
+        let ctx = self.repaint.clone();
+        let c = ctl.clone();
+        let label = label.into();
+        let outbox = Outbox { id, tx: self.tx.clone(), ctx: self.repaint.clone() };
+        std::thread::Builder::new()
+            .name(format!("spurion-job-{id}"))
+            .spawn(move || {
+                // A panic in the engine must not take the window down: report it as a failure.
+                let done = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| job(&c, &outbox)));
+                let done = done.unwrap_or_else(|p| {
+                    let msg = p
+                        .downcast_ref::<String>()
+                        .cloned()
+                        .or_else(|| p.downcast_ref::<&str>().map(|s| s.to_string()))
+                        .unwrap_or_else(|| "unknown".into());
+                    Done::Exported { result: Err(format!("internal error in a worker (please report): {msg}")) }
+                });
+                let _ = tx.send((id, done, true));
+                ctx.request_repaint();
+            })
+            .expect("the system refused to start a thread");
+        self.running.push(Running { id, label, ctl: ctl.clone(), started: Instant::now(), cancellable });
+        (id, ctl)
+    }
+
+    pub fn set_repaint(&mut self, ctx: &egui::Context) {
+        self.repaint = ctx.clone();
+    }
+
+    /// Everything finished since the last call (never blocks).
+    pub fn finished(&mut self) -> Vec<(JobId, Done)> {
+        let mut out = Vec::new();
+        while let Ok((id, done, last)) = self.rx.try_recv() {
+            if last {
+                self.running.retain(|r| r.id != id);
+            }
+            out.push((id, done));
+        }
+        out
+    }
+
+    pub fn cancel(&self, id: JobId) {
+        if let Some(r) = self.running.iter().find(|r| r.id == id) {
+            r.ctl.cancel();
+        }
+    }
+
+    pub fn is_running(&self, id: JobId) -> bool {
+        self.running.iter().any(|r| r.id == id)
+    }
+
+}
