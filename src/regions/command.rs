@@ -1,7 +1,7 @@
 //! `spurion regions --image I [--out DIR]`: find regions in one image without any model and
 //! write one mask PNG per region plus `regions.json`.
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use anyhow::{Context, Result};
 use ndarray::Array2;
@@ -40,18 +40,10 @@ pub struct RegionsFile {
 const CAUTION: &str = "Regions are found by simple image processing and are hints for a person \
 to check, not verdicts; spurion is a research and data-quality tool, not a diagnostic device.";
 
-/// Loads an image file as luminance (H×W, 0..1), 8- or 16-bit, grey or colour.
+/// Loads an image file as luminance (H×W, 0..1), 8- or 16-bit, grey or colour, the way the
+/// rest of spurion reads pictures.
 pub fn load_luminance(path: &Path) -> Result<Array2<f32>> {
-    let img = image::open(path).with_context(|| {
-        format!(
-            "cannot read image {} (spurion reads PNG, JPEG, TIFF and BMP; check the path and that the file is a picture)",
-            path.display()
-        )
-    })?;
-    let luma = img.to_luma32f();
-    let (w, h) = luma.dimensions();
-    let px: Vec<f32> = luma.into_raw().into_iter().map(|v| v.clamp(0.0, 1.0)).collect();
-    Ok(Array2::from_shape_vec((h as usize, w as usize), px)?)
+    Ok(crate::feed::Picture::open(path)?.luminance())
 }
 
 /// Builds the `regions.json` content (mask names filled in by the caller that writes them).
@@ -86,20 +78,43 @@ fn write_mask(path: &Path, mask: &Array2<bool>) -> Result<()> {
     buf.save(path).with_context(|| format!("cannot write mask {}", path.display()))
 }
 
-/// Finds regions in `image`, writes `DIR/region-NN-KIND.png` masks and `DIR/regions.json`, and
-/// prints one line per region. Without `out` the folder is `<image stem>-regions` in the current
-/// directory. Returns what was written.
-pub fn run_regions_command(image: &Path, out: Option<&Path>, settings: &FinderSettings) -> Result<RegionsFile> {
+/// `spurion regions`: finds regions in `image`. With `out`, writes `DIR/region-NN-KIND.png`
+/// masks (white = region) and `DIR/regions.json` and prints one line per region; without it,
+/// prints the JSON to standard output and writes nothing.
+pub fn run_regions_command(image: &Path, out: Option<&Path>, settings: &FinderSettings) -> Result<()> {
+    match out {
+        Some(dir) => {
+            let file = write_regions(image, dir, settings)?;
+            if file.regions.is_empty() {
+                println!("{}: no regions found", image.display());
+            }
+            for f in &file.regions {
+                println!(
+                    "{}  box {:?}  area {:.2}%  confidence {:.2}  {}",
+                    f.label,
+                    f.bbox,
+                    100.0 * f.area_fraction,
+                    f.confidence,
+                    f.reason
+                );
+            }
+            println!("wrote {}", dir.join("regions.json").display());
+        }
+        None => {
+            let luma = load_luminance(image)?;
+            let regions = find_regions(&luma, settings);
+            println!("{}", serde_json::to_string_pretty(&regions_file(image, &luma, &regions, settings))?);
+        }
+    }
+    Ok(())
+}
+
+/// Finds regions in `image` and writes the mask PNGs and `regions.json` into `dir` (created if
+/// missing). Returns what `regions.json` holds.
+pub fn write_regions(image: &Path, dir: &Path, settings: &FinderSettings) -> Result<RegionsFile> {
     let luma = load_luminance(image)?;
     let regions = find_regions(&luma, settings);
-    let dir: PathBuf = match out {
-        Some(d) => d.to_path_buf(),
-        None => {
-            let stem = image.file_stem().map(|s| s.to_string_lossy().to_string()).unwrap_or_else(|| "image".into());
-            PathBuf::from(format!("{stem}-regions"))
-        }
-    };
-    std::fs::create_dir_all(&dir)
+    std::fs::create_dir_all(dir)
         .with_context(|| format!("cannot create output folder {} (check permissions or choose another --out)", dir.display()))?;
     let mut file = regions_file(image, &luma, &regions, settings);
     for (i, (r, f)) in regions.iter().zip(file.regions.iter_mut()).enumerate() {
@@ -110,19 +125,5 @@ pub fn run_regions_command(image: &Path, out: Option<&Path>, settings: &FinderSe
     let json = dir.join("regions.json");
     std::fs::write(&json, serde_json::to_string_pretty(&file)? + "\n")
         .with_context(|| format!("cannot write {}", json.display()))?;
-    if regions.is_empty() {
-        println!("{}: no regions found", image.display());
-    }
-    for (r, f) in regions.iter().zip(&file.regions) {
-        println!(
-            "{}  box {:?}  area {:.2}%  confidence {:.2}  {}",
-            r.label(),
-            r.bbox,
-            100.0 * f.area_fraction,
-            r.confidence,
-            r.reason
-        );
-    }
-    println!("wrote {}", json.display());
     Ok(file)
 }

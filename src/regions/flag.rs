@@ -80,8 +80,9 @@ pub struct Assessment {
     /// Figures of all flag-eligible regions together, when there are any and `check_union` is on.
     pub all_regions: Option<Figures>,
     pub suspect: bool,
-    /// Why the reading is or is not suspect, in one sentence.
-    pub suspect_reason: String,
+    /// Why the reading is or is not suspect, in one sentence (`suspect_reason` in JSON).
+    #[serde(rename = "suspect_reason")]
+    pub reason: String,
 }
 
 fn passes(f: &Figures, s: &FlagSettings) -> bool {
@@ -130,7 +131,7 @@ pub fn assess_regions(map: &Array2<f32>, regions: &[Region], s: &FlagSettings) -
         .iter()
         .filter(|r| r.suspect)
         .max_by(|a, b| a.mark_share.unwrap_or(0.0).total_cmp(&b.mark_share.unwrap_or(0.0)));
-    let (suspect, suspect_reason) = if let Some(r) = best {
+    let (suspect, reason) = if let Some(r) = best {
         (
             true,
             format!(
@@ -180,7 +181,7 @@ pub fn assess_regions(map: &Array2<f32>, regions: &[Region], s: &FlagSettings) -
         regions: reports,
         all_regions,
         suspect,
-        suspect_reason,
+        reason,
     })
 }
 

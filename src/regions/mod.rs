@@ -23,7 +23,7 @@ use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
 pub use border::find_border_bands;
-pub use command::{RegionsFile, load_luminance, regions_file, run_regions_command};
+pub use command::{FoundRegion, RegionsFile, load_luminance, regions_file, run_regions_command, write_regions};
 pub use drawn::{DrawnFile, DrawnShape, Shape, load_drawn, save_drawn};
 pub use figures::{Figures, Part};
 pub use flag::{Assessment, FlagSettings, RegionReport, assess, assess_regions};
