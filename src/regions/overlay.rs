@@ -80,15 +80,61 @@ pub fn find_static_overlays(images: &[Array2<f32>], s: &OverlaySettings) -> Resu
             cover[l].push(p);
         }
     }
-    let mut out = Vec::new();
+    // Boxes of the joined parts; small parts side by side (the letters of a tag) form one region,
+    // as burned-in marks do; large parts (a frame) stay on their own.
+    let mut boxes = vec![[usize::MAX, usize::MAX, 0usize, 0usize]; count + 1];
     for l in 1..=count {
-        let members = &statics[l];
+        for &p in &statics[l] {
+            let (y, x) = (p / w, p % w);
+            let b = &mut boxes[l];
+            b[0] = b[0].min(x);
+            b[1] = b[1].min(y);
+            b[2] = b[2].max(x + 1);
+            b[3] = b[3].max(y + 1);
+        }
+    }
+    let size = |b: &[usize; 4]| (b[2] - b[0]).max(b[3] - b[1]) as f32;
+    let small_max = s.max_part_fraction * h.min(w) as f32;
+    let parts: Vec<usize> = (1..=count).filter(|&l| !statics[l].is_empty()).collect();
+    let mut parent: Vec<usize> = (0..=count).collect();
+    fn root(parent: &mut [usize], mut i: usize) -> usize {
+        while parent[i] != i {
+            parent[i] = parent[parent[i]];
+            i = parent[i];
+        }
+        i
+    }
+    for (k, &i) in parts.iter().enumerate() {
+        for &j in &parts[k + 1..] {
+            let (a, b) = (&boxes[i], &boxes[j]);
+            if size(a) > small_max || size(b) > small_max {
+                continue;
+            }
+            let gap_x = a[0].max(b[0]).saturating_sub(a[2].min(b[2])) as f32;
+            let gap_y = a[1].max(b[1]).saturating_sub(a[3].min(b[3])) as f32;
+            let reach = s.group_gap * size(a).max(size(b));
+            if gap_x <= reach && gap_y <= reach {
+                let (ra, rb) = (root(&mut parent, i), root(&mut parent, j));
+                parent[ra] = rb;
+            }
+        }
+    }
+    let mut groups: std::collections::BTreeMap<usize, Vec<usize>> = Default::default();
+    for &l in &parts {
+        let r = root(&mut parent, l);
+        groups.entry(r).or_default().push(l);
+    }
+    let mut out = Vec::new();
+    for ls in groups.values() {
+        let members: Vec<usize> = ls.iter().flat_map(|&l| statics[l].iter().copied()).collect();
         if members.len() < s.min_area {
             continue;
         }
         let mut mask = vec![false; h * w];
-        for &p in &cover[l] {
-            mask[p] = true;
+        for &l in ls {
+            for &p in &cover[l] {
+                mask[p] = true;
+            }
         }
         let share = members.iter().map(|&p| agree[p] as f32).sum::<f32>() / members.len() as f32 / n as f32;
         let reason = format!(

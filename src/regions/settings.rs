@@ -139,6 +139,12 @@ pub struct OverlaySettings {
     pub min_images: usize,
     /// Static pixels closer than this (pixels) join one region. Default 3.
     pub join_px: usize,
+    /// Small parts (longer box side at most `max_part_fraction` of the image's shorter side)
+    /// join one region when the gap between their boxes is at most this many part sizes, like
+    /// the glyphs of a burned-in mark. Default 1.2.
+    pub group_gap: f32,
+    /// See `group_gap`. Default 0.15.
+    pub max_part_fraction: f32,
     /// Regions smaller than this many pixels are dropped (isolated coincidences). Default 6.
     pub min_area: usize,
 }
@@ -150,6 +156,8 @@ impl Default for OverlaySettings {
             min_share: 0.5,
             min_images: 3,
             join_px: 3,
+            group_gap: 1.2,
+            max_part_fraction: 0.15,
             min_area: 6,
         }
     }
