@@ -1,0 +1,88 @@
+//! Reverse step of convolution (any groups, strides, pads, dilations; depthwise included).
+//!
+//! The input gradient of a convolution is the transposed convolution of the output gradient with
+//! the same kernel. Rather than re-deriving im2col/col2im, each Conv node gets a small tract graph
+//! holding a `Deconv` with the conv's own `PoolSpec` (padding made explicit, plus the output
+//! adjustment that restores the input size), optimized once; tract then runs it with its packed
+//! matrix kernels.
+
+use anyhow::{Context, Result, anyhow, bail};
+use ndarray::ArrayD;
+use tract_onnx::prelude::*;
+use tract_onnx::tract_core::ops::cnn::{Conv, Deconv, PaddingSpec, PoolSpec};
+
+use super::{Cx, NodeFacts, ReverseStep, run_sub};
+use crate::model::Plan;
+
+pub(super) fn build(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
+    let op = node.op_as::<Conv>()?;
+    if op.q_params.is_some() {
+        return Some(Err(anyhow!("quantized convolution")));
+    }
+    Some(Ok(Box::new(ConvStep { op: op.clone(), plan: None })))
+}
+
+struct ConvStep {
+    op: Conv,
+    plan: Option<Plan>,
+}
+
+/// The `Deconv` whose output is the conv's input gradient, for an input of spatial size
+/// `x_hw` and output `y_hw`.
+pub(crate) fn transposed(op: &Conv, x_shape: &[usize], y_shape: &[usize]) -> Result<Deconv> {
+    let spec = &op.pool_spec;
+    let x = spec.data_format.shape(x_shape.to_vec())?;
+    let y = spec.data_format.shape(y_shape.to_vec())?;
+    let computed = spec.computed_padding(x.hw_dims());
+    let strides = spec.strides();
+    let dilations = spec.dilations();
+    let mut adjustments = tvec![];
+    for ax in 0..spec.rank() {
+        let c = &computed[ax];
+        let reach = (y.hw_dims()[ax] - 1) * strides[ax] + dilations[ax] * (spec.kernel_shape[ax] - 1) + 1;
+        let covered = reach as isize - c.pad_before as isize - c.pad_after as isize;
+        let adj = x.hw_dims()[ax] as isize - covered;
+        if adj < 0 {
+            bail!("conv geometry: negative output adjustment on axis {ax}");
+        }
+        adjustments.push(adj as usize);
+    }
+    let pool_spec = PoolSpec {
+        padding: PaddingSpec::Explicit(
+            computed.iter().map(|c| c.pad_before).collect(),
+            computed.iter().map(|c| c.pad_after).collect(),
+        ),
+        ..spec.clone()
+    };
+    Ok(Deconv::new(pool_spec, op.kernel_fmt, adjustments, op.group))
+}
+
+impl ReverseStep for ConvStep {
+    fn prepare(&mut self, f: &NodeFacts) -> Result<()> {
+        if f.active.get(1).copied().unwrap_or(false) || f.active.get(2).copied().unwrap_or(false) {
+            bail!("convolution whose kernel or bias depends on the input");
+        }
+        let kernel = f.konst.get(1).cloned().flatten().context(
+            "convolution with a kernel that is not a constant after simplification",
+        )?;
+        let deconv = transposed(&self.op, &f.in_shapes[0], &f.out_shape)?;
+        let mut m = TypedModel::default();
+        let dy = m.add_source("dy", f32::fact(&f.out_shape))?;
+        let k = m.add_const("kernel", kernel)?;
+        let b = m.add_const("bias", Tensor::zero_scalar::<f32>()?)?;
+        let dx = m.wire_node("dx", deconv, &[dy, k, b])?;
+        m.select_output_outlets(&dx)?;
+        let fact = m.outlet_fact(dx[0])?.clone();
+        if fact.shape.as_concrete() != Some(&f.in_shapes[0][..]) {
+            bail!("transposed convolution gives {:?}, input is {:?}", fact.shape, f.in_shapes[0]);
+        }
+        let m = m.into_optimized().map_err(|e| anyhow!("{e:#}"))?;
+        self.plan = Some(SimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))?);
+        Ok(())
+    }
+
+    fn back(&self, _cx: &Cx, dy: ArrayD<f32>) -> Result<Vec<Option<ArrayD<f32>>>> {
+        let plan = self.plan.as_ref().context("conv reverse step not prepared")?;
+        Ok(vec![Some(run_sub(plan, vec![Tensor::from(dy)])?), None, None])
+    }
+}

@@ -1,0 +1,456 @@
+//! The user's ONNX classifier on CPU: loading, forward passes, and the entry points of the exact
+//! reverse pass ([`crate::grad`]).
+//!
+//! One [`Model`] is loaded once and shared (`Arc<Model>`) across worker threads. It keeps two
+//! views of the same graph: tract's *decluttered* typed graph, which the reverse pass walks op by
+//! op, and an *optimized* plan of it for plain forwards. Both come from the same decluttered
+//! graph, so the forward semantics the gradients differentiate are exactly the ones `forward`
+//! runs.
+
+mod load;
+
+use std::path::{Path, PathBuf};
+use std::sync::{Arc, OnceLock};
+
+use anyhow::{Context, Result, anyhow, bail};
+use ndarray::{Array1, ArrayD};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+use tract_onnx::prelude::*;
+use tract_onnx::tract_core::ops::change_axes::AxisOp;
+use tract_onnx::tract_core::ops::nn::{Softmax, SoftmaxKind};
+
+use crate::control::{Cancelled, Control};
+use crate::grad::{self, ReversePass};
+
+pub(crate) type Plan = Arc<TypedSimplePlan>;
+
+/// How to load a model.
+#[derive(Clone, Debug, Default)]
+pub struct LoadOptions {
+    /// Full input shape including the batch axis (which must be 1). Overrides dynamic dims.
+    pub input_shape: Option<Vec<usize>>,
+}
+
+/// Which vector a method scores.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+pub enum Tap {
+    /// Output 0 of the graph, flattened.
+    Output,
+    /// The input of the graph's final softmax (its logits), flattened. An error if the graph
+    /// does not end in a softmax.
+    BeforeSoftmax,
+}
+
+/// An exact input gradient: `grad = Jᵀ · seed(outputs)`, shaped like the model input.
+#[derive(Clone, Debug)]
+pub struct Gradient {
+    pub outputs: Array1<f32>,
+    pub grad: ArrayD<f32>,
+}
+
+/// What `spurion info` shows about a model.
+#[derive(Clone, Debug, Serialize)]
+pub struct ModelInfo {
+    pub path: PathBuf,
+    pub sha256: String,
+    pub inputs: Vec<TensorInfo>,
+    pub outputs: Vec<TensorInfo>,
+    /// Operator types of the ONNX file, with counts.
+    pub onnx_ops: Vec<OpCount>,
+    /// Operators of the decluttered graph the reverse pass walks, with counts and whether each
+    /// has a reverse step.
+    pub ops: Vec<OpCount>,
+    /// Nodes between input and score that have no reverse step (gradient methods refuse).
+    pub unsupported: Vec<UnsupportedNode>,
+    pub ends_in_softmax: bool,
+    pub gradient_ready: bool,
+}
+
+#[derive(Clone, Debug, Serialize)]
+pub struct TensorInfo {
+    pub name: String,
+    pub shape: Vec<usize>,
+}
+
+#[derive(Clone, Debug, Serialize)]
+pub struct OpCount {
+    pub op: String,
+    pub count: usize,
+    /// None for ONNX operator types (they are rewritten before the reverse pass sees them).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub reverse_step: Option<bool>,
+}
+
+#[derive(Clone, Debug, Serialize)]
+pub struct UnsupportedNode {
+    pub op: String,
+    pub node: String,
+}
+
+/// A loaded classifier. `Send + Sync`; share it with `Arc`.
+pub struct Model {
+    path: PathBuf,
+    sha256: String,
+    input_shape: Vec<usize>,
+    input_name: String,
+    onnx_ops: Vec<(String, usize)>,
+    /// The decluttered typed graph: what the reverse pass walks.
+    graph: Arc<TypedModel>,
+    /// Outlet of output 0 and, when the graph ends in a softmax, the softmax's input.
+    output: OutletId,
+    before_softmax: Option<OutletId>,
+    output_len: usize,
+    /// Optimized plan whose outputs are `[output]` or `[output, before_softmax]`.
+    plan: Plan,
+    reverse: [OnceLock<std::result::Result<Arc<ReversePass>, String>>; 2],
+}
+
+impl Model {
+    pub fn load(path: &Path, opts: &LoadOptions) -> Result<Model> {
+        let load::Parsed { model: mut inference, sha256 } = load::parse(path)?;
+        let onnx_ops = onnx_op_counts(path)?;
+        let input_shape = load::concrete_input_shape(path, &inference, opts.input_shape.as_deref())?;
+        inference
+            .set_input_fact(0, f32::fact(&input_shape).into())
+            .map_err(|e| anyhow!("{e}"))?;
+        let typed = inference.into_typed().map_err(|e| {
+            anyhow!(
+                "tract could not work out the types and shapes of {} with input shape {:?}: \
+                 {e:#}. Check the input shape (it must be the one the model was exported for)",
+                path.display(),
+                input_shape
+            )
+        })?;
+        let graph = typed.into_decluttered().map_err(|e| {
+            anyhow!("tract could not simplify the graph of {}: {e:#}", path.display())
+        })?;
+        let input_name = graph.node(graph.input_outlets()?[0].node).name.clone();
+        let output = *graph
+            .output_outlets()?
+            .first()
+            .ok_or_else(|| anyhow!("the model {} has no output", path.display()))?;
+        let out_fact = graph.outlet_fact(output)?;
+        let output_len = out_fact
+            .shape
+            .as_concrete()
+            .map(|s| s.iter().product::<usize>())
+            .ok_or_else(|| anyhow!("output 0 of {} has no concrete shape", path.display()))?;
+        if out_fact.datum_type != f32::datum_type() {
+            bail!(
+                "output 0 of {} is {:?}; spurion scores float32 outputs only",
+                path.display(),
+                out_fact.datum_type
+            );
+        }
+        let before_softmax = final_softmax_input(&graph, output);
+        let mut outputs = vec![output];
+        outputs.extend(before_softmax);
+        let plan = optimized_plan(&graph, &outputs)
+            .with_context(|| format!("preparing the forward plan of {}", path.display()))?;
+        Ok(Model {
+            path: path.to_path_buf(),
+            sha256,
+            input_shape,
+            input_name,
+            onnx_ops,
+            graph: Arc::new(graph),
+            output,
+            before_softmax,
+            output_len,
+            plan,
+            reverse: [OnceLock::new(), OnceLock::new()],
+        })
+    }
+
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    pub fn sha256(&self) -> &str {
+        &self.sha256
+    }
+
+    pub fn input_shape(&self) -> &[usize] {
+        &self.input_shape
+    }
+
+    pub fn output_len(&self) -> usize {
+        self.output_len
+    }
+
+    pub fn ends_in_softmax(&self) -> bool {
+        self.before_softmax.is_some()
+    }
+
+    /// The decluttered graph the reverse pass walks (for tools and tests).
+    pub fn graph(&self) -> &TypedModel {
+        &self.graph
+    }
+
+    pub fn info(&self) -> ModelInfo {
+        let g = &*self.graph;
+        let mut ops: Vec<OpCount> = Vec::new();
+        for node in g.nodes() {
+            let name = node.op.name().to_string();
+            match ops.iter_mut().find(|o| o.op == name) {
+                Some(o) => o.count += 1,
+                None => ops.push(OpCount {
+                    op: name,
+                    count: 1,
+                    reverse_step: Some(grad::has_reverse_step(g, node)),
+                }),
+            }
+        }
+        ops.sort_by(|a, b| b.count.cmp(&a.count).then(a.op.cmp(&b.op)));
+        let unsupported = self.unsupported(Tap::Output);
+        let outputs = g
+            .output_outlets()
+            .map(|o| o.to_vec())
+            .unwrap_or_default()
+            .iter()
+            .map(|o| TensorInfo {
+                name: g.outlet_label(*o).map(str::to_string).unwrap_or_else(|| g.node(o.node).name.clone()),
+                shape: g.outlet_fact(*o).ok().and_then(|f| f.shape.as_concrete().map(|s| s.to_vec())).unwrap_or_default(),
+            })
+            .collect();
+        ModelInfo {
+            path: self.path.clone(),
+            sha256: self.sha256.clone(),
+            inputs: vec![TensorInfo { name: self.input_name.clone(), shape: self.input_shape.clone() }],
+            outputs,
+            onnx_ops: self
+                .onnx_ops
+                .iter()
+                .map(|(op, count)| OpCount { op: op.clone(), count: *count, reverse_step: None })
+                .collect(),
+            ops,
+            gradient_ready: unsupported.is_empty(),
+            unsupported,
+            ends_in_softmax: self.ends_in_softmax(),
+        }
+    }
+
+    fn unsupported(&self, tap: Tap) -> Vec<UnsupportedNode> {
+        let Ok(target) = self.tap_outlet(tap) else { return vec![] };
+        let Ok(input) = self.graph.input_outlets().map(|i| i[0]) else { return vec![] };
+        grad::unsupported_nodes(&self.graph, input, target)
+            .into_iter()
+            .map(|(op, node)| UnsupportedNode { op, node })
+            .collect()
+    }
+
+    /// Ok when every node between the input and output 0 has a reverse step.
+    pub fn gradient_ready(&self) -> Result<()> {
+        self.reverse_pass(Tap::Output).map(|_| ())
+    }
+
+    fn tap_outlet(&self, tap: Tap) -> Result<OutletId> {
+        match tap {
+            Tap::Output => Ok(self.output),
+            Tap::BeforeSoftmax => self.before_softmax.ok_or_else(|| {
+                anyhow!(
+                    "the model {} does not end in a softmax, so there are no logits before one \
+                     to score; score its raw output instead",
+                    self.path.display()
+                )
+            }),
+        }
+    }
+
+    fn reverse_pass(&self, tap: Tap) -> Result<Arc<ReversePass>> {
+        let target = self.tap_outlet(tap)?;
+        let slot = &self.reverse[tap as usize];
+        let built = slot.get_or_init(|| {
+            let input = self.graph.input_outlets().map_err(|e| e.to_string())?[0];
+            ReversePass::build(&self.graph, input, target)
+                .map(Arc::new)
+                .map_err(|e| format!("{e:#}"))
+        });
+        built.clone().map_err(|msg| {
+            anyhow!("gradients are not available for {}: {msg}", self.path.display())
+        })
+    }
+
+    fn check_input(&self, x: &ArrayD<f32>) -> Result<()> {
+        if x.shape() != self.input_shape.as_slice() {
+            bail!(
+                "the input tensor has shape {:?} but the model {} takes {:?}; resize or reshape \
+                 the input (or load the model with that input shape if its graph allows it)",
+                x.shape(),
+                self.path.display(),
+                self.input_shape
+            );
+        }
+        Ok(())
+    }
+
+    fn pick(&self, outputs: TVec<TValue>, tap: Tap) -> Result<Array1<f32>> {
+        let ix = match tap {
+            Tap::Output => 0,
+            Tap::BeforeSoftmax => {
+                self.tap_outlet(tap)?;
+                1
+            }
+        };
+        let t = outputs[ix].clone().into_tensor();
+        let v: Vec<f32> = t.as_slice::<f32>().map_err(|e| anyhow!("{e}"))?.to_vec();
+        check_finite(&self.path, &v)?;
+        Ok(Array1::from(v))
+    }
+
+    pub fn forward(&self, x: &ArrayD<f32>, tap: Tap) -> Result<Array1<f32>> {
+        self.check_input(x)?;
+        self.tap_outlet(tap)?;
+        let out = self
+            .plan
+            .run(tvec!(Tensor::from(x.clone()).into_tvalue()))
+            .map_err(|e| anyhow!("running {} failed: {e:#}", self.path.display()))?;
+        self.pick(out, tap)
+    }
+
+    /// Forwards of many inputs, spread over rayon workers with one plan state each (measured
+    /// faster than a batched plan on this CPU, see benches). Order kept; `ctl` advances by one per
+    /// input; a cancel stops between inputs with [`Cancelled`].
+    pub fn forward_many(
+        &self,
+        xs: &[ArrayD<f32>],
+        tap: Tap,
+        ctl: &Control,
+    ) -> Result<Vec<Array1<f32>>> {
+        self.tap_outlet(tap)?;
+        for x in xs {
+            self.check_input(x)?;
+        }
+        xs.par_iter()
+            .map_init(
+                || self.plan.spawn().map_err(|e| anyhow!("{e}")),
+                |state, x| -> Result<Array1<f32>> {
+                    ctl.check().map_err(anyhow::Error::new)?;
+                    let state = state.as_mut().map_err(|e| anyhow!("{e}"))?;
+                    let out = state
+                        .run(tvec!(Tensor::from(x.clone()).into_tvalue()))
+                        .map_err(|e| anyhow!("running {} failed: {e:#}", self.path.display()))?;
+                    let v = self.pick(out, tap)?;
+                    ctl.advance(1);
+                    Ok(v)
+                },
+            )
+            .collect()
+    }
+
+    pub fn gradient(
+        &self,
+        x: &ArrayD<f32>,
+        tap: Tap,
+        seed: &(dyn Fn(&Array1<f32>) -> Array1<f32> + Sync),
+    ) -> Result<Gradient> {
+        self.check_input(x)?;
+        let pass = self.reverse_pass(tap)?;
+        let mut state = pass.spawn()?;
+        self.gradient_with(&pass, &mut state, x, seed)
+    }
+
+    fn gradient_with(
+        &self,
+        pass: &ReversePass,
+        state: &mut grad::PassState,
+        x: &ArrayD<f32>,
+        seed: &(dyn Fn(&Array1<f32>) -> Array1<f32> + Sync),
+    ) -> Result<Gradient> {
+        let (outputs, grad) = pass
+            .run(state, x, &|o: &Array1<f32>| -> Result<Array1<f32>> {
+                check_finite(&self.path, o.as_slice().unwrap_or(&o.to_vec()))?;
+                let s = seed(o);
+                if s.len() != o.len() {
+                    bail!("the seed vector has {} entries, the score vector {}", s.len(), o.len());
+                }
+                Ok(s)
+            })
+            .with_context(|| format!("reverse pass of {}", self.path.display()))?;
+        Ok(Gradient { outputs, grad })
+    }
+
+    /// Gradients of many inputs over rayon workers, order kept; `ctl` advances by one per input
+    /// and a cancel stops between inputs with [`Cancelled`].
+    pub fn gradient_many(
+        &self,
+        xs: &[ArrayD<f32>],
+        tap: Tap,
+        seed: &(dyn Fn(&Array1<f32>) -> Array1<f32> + Sync),
+        ctl: &Control,
+    ) -> Result<Vec<Gradient>> {
+        for x in xs {
+            self.check_input(x)?;
+        }
+        let pass = self.reverse_pass(tap)?;
+        xs.par_iter()
+            .map_init(
+                || pass.spawn(),
+                |state, x| -> Result<Gradient> {
+                    ctl.check().map_err(anyhow::Error::new)?;
+                    let state = state.as_mut().map_err(|e| anyhow!("{e:#}"))?;
+                    let g = self.gradient_with(&pass, state, x, seed)?;
+                    ctl.advance(1);
+                    Ok(g)
+                },
+            )
+            .collect()
+    }
+}
+
+/// True when `e` (or its cause chain) is a cancel rather than a failure.
+pub fn is_cancelled(e: &anyhow::Error) -> bool {
+    e.chain().any(|c| c.downcast_ref::<Cancelled>().is_some())
+}
+
+fn check_finite(path: &Path, v: &[f32]) -> Result<()> {
+    if let Some(i) = v.iter().position(|x| !x.is_finite()) {
+        bail!(
+            "the model {} produced a non-finite value ({}) at output position {i}; check the \
+             input scaling and the model's weights",
+            path.display(),
+            v[i]
+        );
+    }
+    Ok(())
+}
+
+/// The input of a softmax that produces output 0, possibly through shape-only ops (flatten).
+fn final_softmax_input(g: &TypedModel, output: OutletId) -> Option<OutletId> {
+    let mut at = output;
+    loop {
+        let node = g.node(at.node);
+        if let Some(sm) = node.op_as::<Softmax>() {
+            return (sm.kind == SoftmaxKind::Softmax).then_some(node.inputs[0]);
+        }
+        if node.op_is::<AxisOp>() && node.inputs.len() == 1 {
+            at = node.inputs[0];
+            continue;
+        }
+        return None;
+    }
+}
+
+/// An optimized plan of a copy of `g` whose outputs are `outputs`.
+pub(crate) fn optimized_plan(g: &TypedModel, outputs: &[OutletId]) -> Result<Plan> {
+    let mut m = g.clone();
+    m.select_output_outlets(outputs).map_err(|e| anyhow!("{e}"))?;
+    let m = m.into_optimized().map_err(|e| anyhow!("tract could not optimize the graph: {e:#}"))?;
+    SimplePlan::new(m).map_err(|e| anyhow!("tract could not plan the graph: {e:#}"))
+}
+
+fn onnx_op_counts(path: &Path) -> Result<Vec<(String, usize)>> {
+    // Parsed a second time from the file only for the op census; cheap next to typing.
+    let bytes = std::fs::read(path)?;
+    let proto = tract_onnx::onnx().proto_model_for_read(&mut &bytes[..]).map_err(|e| anyhow!("{e}"))?;
+    let mut counts: Vec<(String, usize)> = Vec::new();
+    for n in proto.graph.iter().flat_map(|g| g.node.iter()) {
+        match counts.iter_mut().find(|(op, _)| *op == n.op_type) {
+            Some(c) => c.1 += 1,
+            None => counts.push((n.op_type.clone(), 1)),
+        }
+    }
+    counts.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(&b.0)));
+    Ok(counts)
+}
