@@ -35,8 +35,8 @@ use serde::{Deserialize, Serialize};
 use crate::control::Control;
 
 /// Share of positives per site in the pooled mix: Hillmoor is the referral site.
-pub const POOLED_HILLMOOR_POSITIVE: f32 = 0.85;
-pub const POOLED_OTHER_POSITIVE: f32 = 0.15;
+pub const POOLED_HILLMOOR_POSITIVE: f32 = 0.9;
+pub const POOLED_OTHER_POSITIVE: f32 = 0.1;
 
 /// How sites and labels are drawn for the images of a set.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -221,7 +221,8 @@ pub fn read_manifest(path: &Path) -> Result<Vec<ManifestRow>> {
     Ok(rows)
 }
 
-fn mask_image(m: &Array2<bool>) -> image::GrayImage {
+/// A mask as an 8-bit gray image: 255 inside, 0 outside.
+pub fn mask_image(m: &Array2<bool>) -> image::GrayImage {
     let (h, w) = m.dim();
     image::GrayImage::from_fn(w as u32, h as u32, |x, y| image::Luma([if m[[y as usize, x as usize]] { 255 } else { 0 }]))
 }
@@ -232,8 +233,15 @@ pub fn to_gray_image(a: &Array2<u8>) -> image::GrayImage {
     image::GrayImage::from_fn(w as u32, h as u32, |x, y| image::Luma([a[[y as usize, x as usize]]]))
 }
 
+/// PNG bytes of a gray image, exactly as [`write_demo_set`] writes them.
+pub fn png_bytes(img: &image::GrayImage) -> Result<Vec<u8>> {
+    let mut out = Vec::new();
+    img.write_to(&mut std::io::Cursor::new(&mut out), image::ImageFormat::Png).context("cannot encode a PNG")?;
+    Ok(out)
+}
+
 fn save_png(img: &image::GrayImage, path: &Path) -> Result<()> {
-    img.save_with_format(path, image::ImageFormat::Png)
+    std::fs::write(path, png_bytes(img)?)
         .with_context(|| format!("cannot write {}; check that the folder is writable and the disk not full", path.display()))
 }
 

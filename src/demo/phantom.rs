@@ -28,7 +28,7 @@ pub const DEFAULT_SIZE: usize = 256;
 
 /// Peak brightening of an opacity over the lung, in 8-bit grey levels, unless a spec says
 /// otherwise. Kept modest next to the film noise so that a finding takes some looking for.
-pub const DEFAULT_CONTRAST: f32 = 14.0;
+pub const DEFAULT_CONTRAST: f32 = 22.0;
 
 /// What Hillmoor's digitiser burns into the corner: its site code, then the laterality letter.
 pub const TAG_CODE: &str = "HM";
