@@ -76,6 +76,16 @@ pub fn find_burned_in_marks(
             .collect();
         glyphs.extend(glyphs_of(h, w, &v, &on, bright, range, s));
     }
+    // The background between a bright glyph's strokes is dark next to them and can pass as dark
+    // glyphs (and the reverse); where opposite glyphs touch, keep the crisper one.
+    let touches = |a: &Glyph, b: &Glyph| {
+        a.bbox[0] <= b.bbox[2] && b.bbox[0] <= a.bbox[2] && a.bbox[1] <= b.bbox[3] && b.bbox[1] <= a.bbox[3]
+    };
+    let keep: Vec<bool> = glyphs
+        .iter()
+        .map(|g| !glyphs.iter().any(|o| o.bright != g.bright && o.step > g.step && touches(g, o)))
+        .collect();
+    let glyphs = glyphs.into_iter().zip(keep).filter(|(_, k)| *k).map(|(g, _)| g).collect();
     group(h, w, glyphs, s)
 }
 
@@ -134,7 +144,7 @@ fn glyphs_of(h: usize, w: usize, v: &[f32], on: &[bool], bright: bool, range: f3
             let ok = g.area >= 3
                 && g.size() >= s.min_glyph_px
                 && g.size() as f32 <= max_size
-                && g.stroke <= s.max_stroke_px
+                && g.stroke <= s.max_stroke_px.max(s.max_stroke_fraction * g.size() as f32)
                 && g.step >= s.min_edge_step;
             ok.then_some(g)
         })

@@ -91,6 +91,9 @@ pub struct MarkSettings {
     pub max_glyph_fraction: f32,
     /// Largest stroke width (pixels), estimated as 2·area / outline length. Default 3.5.
     pub max_stroke_px: f32,
+    /// ... or, for larger glyphs, this fraction of the glyph size (text strokes are thin next to
+    /// the letter; a filled disc or square has 2·area / outline = half its size). Default 0.3.
+    pub max_stroke_fraction: f32,
     /// Glyphs join one mark when the gap between their boxes is at most this many glyph sizes.
     /// Default 1.2.
     pub group_gap: f32,
@@ -118,6 +121,7 @@ impl Default for MarkSettings {
             min_glyph_px: 3,
             max_glyph_fraction: 0.15,
             max_stroke_px: 3.5,
+            max_stroke_fraction: 0.3,
             group_gap: 1.2,
             edge_zone: 0.25,
             interior_min_glyphs: 3,
