@@ -126,7 +126,7 @@ impl ReverseStep for IffStep {
 
     fn back(&self, cx: &Cx, dy: ArrayD<f32>) -> Result<Vec<Option<ArrayD<f32>>>> {
         let out = &cx.facts.out_shape;
-        let cond = cx.input_tensor(0)?.to_array_view::<bool>().map_err(|e| anyhow!("{e}"))?;
+        let cond = cx.input_tensor(0)?.to_plain_array_view::<bool>().map_err(|e| anyhow!("{e}"))?;
         let cond = cond.broadcast(IxDyn(out)).ok_or_else(|| anyhow!("cannot broadcast condition"))?;
         let mut res = vec![None];
         for (slot, when) in [(1, true), (2, false)] {

@@ -67,7 +67,7 @@ impl ReverseStep for ConvStep {
         )?;
         let deconv = transposed(&self.op, &f.in_shapes[0], &f.out_shape)?;
         let mut m = TypedModel::default();
-        let dy = m.add_source("dy", f32::fact(&f.out_shape))?;
+        let dy = m.add_source("dy", f32::fact(f.out_shape.clone()))?;
         let k = m.add_const("kernel", kernel)?;
         let b = m.add_const("bias", Tensor::zero_scalar::<f32>()?)?;
         let dx = m.wire_node("dx", deconv, &[dy, k, b])?;

@@ -60,7 +60,7 @@ impl ReverseStep for EinSumStep {
             let lonely: Vec<usize> = (0..target.len()).filter(|&p| !elsewhere(target[p])).collect();
             let kept: String = target.iter().filter(|c| elsewhere(**c)).collect();
             let mut m = TypedModel::default();
-            let mut wires = vec![m.add_source("dy", f32::fact(&f.out_shape))?];
+            let mut wires = vec![m.add_source("dy", f32::fact(f.out_shape.clone()))?];
             let mut exprs = vec![out.to_string()];
             let mut fed = vec![];
             for k in 0..ins.len() {
@@ -71,7 +71,7 @@ impl ReverseStep for EinSumStep {
                     Some(t) => m.add_const(format!("op{k}"), t.clone())?,
                     None => {
                         fed.push(k);
-                        m.add_source(format!("op{k}"), f32::fact(&f.in_shapes[k]))?
+                        m.add_source(format!("op{k}"), f32::fact(f.in_shapes[k].clone()))?
                     }
                 };
                 wires.push(w);

@@ -105,13 +105,13 @@ impl<'a> Cx<'a> {
     }
     pub fn input(&self, slot: usize) -> Result<ArrayViewD<'a, f32>> {
         self.input_tensor(slot)?
-            .to_array_view::<f32>()
+            .to_plain_array_view::<f32>()
             .map_err(|e| anyhow!("input {slot} of node {}: {e}", self.facts.name))
     }
     pub fn output(&self) -> Result<ArrayViewD<'a, f32>> {
         self.output
             .ok_or_else(|| anyhow!("internal: output of node {} was not kept", self.facts.name))?
-            .to_array_view::<f32>()
+            .to_plain_array_view::<f32>()
             .map_err(|e| anyhow!("output of node {}: {e}", self.facts.name))
     }
 }
@@ -296,7 +296,7 @@ impl ReversePass {
             .tape
             .run(tvec!(x_t.clone().into_tvalue()))
             .map_err(|e| anyhow!("forward pass failed: {e:#}"))?;
-        let scores: Vec<f32> = kept[0].as_slice::<f32>().map_err(|e| anyhow!("{e}"))?.to_vec();
+        let scores: Vec<f32> = kept[0].to_plain_array_view::<f32>().map_err(|e| anyhow!("{e}"))?.iter().copied().collect();
         let scores = Array1::from(scores);
         let s = seed(&scores)?;
         let mut grads: HashMap<OutletId, ArrayD<f32>> = HashMap::new();
@@ -377,7 +377,7 @@ pub(crate) fn to_tensor(a: ArrayD<f32>) -> Tensor {
 
 /// An owned ndarray from a tract tensor.
 pub(crate) fn to_array(t: &Tensor) -> Result<ArrayD<f32>> {
-    Ok(t.to_array_view::<f32>().map_err(|e| anyhow!("{e}"))?.to_owned())
+    Ok(t.to_plain_array_view::<f32>().map_err(|e| anyhow!("{e}"))?.to_owned())
 }
 
 /// Runs a step's own small tract graph and returns its single output.

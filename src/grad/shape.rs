@@ -189,7 +189,7 @@ impl ReverseStep for ResizeStep {
         let scales_t = self.0.optional_scales_input.and_then(|ix| cx.facts.konst.get(ix).cloned().flatten());
         // Same scale choice as tract's eval.
         let scales: Vec<f32> = match scales_t.filter(|s| s.len() == in_shape.len()) {
-            Some(s) => s.cast_to::<f32>()?.as_slice::<f32>()?.to_vec(),
+            Some(s) => s.cast_to::<f32>()?.to_plain_array_view::<f32>()?.iter().copied().collect(),
             None => out_shape.iter().zip(in_shape).map(|(o, i)| *o as f32 / *i as f32).collect(),
         };
         let mut shape: Vec<usize> = out_shape.clone();

@@ -112,7 +112,7 @@ impl Model {
         let onnx_ops = onnx_op_counts(path)?;
         let input_shape = load::concrete_input_shape(path, &inference, opts.input_shape.as_deref())?;
         inference
-            .set_input_fact(0, f32::fact(&input_shape).into())
+            .set_input_fact(0, f32::fact(input_shape.clone()).into())
             .map_err(|e| anyhow!("{e}"))?;
         let typed = inference.into_typed().map_err(|e| {
             anyhow!(
@@ -294,7 +294,7 @@ impl Model {
             }
         };
         let t = outputs[ix].clone().into_tensor();
-        let v: Vec<f32> = t.as_slice::<f32>().map_err(|e| anyhow!("{e}"))?.to_vec();
+        let v: Vec<f32> = t.to_plain_array_view::<f32>().map_err(|e| anyhow!("{e}"))?.iter().copied().collect();
         check_finite(&self.path, &v)?;
         Ok(Array1::from(v))
     }
