@@ -77,7 +77,7 @@ impl ReverseStep for ConvStep {
             bail!("transposed convolution gives {:?}, input is {:?}", fact.shape, f.in_shapes[0]);
         }
         let m = m.into_optimized().map_err(|e| anyhow!("{e:#}"))?;
-        self.plan = Some(SimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))?);
+        self.plan = Some(TypedSimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))?);
         Ok(())
     }
 

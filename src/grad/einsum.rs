@@ -86,7 +86,7 @@ impl ReverseStep for EinSumStep {
             m.select_output_outlets(&g)?;
             let m = m.into_optimized().map_err(|e| anyhow!("{e:#}"))?;
             self.needs |= !fed.is_empty();
-            self.plans.push(OperandPlan { slot: j, plan: SimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))?, fed, lonely });
+            self.plans.push(OperandPlan { slot: j, plan: TypedSimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))?, fed, lonely });
         }
         Ok(())
     }

@@ -222,7 +222,7 @@ impl ReversePass {
         }
         let (nodes, active) = active_outlets(g, input, target)?;
         let mut taped: Vec<OutletId> = vec![target];
-        let mut tape_ix = |o: OutletId, taped: &mut Vec<OutletId>| -> Value {
+        let tape_ix = |o: OutletId, taped: &mut Vec<OutletId>| -> Value {
             if o == input {
                 return Value::Input;
             }

@@ -11,6 +11,7 @@ use tract_onnx::tract_core::ops::downsample::Downsample;
 use tract_onnx::tract_core::ops::nn::{NearestUpsample, Resize};
 
 use super::{Cx, ReverseStep, unbroadcast};
+use tract_onnx::tract_core::internal::DimLike;
 
 pub(super) fn build(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
     if let Some(op) = node.op_as::<AxisOp>() {

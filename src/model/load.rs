@@ -9,6 +9,8 @@ use anyhow::{Context, Result, anyhow, bail};
 use sha2::{Digest, Sha256};
 use tract_onnx::pb;
 use tract_onnx::prelude::*;
+use tract_onnx::tract_hir::infer::Factoid;
+use tract_onnx::tract_core::internal::DimLike;
 
 /// The parsed graph before typing, plus the file facts the model keeps.
 pub(crate) struct Parsed {

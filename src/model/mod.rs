@@ -437,7 +437,7 @@ pub(crate) fn optimized_plan(g: &TypedModel, outputs: &[OutletId]) -> Result<Pla
     let mut m = g.clone();
     m.select_output_outlets(outputs).map_err(|e| anyhow!("{e}"))?;
     let m = m.into_optimized().map_err(|e| anyhow!("tract could not optimize the graph: {e:#}"))?;
-    SimplePlan::new(m).map_err(|e| anyhow!("tract could not plan the graph: {e:#}"))
+    TypedSimplePlan::new(m).map_err(|e| anyhow!("tract could not plan the graph: {e:#}"))
 }
 
 fn onnx_op_counts(path: &Path) -> Result<Vec<(String, usize)>> {
