@@ -372,12 +372,12 @@ fn flag_banner(ui: &mut egui::Ui, shown: &Shown) {
     if a.suspect {
         egui::Frame::new().fill(look::SIGNAL).inner_margin(6.0).corner_radius(3.0).show(ui, |ui| {
             ui.set_width(ui.available_width());
-            ui.label(RichText::new(format!("SUSPECT — {}", a.suspect_reason)).color(Color32::WHITE).strong());
+            ui.label(RichText::new(format!("SUSPECT — {}", a.reason)).color(Color32::WHITE).strong());
         });
     } else {
         egui::Frame::new().stroke(Stroke::new(1.0, look::MOSS)).inner_margin(6.0).corner_radius(3.0).show(ui, |ui| {
             ui.set_width(ui.available_width());
-            ui.label(RichText::new(format!("not suspect — {}", a.suspect_reason)).color(look::MOSS));
+            ui.label(RichText::new(format!("not suspect — {}", a.reason)).color(look::MOSS));
         });
     }
 }
