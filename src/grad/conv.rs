@@ -52,9 +52,36 @@ pub(crate) fn transposed(op: &Conv, x_shape: &[usize], y_shape: &[usize]) -> Res
             computed.iter().map(|c| c.pad_before).collect(),
             computed.iter().map(|c| c.pad_after).collect(),
         ),
+        // The transposed convolution reads dy (the conv's output channels) and writes dx.
+        input_channels: spec.output_channels,
+        output_channels: spec.input_channels,
         ..spec.clone()
     };
     Ok(Deconv::new(pool_spec, op.kernel_fmt, adjustments, op.group))
+}
+
+/// The conv kernel [Cout, Cin/g, k..] (OIHW) as tract's Deconv wants it for the adjoint, whose
+/// input is dy (Cout channels): per group, the two channel axes swapped, [Cin, Cout/g, k..].
+fn deconv_kernel(kernel: &Tensor, op: &Conv) -> Result<Tensor> {
+    use tract_onnx::tract_core::ops::cnn::KernelFormat;
+    if op.kernel_fmt != KernelFormat::OIHW {
+        bail!("convolution kernel layout {:?} (only OIHW, the ONNX layout, is handled)", op.kernel_fmt);
+    }
+    let k = kernel.cast_to::<f32>().map_err(|e| anyhow!("{e}"))?;
+    let k = k.to_plain_array_view::<f32>().map_err(|e| anyhow!("{e}"))?;
+    let g = op.group;
+    let sh = k.shape().to_vec();
+    let (cout, cin_g) = (sh[0], sh[1]);
+    let mut grouped = vec![g, cout / g, cin_g];
+    grouped.extend_from_slice(&sh[2..]);
+    let k = k.to_shape(ndarray::IxDyn(&grouped)).map_err(|e| anyhow!("{e}"))?;
+    let mut axes: Vec<usize> = (0..grouped.len()).collect();
+    axes.swap(1, 2);
+    let t = k.view().permuted_axes(ndarray::IxDyn(&axes)).as_standard_layout().into_owned();
+    let mut out = vec![g * cin_g, cout / g];
+    out.extend_from_slice(&sh[2..]);
+    let t = t.into_shape_with_order(ndarray::IxDyn(&out)).map_err(|e| anyhow!("{e}"))?;
+    Ok(t.into_tensor())
 }
 
 impl ReverseStep for ConvStep {
@@ -66,6 +93,7 @@ impl ReverseStep for ConvStep {
             "convolution with a kernel that is not a constant after simplification",
         )?;
         let deconv = transposed(&self.op, &f.in_shapes[0], &f.out_shape)?;
+        let kernel = deconv_kernel(&kernel, &self.op)?;
         let mut m = TypedModel::default();
         let dy = m.add_source("dy", f32::fact(f.out_shape.clone()))?;
         let k = m.add_const("kernel", kernel)?;

@@ -174,7 +174,10 @@ impl ReverseStep for DownsampleStep {
         let ax = Axis(self.0.axis);
         let n = dy.shape()[self.0.axis];
         let start = self.0.modulo as isize;
-        dx.slice_axis_mut(ax, NdSlice::new(start, Some(start + s * n as isize), s)).assign(&dy);
+        if n > 0 {
+            // Last element taken is start + s·(n−1); the slice end is exclusive.
+            dx.slice_axis_mut(ax, NdSlice::new(start, Some(start + s * (n as isize - 1) + 1), s)).assign(&dy);
+        }
         Ok(vec![Some(dx)])
     }
 }
