@@ -51,15 +51,16 @@ fn union_of_regions_and_region_kinds() {
     let rect = |y: f64| DrawnShape { label: format!("row {y}"), shape: Shape::Rect { bbox: [0.0, y, 5.0, y + 1.0] } };
     let regions = vec![drawn_region(&rect(0.0), 10, 10).unwrap(), drawn_region(&rect(9.0), 10, 10).unwrap()];
     let map = Array2::from_shape_fn((10, 10), |(y, x)| if (y == 0 || y == 9) && x < 5 { 4.0f32 } else { 60.0 / 90.0 });
-    let a = assess_regions(&map, &regions, &FlagSettings::default()).unwrap();
+    let quarter = FlagSettings { min_mark_share: 0.25, ..Default::default() };
+    let a = assess_regions(&map, &regions, &quarter).unwrap();
     assert!(a.regions.iter().all(|r| !r.suspect && (r.mark_share.unwrap() - 0.2).abs() < 1e-6));
     let all = a.all_regions.as_ref().unwrap();
     assert!((all.mark_share.unwrap() - 0.4).abs() < 1e-6 && (all.lift.unwrap() - 4.0).abs() < 1e-5);
     assert!(a.suspect && a.reason.contains("together"), "{}", a.reason);
-    let single = FlagSettings { check_union: false, ..Default::default() };
+    let single = FlagSettings { check_union: false, ..quarter.clone() };
     assert!(!assess_regions(&map, &regions, &single).unwrap().suspect);
     // Only border bands may raise the flag: drawn regions then do not.
-    let bands_only = FlagSettings { kinds: vec![RegionKind::BorderBand], ..Default::default() };
+    let bands_only = FlagSettings { kinds: vec![RegionKind::BorderBand], ..quarter.clone() };
     let b = assess_regions(&map, &regions, &bands_only).unwrap();
     assert!(!b.suspect && b.all_regions.is_none());
 }
