@@ -77,6 +77,20 @@ fn score(specs: &[PhantomSpec]) -> (Count, Count) {
     (tags, frames)
 }
 
+/// Prints the figures and holds both finders to precision and recall of at least 0.9.
+fn check_detection(size: usize, tags: &Count, frames: &Count) {
+    eprintln!(
+        "{size} px: tags {tags:?} precision {:.3} recall {:.3}; frames {frames:?} precision {:.3} recall {:.3}",
+        tags.precision(),
+        tags.recall(),
+        frames.precision(),
+        frames.recall()
+    );
+    assert_eq!(tags.truth, 16);
+    assert!(tags.precision() >= 0.9 && tags.recall() >= 0.9, "tags: {tags:?}");
+    assert!(frames.precision() >= 0.9 && frames.recall() >= 0.9, "frames: {frames:?}");
+}
+
 fn specs(size: usize, count: usize, seed0: u64) -> Vec<PhantomSpec> {
     (0..count)
         .map(|i| {
@@ -92,32 +106,14 @@ fn specs(size: usize, count: usize, seed0: u64) -> Vec<PhantomSpec> {
 fn tag_and_frame_detection_on_demo_phantoms_256() {
     // 48 phantoms: 16 from Hillmoor (tag and frame), 32 clean ones from the other two sites.
     let (tags, frames) = score(&specs(256, 48, 1000));
-    eprintln!(
-        "256 px: tags {tags:?} precision {:.3} recall {:.3}; frames {frames:?} precision {:.3} recall {:.3}",
-        tags.precision(),
-        tags.recall(),
-        frames.precision(),
-        frames.recall()
-    );
-    assert_eq!(tags.truth, 16);
-    assert!(tags.precision() >= 0.9 && tags.recall() >= 0.9, "tags: {tags:?}");
-    assert!(frames.precision() >= 0.9 && frames.recall() >= 0.9, "frames: {frames:?}");
+    check_detection(256, &tags, &frames);
 }
 
 #[test]
 fn tag_and_frame_detection_on_demo_phantoms_128() {
     // At 128 px the frame is 2 px and the tag's glyphs 3×5 px: the smallest the demo draws.
     let (tags, frames) = score(&specs(128, 48, 5000));
-    eprintln!(
-        "128 px: tags {tags:?} precision {:.3} recall {:.3}; frames {frames:?} precision {:.3} recall {:.3}",
-        tags.precision(),
-        tags.recall(),
-        frames.precision(),
-        frames.recall()
-    );
-    assert_eq!(tags.truth, 16);
-    assert!(tags.precision() >= 0.9 && tags.recall() >= 0.9, "tags: {tags:?}");
-    assert!(frames.precision() >= 0.9 && frames.recall() >= 0.9, "frames: {frames:?}");
+    check_detection(128, &tags, &frames);
 }
 
 #[test]

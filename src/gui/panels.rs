@@ -13,13 +13,7 @@ use super::state::*;
 use super::work::Pick;
 
 fn fmt_value(v: f32) -> String {
-    if v == 0.0 {
-        "0".into()
-    } else if v.abs() >= 0.01 && v.abs() < 1000.0 {
-        format!("{v:+.3}")
-    } else {
-        format!("{v:+.2e}")
-    }
+    crate::render::format_value(v, true)
 }
 
 fn fmt_opt(v: Option<f64>, digits: usize) -> String {

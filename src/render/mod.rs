@@ -128,10 +128,10 @@ fn legend(height: u32, scale: f32, sign: Sign) -> RgbImage {
     }
     let ink = Rgb([30, 30, 34]);
     let (hi, lo, top_word, bottom_word) = match sign {
-        Sign::Both => (format!("+{}", fmt(scale)), format!("-{}", fmt(scale)), "supporting", "opposing"),
-        Sign::Supporting => (format!("+{}", fmt(scale)), "0".to_string(), "supporting", ""),
-        Sign::Opposing => ("0".to_string(), format!("-{}", fmt(scale)), "", "opposing"),
-        Sign::Magnitude => (fmt(scale), "0".to_string(), "magnitude", ""),
+        Sign::Both => (format_value(scale, true), format_value(-scale, true), "supporting", "opposing"),
+        Sign::Supporting => (format_value(scale, true), "0".to_string(), "supporting", ""),
+        Sign::Opposing => ("0".to_string(), format_value(-scale, true), "", "opposing"),
+        Sign::Magnitude => (format_value(scale, false), "0".to_string(), "magnitude", ""),
     };
     draw_text(&mut img, bar_x + 28, top - 4, 13.0, &hi, ink);
     draw_text(&mut img, bar_x + 28, bottom - 10, 13.0, &lo, ink);
@@ -145,13 +145,15 @@ fn legend(height: u32, scale: f32, sign: Sign) -> RgbImage {
     img
 }
 
-fn fmt(v: f32) -> String {
-    if v == 0.0 {
-        "0".into()
-    } else if v.abs() >= 0.01 && v.abs() < 1000.0 {
-        format!("{v:.3}")
-    } else {
-        format!("{v:.2e}")
+/// A map value for legends and readouts: three decimals in the usual range, else scientific;
+/// `signed` writes a leading + on positive values.
+pub fn format_value(v: f32, signed: bool) -> String {
+    match (v == 0.0, v.abs() >= 0.01 && v.abs() < 1000.0, signed) {
+        (true, _, _) => "0".into(),
+        (false, true, true) => format!("{v:+.3}"),
+        (false, true, false) => format!("{v:.3}"),
+        (false, false, true) => format!("{v:+.2e}"),
+        (false, false, false) => format!("{v:.2e}"),
     }
 }
 
