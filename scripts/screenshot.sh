@@ -1,7 +1,9 @@
 #!/usr/bin/env bash
 # Runs the inspector on the bundled demo under Xvfb and saves a screenshot for the README:
 # assets/screenshots/inspector.png. Needs the Debian packages xvfb and imagemagick
-# (apt-get install -y xvfb imagemagick). Uses the dev build (dependencies are optimised there).
+# (apt-get install -y xvfb imagemagick). Runs target/debug/spurion, the dev binary that `cargo test`
+# builds for the integration tests (dependencies are optimised in the dev profile); building it with
+# `cargo test --no-run` reuses the test build instead of starting a separate one.
 #
 #   scripts/screenshot.sh [seconds-to-wait]
 #
@@ -15,7 +17,8 @@ done
 wait_s="${1:-40}"
 out=assets/screenshots/inspector.png
 mkdir -p "$(dirname "$out")"
-cargo build --bin spurion
+cargo test --test gui_inspector --no-run
+[ -x target/debug/spurion ] || { echo "target/debug/spurion was not built; run cargo test --test gui_inspector" >&2; exit 1; }
 
 display=":${SPURION_XVFB_DISPLAY:-87}"
 Xvfb "$display" -screen 0 1440x900x24 -nolisten tcp >/tmp/spurion-xvfb.log 2>&1 &

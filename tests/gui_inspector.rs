@@ -6,6 +6,8 @@
 use std::path::{Path, PathBuf};
 use std::time::{Duration, Instant};
 
+use std::sync::Arc;
+
 use egui_kittest::Harness;
 use egui_kittest::kittest::{NodeT, Queryable};
 
@@ -66,6 +68,11 @@ fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Inspector> {
     );
     // Keep the test quick: few IG steps (the figures are compared for the same settings).
     app.form.steps = STEPS;
+    drive(app)
+}
+
+/// A headless harness around an inspector, the size of a laptop window.
+fn drive(app: Inspector) -> Harness<'static, Inspector> {
     Harness::builder().with_size([1500.0, 950.0]).build_ui_state(|ui, app: &mut Inspector| app.frame(ui), app)
 }
 
@@ -77,16 +84,16 @@ fn strip_shows_every_baseline_and_the_engines_agreement() {
     let mut h = harness(vec![first.clone()], tmp.path());
 
     wait_for(&mut h, "the first reading", 120, |a| a.current_shown().is_some());
-    assert_eq!(h.state().form.baseline, BaselineChoice::Black);
+    assert_eq!(h.state().form.baseline, BaselineChoice::Blur, "the inspector starts on blur σ 8");
 
     // Change the baseline through the combo box, as a person would.
     h.get_by_label("baseline").click();
     h.run_steps(2);
-    h.get_by_label("blur").click();
+    h.get_by_label("grey").click();
     h.run_steps(2);
-    assert_eq!(h.state().form.baseline, BaselineChoice::Blur, "clicking 'blur' in the baseline list");
-    wait_for(&mut h, "the blur reading", 120, |a| {
-        a.current_shown().is_some_and(|(k, _)| k.ask.baseline.choice() == BaselineChoice::Blur)
+    assert_eq!(h.state().form.baseline, BaselineChoice::Grey, "clicking 'grey' in the baseline list");
+    wait_for(&mut h, "the grey reading", 120, |a| {
+        a.current_shown().is_some_and(|(k, _)| k.ask.baseline.choice() == BaselineChoice::Grey)
     });
 
     // The custom baseline needs an image: type its path into the field.
@@ -201,4 +208,192 @@ fn a_dialog_that_returns_nothing_is_explained() {
     // It is remembered.
     let (recent, _) = spurion::gui::recent::Recent::load(&tmp.path().join("recent.json"));
     assert!(recent.images.iter().any(|p| p.file_name() == img.file_name()), "{recent:?}");
+}
+
+// ------------------------------------------------------------------ first view
+
+#[test]
+fn with_no_arguments_the_first_view_is_a_marked_positive_under_blur_8_and_it_is_flagged() {
+    let tmp = tempfile::tempdir().unwrap();
+    // The first Hillmoor image with a finding, read from the manifest here.
+    let demo = root().join("assets/demo");
+    let rows = spurion::demo::read_manifest(&demo.join("manifest.csv")).unwrap();
+    let row = rows.iter().find(|r| r.site == spurion::demo::Site::Hillmoor && r.finding).expect("the demo has Hillmoor positives");
+    assert!(row.tag && row.frame, "{row:?}");
+    let want = demo.join(&row.file);
+
+    let mut h = drive(Inspector::new(egui::Context::default(), GuiOptions::default(), InspectorConfig::headless(tmp.path())));
+    h.step();
+    assert_eq!(h.state().current_image().map(|e| e.path.clone()), Some(want.clone()));
+    assert_eq!(h.state().images.len(), spurion::feed::list_images(&demo).unwrap().len(), "the whole demo folder is listed");
+    assert_eq!(h.state().model_path.as_deref(), Some(model_path().as_path()));
+    assert_eq!(h.state().form.baseline, BaselineChoice::Blur);
+    assert_eq!(h.state().form.blur_sigma, 8.0);
+    // The tooltip's reason is on screen as a short line under the baseline control.
+    assert!(h.query_by_label_contains("blur keeps a dark frame visible").is_some());
+
+    // A reading starts by itself once the model and image are ready.
+    wait_for(&mut h, "the first reading to start", 120, |a| {
+        a.wanted_key().is_ok_and(|k| a.cache.slots.contains_key(&k))
+    });
+    // It is computing, not done: the frame went on while the worker runs.
+    let k = h.state().wanted_key().unwrap();
+    assert!(matches!(h.state().cache.slots.get(&k), Some(spurion::gui::state::Slot::Pending(_))));
+    assert_eq!(h.state().slide_job.as_ref().map(|(sk, _)| sk), Some(&k));
+    wait_for(&mut h, "the first reading", 300, |a| a.current_shown().is_some());
+    h.run_steps(2);
+    let (key, shown) = h.state().current_shown().unwrap();
+    assert_eq!(key.ask.baseline.label(), "blur σ 8");
+    assert_eq!(shown.reading.baseline.as_deref(), Some("blur:8"));
+    // The main job, on the first view: the shortcut model's reading of a marked positive is
+    // flagged (regions_e2e measures 6/6 such images flagged under blur σ 8, 0/6 with the control).
+    assert!(shown.assessment.suspect, "first view not flagged: {}", shown.assessment.reason);
+    assert!(h.query_by_label_contains("SUSPECT — ").is_some(), "the suspect banner is shown");
+}
+
+// ------------------------------------------------------------------ JSON export
+
+/// Every key path of a JSON value: "a", "a.b", "a[].c" (array elements share one path).
+fn key_paths(v: &serde_json::Value, at: &str, out: &mut std::collections::BTreeSet<String>) {
+    match v {
+        serde_json::Value::Object(m) => {
+            for (k, x) in m {
+                let p = if at.is_empty() { k.clone() } else { format!("{at}.{k}") };
+                out.insert(p.clone());
+                key_paths(x, &p, out);
+            }
+        }
+        serde_json::Value::Array(a) => {
+            for x in a {
+                key_paths(x, &format!("{at}[]"), out);
+            }
+        }
+        _ => {}
+    }
+}
+
+#[test]
+fn the_reading_json_export_has_the_fields_of_spurion_explain() {
+    let tmp = tempfile::tempdir().unwrap();
+    let images = demo_images();
+    let img = spurion::gui::first_marked_positive(&root().join("assets/demo")).unwrap_or_else(|| images[0].clone());
+    let mut h = harness(vec![img.clone()], tmp.path());
+    wait_for(&mut h, "the reading", 120, |a| a.current_shown().is_some());
+    let out = tmp.path().join("export");
+    h.state_mut().export_dir = out.display().to_string();
+    h.get_by_label("reading JSON").click();
+    h.run_steps(1);
+    wait_for(&mut h, "the JSON export", 60, |a| a.notes.last().is_some_and(|n| n.text.starts_with("written: ")));
+    let written: Vec<PathBuf> = std::fs::read_dir(&out).unwrap().map(|e| e.unwrap().path()).collect();
+    assert_eq!(written.len(), 1, "{written:?}");
+    assert!(written[0].to_string_lossy().ends_with(".reading.json"), "{written:?}");
+    let gui: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&written[0]).unwrap()).unwrap();
+
+    // The same reading from the command line.
+    let cli_dir = tmp.path().join("cli");
+    let form = &h.state().form;
+    let o = std::process::Command::new(env!("CARGO_BIN_EXE_spurion"))
+        .args(["explain", "--model", model_path().to_str().unwrap(), "--image", img.to_str().unwrap()])
+        .args(["--steps", &STEPS.to_string(), "--baseline", &format!("blur:{}", form.blur_sigma), "--score", "raw"])
+        .args(["--quiet", "--out", cli_dir.to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "spurion explain failed: {}", String::from_utf8_lossy(&o.stderr));
+    let cli: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(cli_dir.join("reading.json")).unwrap()).unwrap();
+
+    let (mut gk, mut ck) = (Default::default(), Default::default());
+    key_paths(&gui, "", &mut gk);
+    key_paths(&cli, "", &mut ck);
+    assert!(gk.len() > 10, "{gk:?}");
+    assert_eq!(gk, ck, "inspector JSON keys vs reading.json keys");
+    // Same request, same reading: the values that do not depend on the clock agree too.
+    for k in ["method", "baseline", "target", "suspect", "caution", "input_shape"] {
+        assert_eq!(gui[k], cli[k], "field {k}");
+    }
+    let labels = |v: &serde_json::Value| -> Vec<String> {
+        v["regions"].as_array().unwrap().iter().map(|r| r["label"].as_str().unwrap_or_default().to_string()).collect()
+    };
+    assert_eq!(labels(&gui), labels(&cli), "regions found");
+    let (a, b) = (gui["attribution_sum"].as_f64().unwrap(), cli["attribution_sum"].as_f64().unwrap());
+    assert!((a - b).abs() <= 1e-4 * b.abs().max(1.0), "attribution sum: inspector {a}, CLI {b}");
+    // And the flag in the file is the one the inspector shows.
+    let shown = h.state().current_shown().unwrap().1;
+    assert_eq!(gui["suspect"].as_bool(), Some(shown.assessment.suspect));
+}
+
+// ------------------------------------------------------------------ drag and drop
+
+#[derive(Debug)]
+struct Dropped(PathBuf);
+
+impl egui::DroppedFile for Dropped {
+    fn path(&self) -> &Path {
+        &self.0
+    }
+    fn bytes(&self) -> Result<Vec<u8>, String> {
+        std::fs::read(&self.0).map_err(|e| e.to_string())
+    }
+}
+
+fn drop_file(h: &mut Harness<'_, Inspector>, p: &Path) {
+    h.input_mut().dropped_files.push(Arc::new(Dropped(p.to_path_buf())));
+    h.step();
+}
+
+#[test]
+fn dropped_images_and_models_open() {
+    let tmp = tempfile::tempdir().unwrap();
+    let images = demo_images();
+    let (first, dropped) = (images[0].clone(), images[5].clone());
+    let mut h = harness(vec![first.clone()], tmp.path());
+    wait_for(&mut h, "the model", 120, |a| a.session.is_some());
+    assert_eq!(h.state().images.len(), 1);
+
+    drop_file(&mut h, &dropped);
+    assert_eq!(h.state().images.len(), 2, "the dropped image joins the list");
+    assert_eq!(h.state().current_image().map(|e| e.path.clone()), Some(dropped.clone()), "and is shown");
+    wait_for(&mut h, "the dropped image to open", 60, |a| a.current_prepared().is_some());
+    let name = dropped.file_name().unwrap().to_string_lossy().into_owned();
+    assert!(h.query_all_by_label_contains(&name).count() >= 2, "its name in the list and on the slide");
+
+    // Dropping it again adds nothing; dropping the first shows it again.
+    drop_file(&mut h, &dropped);
+    drop_file(&mut h, &first);
+    assert_eq!(h.state().images.len(), 2);
+    assert_eq!(h.state().current_image().map(|e| e.path.clone()), Some(first.clone()));
+
+    // A dropped .onnx opens as the model.
+    let control = root().join("sample-models/control.onnx");
+    drop_file(&mut h, &control);
+    wait_for(&mut h, "the dropped model", 120, |a| a.session.as_ref().is_some_and(|s| s.model.path() == control));
+    h.run_steps(1);
+    assert!(h.query_by_label("model: control.onnx").is_some(), "the top bar names the dropped model");
+}
+
+#[test]
+fn a_dropped_file_that_is_not_an_image_is_refused_with_a_reason() {
+    let tmp = tempfile::tempdir().unwrap();
+    let mut h = harness(vec![demo_images()[0].clone()], tmp.path());
+    h.step();
+    let notes_file = tmp.path().join("notes.txt");
+    std::fs::write(&notes_file, "not a picture").unwrap();
+    drop_file(&mut h, &notes_file);
+    h.run_steps(1);
+    assert_eq!(h.state().images.len(), 1, "nothing is added");
+    let said: Vec<_> = h.state().notes.iter().filter(|n| n.kind == spurion::gui::state::NoteKind::Error).collect();
+    assert_eq!(said.len(), 1, "{said:?}");
+    let t = &said[0].text;
+    // Which file, what is wrong, what to do.
+    assert!(t.contains(&notes_file.display().to_string()), "{t}");
+    assert!(t.contains(".txt") && t.contains("neither images nor models"), "{t}");
+    assert!(t.contains(".onnx") && t.contains("PNG"), "{t}");
+    assert!(h.query_by_label(t).is_some(), "the note is on the status line");
+
+    // A DICOM file gets its own advice.
+    let dcm = tmp.path().join("study.dcm");
+    std::fs::write(&dcm, b"DICM").unwrap();
+    drop_file(&mut h, &dcm);
+    let last = h.state().notes.last().unwrap().text.clone();
+    assert!(last.contains("study.dcm") && last.contains("DICOM") && last.contains("PNG"), "{last}");
+    assert_eq!(h.state().images.len(), 1);
 }

@@ -179,6 +179,8 @@ fn default_out(input: &Input, method: &str) -> PathBuf {
 }
 
 /// reading.json: the reading's fields plus, for pictures, the regions found and the flag.
+/// Public (as `spurion::cli::reading_json`) so that the inspector's JSON export is this object,
+/// field for field.
 pub fn reading_json(
     reading: &methods::Reading,
     input: &Input,

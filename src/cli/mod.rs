@@ -3,6 +3,9 @@
 
 mod explain;
 
+/// reading.json of `spurion explain`; the inspector's JSON export writes the same object.
+pub use explain::reading_json;
+
 use std::path::PathBuf;
 
 use anyhow::{Context, Result};

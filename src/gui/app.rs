@@ -166,24 +166,27 @@ impl Inspector {
         if let Some(n) = recent_note {
             app.note(NoteKind::Warning, n);
         }
-        let (model, paths) = if opts.model.is_none() && opts.paths.is_empty() {
-            let (m, p) = default_inputs();
-            if m.is_none() {
+        let (model, paths, first) = if opts.model.is_none() && opts.paths.is_empty() {
+            let d = default_inputs();
+            if d.model.is_none() {
                 app.note(
                     NoteKind::Warning,
                     "the sample model sample-models/shortcut.onnx was not found next to the program or in \
                      the current folder; open a model with \"Model…\", the path field, or by dropping an .onnx file",
                 );
             }
-            (m, p)
+            (d.model, d.paths, d.first)
         } else {
-            (opts.model, opts.paths)
+            (opts.model, opts.paths, None)
         };
         if let Some(m) = model {
             app.open_model(&m);
         }
         if !paths.is_empty() {
             app.open_paths(&paths);
+        }
+        if let Some(f) = first {
+            app.select_path(&f);
         }
         app
     }
@@ -211,13 +214,19 @@ impl Inspector {
         self.model_error = None;
     }
 
-    /// Adds images and folders to the list (an `.onnx` among them opens as the model).
+    /// Adds images and folders to the list (an `.onnx` among them opens as the model) and shows
+    /// the first image named, so a dropped or typed image is the one on the slide. A file that is
+    /// neither an image nor a model is refused with a note that says what to do instead.
     pub fn open_paths(&mut self, paths: &[PathBuf]) {
         let mut added = 0usize;
-        let first_new = self.images.len();
+        let mut show: Option<usize> = None;
         for p in paths {
             if p.extension().is_some_and(|e| e.eq_ignore_ascii_case("onnx")) {
-                self.open_model(p);
+                if p.is_file() {
+                    self.open_model(p);
+                } else {
+                    self.note(NoteKind::Error, format!("model {} does not exist; check the path", p.display()));
+                }
                 continue;
             }
             if p.is_dir() {
@@ -228,14 +237,25 @@ impl Inspector {
                     ),
                     Ok(list) => {
                         for f in list {
-                            added += self.push_image(f) as usize;
+                            let (i, new) = self.push_image(f);
+                            added += new as usize;
+                            // A folder already in the list does not move the slide.
+                            if new {
+                                show.get_or_insert(i);
+                            }
                         }
                         self.recent.add_images(p);
                     }
                     Err(e) => self.note(NoteKind::Error, format!("{e:#}")),
                 }
             } else if p.is_file() {
-                added += self.push_image(p.clone()) as usize;
+                if let Err(why) = openable_image(p) {
+                    self.note(NoteKind::Error, why);
+                    continue;
+                }
+                let (i, new) = self.push_image(p.clone());
+                added += new as usize;
+                show.get_or_insert(i);
                 self.recent.add_images(p);
             } else {
                 self.note(NoteKind::Error, format!("{} does not exist; check the path", p.display()));
@@ -244,19 +264,32 @@ impl Inspector {
         self.save_recent();
         if added > 0 {
             self.note(NoteKind::Info, format!("{added} image(s) added"));
-            if self.selected.is_none() {
-                self.select(first_new);
-            }
+        }
+        if let Some(i) = show
+            && self.selected != Some(i)
+        {
+            self.select(i);
         }
     }
 
-    fn push_image(&mut self, path: PathBuf) -> bool {
-        // Masks written by `spurion demo` sit beside the images; they are not for reading.
-        if self.images.iter().any(|e| e.path == path) {
-            return false;
+    /// Shows the image at `path` if it is in the list.
+    pub fn select_path(&mut self, path: &Path) -> bool {
+        match self.images.iter().position(|e| e.path == path) {
+            Some(i) => {
+                self.select(i);
+                true
+            }
+            None => false,
+        }
+    }
+
+    /// The list position of `path`, added if it is not there yet (and whether it was added).
+    fn push_image(&mut self, path: PathBuf) -> (usize, bool) {
+        if let Some(i) = self.images.iter().position(|e| e.path == path) {
+            return (i, false);
         }
         self.images.push(ImageEntry { path, state: ImageState::NotOpened });
-        true
+        (self.images.len() - 1, true)
     }
 
     fn save_recent(&mut self) {
@@ -747,6 +780,26 @@ impl Inspector {
     pub fn busy(&self) -> bool {
         !self.workers.running.is_empty()
     }
+}
+
+/// Whether a file named as an image can be opened as one, judged by its ending (the worker that
+/// opens it reports damaged files); `Err` is the note to show: which file, what is wrong, what to do.
+pub fn openable_image(p: &Path) -> Result<(), String> {
+    let ending = p.extension().map(|e| e.to_string_lossy().to_ascii_lowercase());
+    if ending.as_deref().is_some_and(|e| crate::feed::IMAGE_ENDINGS.contains(&e)) {
+        return Ok(());
+    }
+    let what = match ending.as_deref() {
+        None => "it has no file ending".to_string(),
+        Some("dcm" | "dicom") => "DICOM files are not read directly".to_string(),
+        Some(e) => format!("files ending in .{e} are neither images nor models"),
+    };
+    let todo = if matches!(ending.as_deref(), Some("dcm" | "dicom")) {
+        "export the pixel data to PNG first (with no patient fields in the picture) and open that"
+    } else {
+        "open an .onnx model, a PNG, JPEG, TIFF or BMP image, or a folder of them"
+    };
+    Err(format!("{} was not opened: {what}; {todo}", p.display()))
 }
 
 /// Median, 90th percentile and maximum of UI pass times, as one line of text.

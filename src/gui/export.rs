@@ -8,7 +8,8 @@ use std::sync::Arc;
 use anyhow::Result;
 use image::{Rgb, RgbImage};
 
-use crate::methods::agree;
+use crate::feed::FeedCard;
+use crate::methods::{Input, agree};
 use crate::render::{self, Sign};
 
 use super::app::{ExportWhat, Inspector};
@@ -19,7 +20,7 @@ use super::state::{Overlay, Prepared, Shown};
 pub enum ExportJob {
     View { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown>, sign: Sign, overlay: Overlay, opacity: f32, share: f64, regions: bool },
     Strip { path: PathBuf, prepared: Arc<Prepared>, tiles: Vec<(String, Arc<Shown>)>, sign: Sign, per_map: bool },
-    Json { path: PathBuf, shown: Arc<Shown> },
+    Json { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown>, card: Arc<FeedCard> },
 }
 
 fn slug(s: &str) -> String {
@@ -48,7 +49,8 @@ pub fn plan(app: &Inspector, what: ExportWhat) -> Result<ExportJob, String> {
             let (key, shown) = app.current_shown().ok_or("the reading is not ready yet")?;
             let tag = slug(&key.ask.describe());
             if what == ExportWhat::Json {
-                return Ok(ExportJob::Json { path: dir.join(format!("{stem}-{tag}.reading.json")), shown });
+                let card = app.session.as_ref().ok_or("the model is still loading")?.card.clone();
+                return Ok(ExportJob::Json { path: dir.join(format!("{stem}-{tag}.reading.json")), prepared, shown, card });
             }
             Ok(ExportJob::View {
                 path: dir.join(format!("{stem}-{tag}-{}-{}.png", app.view.overlay.name().replace(' ', "-"), app.view.sign.name())),
@@ -168,17 +170,12 @@ pub fn strip_image(prepared: &Prepared, tiles: &[(String, Arc<Shown>)], sign: Si
     out
 }
 
-/// The reading as JSON, shaped like `spurion explain`'s reading.json: the engine's serialisation
-/// of the reading, the caution, and the regions module's assessment (regions found with default
-/// finder settings, default flag rule) merged in at the top level.
-pub fn reading_json(shown: &Shown) -> Result<serde_json::Value> {
-    let mut v = serde_json::to_value(&*shown.reading)?;
-    v["caution"] = serde_json::Value::String(crate::CAUTION.into());
-    if let serde_json::Value::Object(m) = serde_json::to_value(&shown.assessment)? {
-        for (k, val) in m {
-            v[k] = val;
-        }
-    }
+/// The reading as JSON: exactly `spurion explain`'s reading.json (the CLI's own function builds
+/// it: the reading, the caution, the regions found with default finder settings and the flag).
+/// Runs on the export worker: finding the regions again is the CLI's cost, not the frame's.
+pub fn reading_json(prepared: &Prepared, shown: &Shown, card: &FeedCard) -> Result<serde_json::Value> {
+    let input = Input::picture((*prepared.picture).clone(), card)?;
+    let (v, _) = crate::cli::reading_json(&shown.reading, &input, &shown.map)?;
     Ok(v)
 }
 
@@ -198,8 +195,8 @@ impl ExportJob {
             ExportJob::Strip { path, prepared, tiles, sign, per_map } => {
                 render::save(&path, &strip_image(&prepared, &tiles, sign, per_map))?;
             }
-            ExportJob::Json { path, shown } => {
-                let text = serde_json::to_string_pretty(&reading_json(&shown)?)?;
+            ExportJob::Json { path, prepared, shown, card } => {
+                let text = serde_json::to_string_pretty(&reading_json(&prepared, &shown, &card)?)? + "\n";
                 std::fs::write(&path, text).with_context(|| format!("cannot write {}", path.display()))?;
             }
         }

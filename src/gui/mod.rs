@@ -58,9 +58,19 @@ pub fn run(opts: GuiOptions) -> anyhow::Result<()> {
     })
 }
 
+/// What the inspector opens when started with no arguments.
+#[derive(Clone, Debug, Default)]
+pub struct DefaultInputs {
+    pub model: Option<PathBuf>,
+    pub paths: Vec<PathBuf>,
+    /// The image shown first: the demo's first Hillmoor image with a finding (from its
+    /// manifest.csv), so the first view shows the job the tool is for, a shortcut caught.
+    pub first: Option<PathBuf>,
+}
+
 /// The bundled sample model and demo folder, looked for in the current folder first and then in
 /// the crate folder the program was built from.
-pub fn default_inputs() -> (Option<PathBuf>, Vec<PathBuf>) {
+pub fn default_inputs() -> DefaultInputs {
     let roots: Vec<PathBuf> = [std::env::current_dir().ok(), Some(PathBuf::from(env!("CARGO_MANIFEST_DIR")))]
         .into_iter()
         .flatten()
@@ -68,7 +78,17 @@ pub fn default_inputs() -> (Option<PathBuf>, Vec<PathBuf>) {
     let find = |rel: &str| roots.iter().map(|r| r.join(rel)).find(|p| p.exists());
     let model = find("sample-models/shortcut.onnx");
     let demo = find("assets/demo");
-    (model, demo.into_iter().collect())
+    let first = demo.as_deref().and_then(first_marked_positive);
+    DefaultInputs { model, paths: demo.into_iter().collect(), first }
+}
+
+/// The first manifest row of `demo` from Hillmoor with a finding, if the manifest reads.
+pub fn first_marked_positive(demo: &Path) -> Option<PathBuf> {
+    let rows = crate::demo::read_manifest(&demo.join("manifest.csv")).ok()?;
+    rows.iter()
+        .find(|r| r.site == crate::demo::Site::Hillmoor && r.finding)
+        .map(|r| demo.join(&r.file))
+        .filter(|p| p.is_file())
 }
 
 /// A path shortened for labels: the file name, or the whole path if it has none.

@@ -6,7 +6,9 @@ use egui::{Align2, Color32, FontId, Pos2, Rect, RichText, Sense, Stroke, Vec2, p
 use crate::methods::agree::Sign;
 
 use super::app::{ExportWhat, Inspector, Intent, LayerKey};
-use super::form::{BaselineChoice, MethodChoice, ScoreChoice, TargetChoice};
+use super::form::{
+    BLACK_BASELINE_CAVEAT, BaselineChoice, DEFAULT_BASELINE_WHY, DEFAULT_BLUR_SIGMA, MethodChoice, ScoreChoice, TargetChoice,
+};
 use super::look;
 use super::short_name;
 use super::state::*;
@@ -188,14 +190,28 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
             }
             let uses_baseline = f.method.takes_baseline() || f.method == MethodChoice::ExpectedGradients;
             ui.add_enabled_ui(uses_baseline, |ui| {
-                egui::ComboBox::from_label("baseline").selected_text(f.baseline.name()).width(170.0).show_ui(ui, |ui| {
-                    for b in BaselineChoice::ALL {
-                        ui.selectable_value(&mut f.baseline, b, b.name());
-                    }
-                });
+                let selected = match f.baseline {
+                    BaselineChoice::Blur => format!("blur σ {}", f.blur_sigma),
+                    b => b.name().to_string(),
+                };
+                egui::ComboBox::from_label("baseline")
+                    .selected_text(selected)
+                    .width(170.0)
+                    .show_ui(ui, |ui| {
+                        for b in BaselineChoice::ALL {
+                            ui.selectable_value(&mut f.baseline, b, b.name());
+                        }
+                    })
+                    .response
+                    .on_hover_text(DEFAULT_BASELINE_WHY);
             });
             if !uses_baseline {
                 ui.label(RichText::new(format!("{} takes no baseline", f.method.name())).small().color(look::ASH));
+            } else if f.baseline == BaselineChoice::Black {
+                ui.label(RichText::new(BLACK_BASELINE_CAVEAT).small().color(look::LILAC)).on_hover_text(DEFAULT_BASELINE_WHY);
+            } else if f.baseline == BaselineChoice::Blur && f.blur_sigma == DEFAULT_BLUR_SIGMA {
+                ui.label(RichText::new("default: blur keeps a dark frame visible to the map (hover for why)").small().color(look::ASH))
+                    .on_hover_text(DEFAULT_BASELINE_WHY);
             }
             // Parameters of every baseline stay visible: the strip uses them all.
             ui.collapsing("baseline parameters", |ui| {
@@ -763,7 +779,7 @@ pub fn drop_hint(ui: &mut egui::Ui) {
         return;
     }
     let rect = ui.ctx().content_rect();
-    let painter = ui.ctx().layer_painter(egui::LayerId::new(egui::Order::Foreground, egui::Id::new("drop")));
+    let painter = ui.ctx().layer_painter(egui::LayerId::new(egui::Order::Foreground, egui::Id::unique("drop")));
     painter.rect_filled(rect, 0.0, Color32::from_black_alpha(170));
     painter.text(rect.center(), Align2::CENTER_CENTER, "drop to open: .onnx as the model, images and folders as images", FontId::proportional(20.0), look::CHALK);
     let _ = Vec2::ZERO;
