@@ -12,6 +12,8 @@
 mod binary;
 mod conv;
 mod einsum;
+mod gather;
+mod lrn;
 mod pool;
 mod reduce;
 mod shape;
@@ -58,6 +60,8 @@ const FAMILIES: &[(&str, Build)] = &[
     ("pool", pool::build),
     ("reduce", reduce::build),
     ("shape", shape::build),
+    ("gather", gather::build),
+    ("lrn", lrn::build),
 ];
 
 fn lookup(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {

@@ -168,6 +168,24 @@ save("resize_nearest_sizes", [N("Resize", ["x", "", "", "sz"], ["r"], mode="near
                               N("Mul", ["r", "c"], ["y"])], (1, 2, 4, 5),
      [numpy_helper.from_array(np.array([1, 2, 6, 7], dtype=np.int64), "sz"), const("c", w(2, 6, 7))], [])
 
+# Gathers (the torch.export exporter writes GatherND for adaptive pooling); repeated and negative
+# indices must add up in the reverse step.
+I64 = lambda name, a: numpy_helper.from_array(np.array(a, dtype=np.int64), name)
+save("gather_axis_repeats", [N("Gather", ["x", "ix"], ["g"], axis=2), N("Mul", ["g", "c"], ["y"])], X,
+     [I64("ix", [[0, 2], [5, 2]]), const("c", w(3, 2, 2, 6))], ["Gather"])
+save("gather_negative", [N("Gather", ["x", "ix"], ["g"], axis=3), N("Mul", ["g", "c"], ["y"])], X,
+     [I64("ix", [-1, 0, 3, -1]), const("c", w(3, 6, 4))], ["Gather"])
+save("gathernd", [N("GatherND", ["x", "ix"], ["g"]), N("Mul", ["g", "c"], ["y"])], X,
+     [I64("ix", [[0, 1, 2], [0, 2, 5], [0, 1, 2]]), const("c", w(3, 6))], ["GatherNd"])
+save("gathernd_batch", [N("GatherND", ["x", "ix"], ["g"], batch_dims=1), N("Mul", ["g", "c"], ["y"])], X,
+     [I64("ix", [[[1, 0], [2, 5], [1, 0], [0, 3]]]), const("c", w(1, 4, 6))], ["GatherNd"])
+
+# Local response normalisation across channels (AlexNet / GoogLeNet exports); onnxruntime takes odd sizes only.
+save("lrn_odd", [N("LRN", ["x"], ["l"], size=3, alpha=0.8, beta=0.75, bias=1.0), N("Mul", ["l", "c"], ["y"])], (1, 5, 3, 3),
+     [const("c", w(5, 3, 3))], ["Lrn"])
+save("lrn_wide", [N("LRN", ["x"], ["l"], size=5, alpha=0.5, beta=0.6, bias=2.0), N("Mul", ["l", "c"], ["y"])], (1, 6, 2, 3),
+     [const("c", w(6, 2, 3))], ["Lrn"])
+
 with open(os.path.join(OUT, "ops.json"), "w") as f:
     json.dump(manifest, f, indent=1, sort_keys=True)
 print(len(manifest), "fixtures")
