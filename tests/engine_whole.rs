@@ -103,7 +103,9 @@ fn gradients_match_onnxruntime_directional_derivatives() {
 
 /// Classifier exports shipped inside the `onnx` package from PyPI (its backend test data,
 /// written by the ONNX project, not here): they load, report gradient coverage, and their
-/// forward equals onnxruntime's. Their weights are placeholders, so only the arithmetic counts.
+/// forward equals onnxruntime's. Their weights are constant placeholders (light_resnet50 gives
+/// 0.001 for every class), so this checks op coverage, not numbers; the trained export below
+/// checks the numbers.
 #[test]
 fn third_party_exports_run_like_onnxruntime() {
     let Some(py) = common::reference_python() else { return };
@@ -173,4 +175,58 @@ fn external_data_outside_the_folder_is_refused() {
         let e = format!("{:#}", Model::load(&folder.join("inside.onnx"), &LoadOptions::default()).err().expect("a link out was followed"));
         assert!(e.contains("outside the model's folder"), "{e}");
     }
+}
+
+/// A trained classifier nobody here wrote, shipped in a registry package: the text-direction
+/// classifier of rapidocr-onnxruntime 1.4.4 from PyPI (MobileNet-v3-style, PaddlePaddle export,
+/// opset 11, dynamic height and width; .ci/run installs the wheel with --no-deps for the file).
+/// Forward equals onnxruntime's; the exact gradient of the class-0 probability matches
+/// onnxruntime's directional derivatives (ReLU / hard-sigmoid kinks: the few-percent bar).
+#[test]
+fn a_trained_third_party_classifier_matches_onnxruntime() {
+    let Some(py) = common::reference_python() else { return };
+    let found = std::process::Command::new(&py)
+        .args([
+            "-c",
+            "import importlib.util; print(importlib.util.find_spec('rapidocr_onnxruntime').submodule_search_locations[0])",
+        ])
+        .output()
+        .expect("run python");
+    let pkg = PathBuf::from(String::from_utf8_lossy(&found.stdout).trim());
+    let path = pkg.join("models/ch_ppocr_mobile_v2.0_cls_infer.onnx");
+    assert!(path.exists(), "{} missing: .ci/run installs tests/reference/requirements-models.txt", path.display());
+    let m = Model::load(&path, &LoadOptions { input_shape: Some(vec![1, 3, 48, 192]) }).unwrap();
+    m.gradient_ready().unwrap();
+    // A line of dark glyph-like strokes on light paper, scaled as the package feeds it
+    // ((v / 255 − 0.5) / 0.5, from memory of its preprocessing; any scaling serves the check).
+    let x = ArrayD::from_shape_fn(ndarray::IxDyn(&[1, 3, 48, 192]), |i| {
+        let (y, x) = (i[2] as i64, i[3] as i64);
+        let glyph = x / 14;
+        let (gx, gy) = (x % 14, y - 12);
+        let ink = (8..176).contains(&x)
+            && (0..24).contains(&gy)
+            && (gx < 3 || (gy + glyph * 5) % 11 < 3 || (glyph % 3 == 0 && (gx - gy / 2).abs() < 2));
+        if ink { -0.8 } else { 0.9 - 0.001 * (x + y) as f32 }
+    });
+    let out = tempfile::tempdir().unwrap();
+    let xp = out.path().join("line.npy");
+    spurion::feed::write_tensor(&xp, &x).unwrap();
+    let report = ort(&py, out.path(), &[format!("cls={}:{}:0", path.display(), xp.display())]);
+    let fwd = forward_rel(&m, &x, &read_tensor(&out.path().join("cls.y.npy")).unwrap());
+    let n = m.output_len();
+    let g = m.gradient(&x, Tap::Output, &move |_: &Array1<f32>| one_hot(n, 0)).unwrap().grad;
+    let fd: Vec<f64> = report["cls"]["dd"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+    let ours: Vec<f64> = (0..3)
+        .map(|k| {
+            let d = read_tensor(&out.path().join(format!("cls.d{k}.npy"))).unwrap();
+            g.iter().zip(d.iter()).map(|(a, b)| *a as f64 * *b as f64).sum()
+        })
+        .collect();
+    let scale = fd.iter().fold(0f64, |m, v| m.max(v.abs()));
+    let err = ours.iter().zip(&fd).fold(0f64, |m, (a, b)| m.max((a - b).abs())) / scale;
+    let y = m.forward(&x, Tap::Output).unwrap();
+    eprintln!("rapidocr cls: p = {y:?}, forward rel {fwd:.1e}, directional rel {err:.1e}, ours {ours:.4?} ort {fd:.4?}");
+    assert!(fwd < 1e-4, "forward rel {fwd:.2e}");
+    assert!(scale > 1e-7, "directional derivatives ~0: the class is saturated, pick another input");
+    assert!(err < 5e-2, "directional rel {err:.2e}");
 }
