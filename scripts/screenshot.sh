@@ -21,7 +21,7 @@ cargo test --test gui_inspector --no-run
 [ -x target/debug/spurion ] || { echo "target/debug/spurion was not built; run cargo test --test gui_inspector" >&2; exit 1; }
 
 display=":${SPURION_XVFB_DISPLAY:-87}"
-Xvfb "$display" -screen 0 1440x900x24 -nolisten tcp >/tmp/spurion-xvfb.log 2>&1 &
+Xvfb "$display" -screen 0 1360x860x24 -nolisten tcp >/tmp/spurion-xvfb.log 2>&1 &
 xvfb_pid=$!
 app_pid=""
 cleanup() {
@@ -30,6 +30,7 @@ cleanup() {
 }
 trap cleanup EXIT
 sleep 1
+# The screen is the window's size (src/gui/mod.rs), so the picture is the window alone.
 # A fresh config folder, so the picture does not show this machine's recent files.
 export XDG_CONFIG_HOME
 XDG_CONFIG_HOME="$(mktemp -d)"

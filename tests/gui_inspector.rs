@@ -187,6 +187,9 @@ fn strip_shows_every_baseline_and_the_engines_agreement() {
 fn a_dialog_that_returns_nothing_is_explained() {
     let tmp = tempfile::tempdir().unwrap();
     let mut h = harness(vec![], tmp.path());
+    // The top bar's model label changes width when the model is in, which moves the buttons:
+    // wait for it, so a click is not aimed at where a button was a frame earlier.
+    wait_for(&mut h, "the model", 120, |a| a.session.is_some());
     h.step();
     h.get_by_label("Model…").click();
     h.run_steps(2);

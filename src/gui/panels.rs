@@ -587,7 +587,10 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
 // -------------------------------------------------------------------- baseline strip
 
 pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
-    egui::Panel::bottom("strip").resizable(true).default_size(250.0).min_size(120.0).show(ui, |ui| {
+    egui::Panel::bottom("strip").resizable(true).default_size(255.0).min_size(120.0).show(ui, |ui| {
+        // A panel is as tall as its content: fill the height it was given (default or dragged),
+        // else the strip settles at whatever its first, empty frame needed.
+        ui.set_min_height(ui.available_height());
         ui.add_space(4.0);
         ui.horizontal(|ui| {
             ui.heading("Baseline strip");
@@ -624,7 +627,9 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
             plan.keys().into_iter().filter_map(|k| app.cache.done(&k).cloned().map(|s| (k, s))).collect();
         let shared = done.iter().map(|(k, s)| app.scale_of(k, s)).fold(0.0f32, f32::max);
         let agreement = app.current_agreement();
-        let tile = (ui.available_height() - 70.0).clamp(60.0, 190.0);
+        // Tiles as large as the height allows, but all of them beside the agreement matrix.
+        let across = (ui.available_width() - 340.0) / plan.tiles.len().max(1) as f32 - 10.0;
+        let tile = (ui.available_height() - 88.0).min(across).clamp(60.0, 190.0);
         ui.horizontal_top(|ui| {
             egui::ScrollArea::horizontal().id_salt("strip tiles").max_width(ui.available_width() - 330.0).show(ui, |ui| {
                 ui.horizontal_top(|ui| {
@@ -633,14 +638,14 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
                             ui.set_width(tile);
                             match key {
                                 Err(why) => {
-                                    ui.label(RichText::new(format!("not read: {}", choice.name())).strong());
+                                    tile_title(ui, format!("not read: {}", choice.name()));
                                     ui.label(RichText::new(why).small().color(look::ASH));
                                 }
                                 Ok(k) => match app.cache.slots.get(k) {
                                     Some(Slot::Done(s)) => {
                                         let s = s.clone();
                                         let scale = if app.strip.per_map_scale { app.scale_of(k, &s) } else { shared };
-                                        ui.label(RichText::new(format!("map · {}", k.ask.baseline.label())).strong());
+                                        tile_title(ui, format!("map · {}", k.ask.baseline.label()));
                                         let (rect, _) = ui.allocate_exact_size(vec2(tile, tile), Sense::hover());
                                         let (w, h) = (prepared.picture.width() as f32, prepared.picture.height() as f32);
                                         let z = (tile / w).min(tile / h);
@@ -659,15 +664,15 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
                                         ui.label(RichText::new(ms_text).small());
                                     }
                                     Some(Slot::Pending(_)) => {
-                                        ui.label(RichText::new(k.ask.baseline.label()).strong());
+                                        tile_title(ui, k.ask.baseline.label());
                                         ui.spinner();
                                     }
                                     Some(Slot::Failed(e)) => {
-                                        ui.label(RichText::new(k.ask.baseline.label()).strong());
+                                        tile_title(ui, k.ask.baseline.label());
                                         ui.label(RichText::new(e).small().color(look::SIGNAL));
                                     }
                                     None => {
-                                        ui.label(RichText::new(k.ask.baseline.label()).strong());
+                                        tile_title(ui, k.ask.baseline.label());
                                         ui.label(RichText::new("not read (cancelled)").small());
                                     }
                                 },
@@ -721,6 +726,16 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
                 }
             });
         });
+    });
+}
+
+/// A strip tile's title in a box two lines high, so the maps under long and short titles line up.
+fn tile_title(ui: &mut egui::Ui, text: String) {
+    let h = 2.0 * ui.text_style_height(&egui::TextStyle::Body) + 2.0;
+    let w = ui.available_width();
+    ui.allocate_ui_with_layout(vec2(w, h), egui::Layout::top_down(egui::Align::Min), |ui| {
+        ui.set_min_size(vec2(w, h));
+        ui.label(RichText::new(text).strong());
     });
 }
 
