@@ -165,6 +165,14 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
             .map(|g| format!(", completeness gap {:.3}% ({} steps)", g * 100.0, reading.steps.unwrap_or(0)))
             .unwrap_or_default()
     );
+    // The IG paper's advice is a gap within 5% (Sundararajan et al. 2017, section 3).
+    if let Some(g) = reading.completeness_gap.filter(|g| *g > 0.05) {
+        println!(
+            "note: a completeness gap of {:.1}% means the steps do not resolve the path integral; \
+             raise --steps or add --adaptive before reading the map",
+            g * 100.0
+        );
+    }
     if let Some((flag, why)) = suspect {
         println!("{}", if flag { format!("SUSPECT: {why}") } else { format!("not suspect: {why}") });
     }
