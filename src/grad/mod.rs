@@ -374,11 +374,6 @@ pub(crate) fn unbroadcast(mut g: ArrayD<f32>, shape: &[usize]) -> Result<ArrayD<
     Ok(g)
 }
 
-/// An owned tensor from an ndarray value (standard layout).
-pub(crate) fn to_tensor(a: ArrayD<f32>) -> Tensor {
-    Tensor::from(a)
-}
-
 /// An owned ndarray from a tract tensor.
 pub(crate) fn to_array(t: &Tensor) -> Result<ArrayD<f32>> {
     Ok(t.to_plain_array_view::<f32>().map_err(|e| anyhow!("{e}"))?.to_owned())

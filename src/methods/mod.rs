@@ -18,7 +18,7 @@ use std::path::PathBuf;
 use std::time::Instant;
 
 use anyhow::{Context, Result, bail};
-use ndarray::{Array1, Array2, Array3, ArrayD, Axis, Slice};
+use ndarray::{Array1, Array2, Array3, ArrayD, Axis};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal, Uniform};
@@ -635,35 +635,15 @@ fn occlusion(
     ctl.advance(1);
     let mut total = Array2::<f64>::zeros((h, w));
     let mut count = Array2::<f64>::zeros((h, w));
-    for chunk in wins.chunks(32) {
-        ctl.check()?;
-        let batch: Vec<ArrayD<f32>> = chunk
-            .iter()
-            .map(|&(y0, x0)| {
-                let (y1, x1) = ((y0 + window).min(h), (x0 + window).min(w));
-                let pick = |ax: ndarray::AxisDescription| {
-                    if ax.axis.index() == spatial[0] {
-                        Slice::from(y0..y1)
-                    } else if ax.axis.index() == spatial[1] {
-                        Slice::from(x0..x1)
-                    } else {
-                        Slice::from(..)
-                    }
-                };
-                let mut t = x.clone();
-                t.slice_each_axis_mut(pick).assign(&xb.slice_each_axis(pick));
-                t
-            })
-            .collect();
-        let outs = model.forward_many(&batch, scorer.tap, ctl)?;
-        for (&(y0, x0), o) in chunk.iter().zip(&outs) {
-            let d = (score_x - scorer.score(o)) as f64;
-            let (y1, x1) = ((y0 + window).min(h), (x0 + window).min(w));
-            for yy in y0..y1 {
-                for xx in x0..x1 {
-                    total[[yy, xx]] += d;
-                    count[[yy, xx]] += 1.0;
-                }
+    // All windows in one call: the incremental plan is prepared once for the whole set.
+    let outs = model.occluded_outputs(x, xb, spatial, window, &wins, scorer.tap, ctl)?;
+    for (&(y0, x0), o) in wins.iter().zip(&outs) {
+        let d = (score_x - scorer.score(o)) as f64;
+        let (y1, x1) = ((y0 + window).min(h), (x0 + window).min(w));
+        for yy in y0..y1 {
+            for xx in x0..x1 {
+                total[[yy, xx]] += d;
+                count[[yy, xx]] += 1.0;
             }
         }
     }

@@ -8,6 +8,7 @@
 //! runs.
 
 mod load;
+mod occlude;
 
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, OnceLock};
@@ -337,6 +338,68 @@ impl Model {
                 },
             )
             .collect()
+    }
+
+    /// Tapped outputs of `x` with each window `wins[i]` (top-left corner, side `window`, on the
+    /// spatial axes `spatial`) replaced by the same window of `xb`. NCHW inputs go through
+    /// [`occlude::Occluder`], which recomputes only what a window changes; anything else (or a
+    /// graph where that saves nothing) through plain forwards. Order kept; `ctl` advances by one
+    /// per window.
+    pub fn occluded_outputs(
+        &self,
+        x: &ArrayD<f32>,
+        xb: &ArrayD<f32>,
+        spatial: [usize; 2],
+        window: usize,
+        wins: &[(usize, usize)],
+        tap: Tap,
+        ctl: &Control,
+    ) -> Result<Vec<Array1<f32>>> {
+        self.check_input(x)?;
+        self.check_input(xb)?;
+        let tap_outlet = self.tap_outlet(tap)?;
+        if spatial == [2, 3] && x.ndim() == 4 && std::env::var_os("SPURION_PLAIN_OCCLUSION").is_none() {
+            let input = self.graph.input_outlets().map_err(|e| anyhow!("{e}"))?[0];
+            // A graph the occluder cannot prepare still gets plain forwards below.
+            if let Ok(Some(occ)) = occlude::Occluder::build(&self.graph, input, tap_outlet, x, window, wins) {
+                let outs = occ.outputs(xb, window, wins, ctl)?;
+                for o in &outs {
+                    check_finite(&self.path, o.as_slice().unwrap_or(&o.to_vec()))?;
+                }
+                return Ok(outs);
+            }
+        }
+        let mut outs = Vec::with_capacity(wins.len());
+        for chunk in wins.chunks(32) {
+            ctl.check().map_err(anyhow::Error::new)?;
+            let batch: Vec<ArrayD<f32>> = chunk
+                .iter()
+                .map(|&(y0, x0)| {
+                    let pick = |ax: ndarray::AxisDescription| {
+                        let i = ax.axis.index();
+                        if i == spatial[0] {
+                            ndarray::Slice::from(y0..(y0 + window).min(ax.len))
+                        } else if i == spatial[1] {
+                            ndarray::Slice::from(x0..(x0 + window).min(ax.len))
+                        } else {
+                            ndarray::Slice::from(..)
+                        }
+                    };
+                    let mut t = x.clone();
+                    t.slice_each_axis_mut(pick).assign(&xb.slice_each_axis(pick));
+                    t
+                })
+                .collect();
+            outs.extend(self.forward_many(&batch, tap, ctl)?);
+        }
+        Ok(outs)
+    }
+
+    /// How many nodes the incremental occlusion runs on crops before the rest of the graph
+    /// (0: it would use plain forwards). For tests and diagnostics.
+    pub fn incremental_occlusion_nodes(&self, x: &ArrayD<f32>, window: usize, wins: &[(usize, usize)], tap: Tap) -> Result<usize> {
+        let input = self.graph.input_outlets().map_err(|e| anyhow!("{e}"))?[0];
+        Ok(occlude::Occluder::build(&self.graph, input, self.tap_outlet(tap)?, x, window, wins)?.map_or(0, |o| o.prefix_len()))
     }
 
     pub fn gradient(
