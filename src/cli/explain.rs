@@ -25,13 +25,15 @@ pub struct ExplainArgs {
     /// mean:DIR | image:PATH | tensor:PATH.npy | folder:DIR (expected-gradients draws)
     #[arg(long, default_value = "black")]
     pub baseline: String,
-    /// Integrated-gradients steps (the start count when --adaptive).
-    #[arg(long, default_value_t = methods::DEFAULT_STEPS)]
-    pub steps: usize,
-    /// Integrated-gradients quadrature: gauss-legendre | midpoint | trapezoid.
+    /// Integrated-gradients steps, a fixed count. Without --steps, integrated gradients start at
+    /// 64 and refine until the completeness gap is below 1% (as --adaptive does).
+    #[arg(long)]
+    pub steps: Option<usize>,
+    /// Integrated-gradients quadrature for a fixed --steps: gauss-legendre | midpoint | trapezoid.
     #[arg(long, default_value = "gauss-legendre")]
     pub rule: String,
-    /// Refine integrated gradients until the completeness gap is below GAP (relative).
+    /// Refine integrated gradients (from --steps, default 64) until the completeness gap is
+    /// below GAP (relative; default 0.01); the default when --steps is not given.
     #[arg(long, num_args = 0..=1, default_missing_value = "0.01", value_name = "GAP")]
     pub adaptive: Option<f32>,
     /// Occlusion window side in model-input pixels.
@@ -104,7 +106,14 @@ pub(crate) fn control_for(bar: &ProgressBar) -> Control {
 pub fn parse_method(a: &ExplainArgs) -> Result<Method> {
     Ok(match a.method.as_str() {
         "integrated-gradients" | "ig" => {
-            Method::IntegratedGradients { steps: a.steps, rule: Rule::parse(&a.rule)?, adaptive: a.adaptive }
+            match (a.steps, a.adaptive) {
+                (Some(steps), None) => Method::IntegratedGradients { steps, rule: Rule::parse(&a.rule)?, adaptive: None },
+                (steps, gap) => Method::IntegratedGradients {
+                    steps: steps.unwrap_or(methods::DEFAULT_STEPS),
+                    rule: Rule::Midpoint,
+                    adaptive: Some(gap.unwrap_or(methods::DEFAULT_ADAPTIVE_GAP)),
+                },
+            }
         }
         "occlusion" => Method::Occlusion { window: a.window, stride: a.stride },
         "gradient" | "saliency" => Method::Gradient,

@@ -29,7 +29,8 @@ use crate::feed::{FeedCard, Feeder, OutputKind, Picture};
 use crate::model::{Gradient, Model, Tap};
 use baseline::{FolderCache, Space};
 
-/// Default integrated-gradients step count and rule.
+/// Integrated-gradients step count (the start of the default adaptive refinement) and the rule
+/// for a fixed step count.
 pub const DEFAULT_STEPS: usize = 64;
 pub const DEFAULT_RULE: Rule = Rule::GaussLegendre;
 /// Default completeness-gap target of adaptive integrated gradients: the paper's advice is
@@ -87,8 +88,12 @@ impl Method {
         !matches!(self, Method::Occlusion { .. })
     }
 
+    /// The default reading: integrated gradients refined from [`DEFAULT_STEPS`] midpoint steps
+    /// until the completeness gap is under [`DEFAULT_ADAPTIVE_GAP`]. A fixed count is not enough
+    /// on ReLU networks: 64 Gauss–Legendre steps left gaps of 1.4–3.4 % on the control sample
+    /// model, where refinement needed 192–576 steps (measured with `spurion explain --adaptive`).
     pub fn integrated_gradients() -> Method {
-        Method::IntegratedGradients { steps: DEFAULT_STEPS, rule: DEFAULT_RULE, adaptive: None }
+        Method::IntegratedGradients { steps: DEFAULT_STEPS, rule: Rule::Midpoint, adaptive: Some(DEFAULT_ADAPTIVE_GAP) }
     }
 }
 
