@@ -233,12 +233,23 @@ fn backdrop(input: &Input, map2: &Array2<f32>) -> Array3<f32> {
     match input {
         Input::Picture { picture, .. } => picture.pixels.clone(),
         Input::Tensor { tensor, .. } => {
+            // The mean over the non-spatial axes (channels), wherever the layout puts them.
             let (h, w) = map2.dim();
-            let flat: Vec<f32> = tensor.iter().cloned().collect();
-            let plane = if flat.len() >= h * w { &flat[..h * w] } else { &flat[..] };
+            let mut plane = Array2::<f32>::zeros((h, w));
+            let mut count = Array2::<f32>::zeros((h, w));
+            if let Ok([ay, ax]) = input.spatial_axes() {
+                for (ix, v) in tensor.indexed_iter() {
+                    let (y, x) = (ix[ay], ix[ax]);
+                    if y < h && x < w {
+                        plane[[y, x]] += *v;
+                        count[[y, x]] += 1.0;
+                    }
+                }
+            }
+            plane.zip_mut_with(&count, |p, c| *p /= c.max(1.0));
             let (lo, hi) = plane.iter().fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
             let span = (hi - lo).max(f32::EPSILON);
-            Array3::from_shape_fn((h, w, 1), |(y, x, _)| plane.get(y * w + x).map(|v| (v - lo) / span).unwrap_or(0.0))
+            Array3::from_shape_fn((h, w, 1), |(y, x, _)| (plane[[y, x]] - lo) / span)
         }
     }
 }
