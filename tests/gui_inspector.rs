@@ -66,8 +66,10 @@ fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Inspector> {
         GuiOptions { model: Some(model_path()), paths: images },
         InspectorConfig::headless(dir),
     );
-    // Keep the test quick: few IG steps (the figures are compared for the same settings).
+    // Keep the test quick: few fixed IG steps (the figures are compared for the same
+    // settings); the refined default is checked in src/gui/engine.rs.
     app.form.steps = STEPS;
+    app.form.refine = false;
     drive(app)
 }
 

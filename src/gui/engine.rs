@@ -65,10 +65,18 @@ pub fn request_of(ask: &Ask) -> Result<Request> {
     let method = match ask.method {
         MethodChoice::Gradient => Method::Gradient,
         MethodChoice::GradientXInput => Method::GradientXInput,
-        MethodChoice::IntegratedGradients => Method::IntegratedGradients {
-            steps: p("steps")?.parse()?,
-            rule: methods::DEFAULT_RULE,
-            adaptive: None,
+        MethodChoice::IntegratedGradients => match p("refine")?.parse::<bool>()? {
+            // Refined as the engine's default reading is; the step count is where it starts.
+            true => Method::IntegratedGradients {
+                steps: p("steps")?.parse()?,
+                rule: methods::Rule::Midpoint,
+                adaptive: Some(methods::DEFAULT_ADAPTIVE_GAP),
+            },
+            false => Method::IntegratedGradients {
+                steps: p("steps")?.parse()?,
+                rule: methods::DEFAULT_RULE,
+                adaptive: None,
+            },
         },
         MethodChoice::SmoothGrad => Method::SmoothGrad {
             noise: p("noise")?.parse()?,
@@ -110,4 +118,27 @@ pub fn read(session: &Session, prepared: &Prepared, ask: &Ask, ctl: &Control) ->
     let spread = Spread::of(&map);
     let assessment = assess_regions(&map, &prepared.regions, &FlagSettings::default())?;
     Ok(Shown { reading: Arc::new(reading), map, spread, assessment })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::gui::form::{BaselineSpec, Form};
+
+    #[test]
+    fn integrated_gradients_refine_by_default_and_run_fixed_when_asked() {
+        let mut form = Form::default();
+        let r = request_of(&form.ask_with(BaselineSpec::Black)).unwrap();
+        assert_eq!(
+            r.method,
+            Method::IntegratedGradients {
+                steps: form.steps,
+                rule: methods::Rule::Midpoint,
+                adaptive: Some(methods::DEFAULT_ADAPTIVE_GAP)
+            }
+        );
+        form.refine = false;
+        let r = request_of(&form.ask_with(BaselineSpec::Black)).unwrap();
+        assert_eq!(r.method, Method::IntegratedGradients { steps: form.steps, rule: methods::DEFAULT_RULE, adaptive: None });
+    }
 }

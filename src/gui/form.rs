@@ -127,6 +127,8 @@ pub const BLACK_BASELINE_CAVEAT: &str = "black = the dark frame: x − x′ = 0 
 pub struct Form {
     pub method: MethodChoice,
     pub steps: usize,
+    /// Integrated gradients: refine from `steps` until the completeness gap is under 1%.
+    pub refine: bool,
     pub samples: usize,
     pub smooth_noise: f32,
     pub seed: u64,
@@ -149,6 +151,7 @@ impl Default for Form {
         Form {
             method: MethodChoice::IntegratedGradients,
             steps: 32,
+            refine: true,
             samples: 16,
             smooth_noise: 0.15,
             seed: 7,
@@ -271,7 +274,9 @@ impl Form {
     pub fn ask_with(&self, baseline: BaselineSpec) -> Ask {
         let method_params = match self.method {
             MethodChoice::Gradient | MethodChoice::GradientXInput => vec![],
-            MethodChoice::IntegratedGradients => vec![("steps", self.steps.to_string())],
+            MethodChoice::IntegratedGradients => {
+                vec![("steps", self.steps.to_string()), ("refine", self.refine.to_string())]
+            }
             MethodChoice::SmoothGrad => vec![
                 ("samples", self.samples.to_string()),
                 ("noise", num(self.smooth_noise)),
@@ -314,7 +319,17 @@ impl Form {
 impl Ask {
     /// One line describing the reading, for tiles, tooltips and file names.
     pub fn describe(&self) -> String {
-        let params: Vec<String> = self.method_params.iter().map(|(k, v)| format!("{k} {v}")).collect();
+        let refined = self.method_params.iter().any(|(k, v)| *k == "refine" && v == "true");
+        let params: Vec<String> = self
+            .method_params
+            .iter()
+            .filter_map(|(k, v)| match (*k, refined) {
+                ("refine", true) => Some("refined to a 1 % gap".to_string()),
+                ("refine", false) => None,
+                ("steps", true) => Some(format!("from {v} steps")),
+                _ => Some(format!("{k} {v}")),
+            })
+            .collect();
         let mut s = self.method.name().to_string();
         if !params.is_empty() {
             s.push_str(&format!(" ({})", params.join(", ")));

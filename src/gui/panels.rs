@@ -172,7 +172,14 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 }
             });
             match f.method {
-                MethodChoice::IntegratedGradients => labelled_drag(ui, "steps", &mut f.steps, 1..=1024, 0.5),
+                MethodChoice::IntegratedGradients => {
+                    labelled_drag(ui, if f.refine { "start steps" } else { "steps" }, &mut f.steps, 1..=1024, 0.5);
+                    ui.checkbox(&mut f.refine, "refine until the completeness gap is under 1 %").on_hover_text(
+                        "Triples the midpoint steps (reusing every gradient) until the attributions sum to \
+                         F(x) − F(x′) within 1 %, up to 2187 steps. A larger gap means the path integral \
+                         is not resolved and the map should not be read yet.",
+                    );
+                }
                 MethodChoice::SmoothGrad => {
                     labelled_drag(ui, "samples", &mut f.samples, 1..=512, 0.5);
                     labelled_drag(ui, "noise (share of range)", &mut f.smooth_noise, 0.0..=1.0, 0.005);
