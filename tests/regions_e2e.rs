@@ -33,7 +33,7 @@ fn suspects(model: &str, files: &[String]) -> (usize, Vec<f64>) {
         let r = explain(&m, Some(&card), &Input::picture(pic, &card).unwrap(), &req, &Control::new()).unwrap();
         let a = assess(&r.map2d(), &lum, &FinderSettings::default(), &FlagSettings::default()).unwrap();
         n += a.suspect as usize;
-        best.push(a.regions.iter().filter_map(|x| x.mark_share).fold(0.0, f64::max));
+        best.push(a.regions.iter().filter_map(|x| x.figures.mark_share).fold(0.0, f64::max));
     }
     (n, best)
 }

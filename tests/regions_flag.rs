@@ -24,15 +24,15 @@ fn map_on_the_tag_is_suspect_and_a_flat_map_is_not() {
     assert!(a.suspect, "{}", a.reason);
     assert!(a.reason.contains("burned-in mark"), "{}", a.reason);
     let mark = a.regions.iter().find(|r| r.kind == RegionKind::BurnedInMark).unwrap();
-    assert!(mark.suspect && mark.mark_share.unwrap() > 0.5 && mark.lift.unwrap() > 50.0, "{mark:?}");
+    assert!(mark.suspect && mark.figures.mark_share.unwrap() > 0.5 && mark.figures.lift.unwrap() > 50.0, "{mark:?}");
     // A flat map: every region's share equals its area share, so every lift is 1.
     let flat = Array2::from_elem(img.dim(), 1.0f32);
     let b = assess(&flat, &img, &FinderSettings::default(), &FlagSettings::default()).unwrap();
     assert!(!b.suspect, "{}", b.reason);
     assert!(b.reason.starts_with("no region passes"), "{}", b.reason);
     for r in &b.regions {
-        assert!((r.lift.unwrap() - 1.0).abs() < 1e-9);
-        assert!((r.mark_share.unwrap() - r.area_fraction).abs() < 1e-12);
+        assert!((r.figures.lift.unwrap() - 1.0).abs() < 1e-9);
+        assert!((r.figures.mark_share.unwrap() - r.figures.area_fraction).abs() < 1e-12);
     }
     // Thresholds are settable: a low bar flags the flat map on the frame (share = its area
     // share, 1 − (248/256)² ≈ 0.0615 for a 4-px frame, lift 1).
@@ -40,7 +40,7 @@ fn map_on_the_tag_is_suspect_and_a_flat_map_is_not() {
     let c = assess(&flat, &img, &FinderSettings::default(), &low).unwrap();
     assert!(c.suspect && c.reason.contains("border band"), "{}", c.reason);
     let frame = c.regions.iter().find(|r| r.kind == RegionKind::BorderBand).unwrap();
-    assert!((frame.area_fraction - (1.0 - (248.0f64 / 256.0).powi(2))).abs() < 1e-9);
+    assert!((frame.figures.area_fraction - (1.0 - (248.0f64 / 256.0).powi(2))).abs() < 1e-9);
 }
 
 #[test]
@@ -53,7 +53,7 @@ fn union_of_regions_and_region_kinds() {
     let map = Array2::from_shape_fn((10, 10), |(y, x)| if (y == 0 || y == 9) && x < 5 { 4.0f32 } else { 60.0 / 90.0 });
     let quarter = FlagSettings { min_mark_share: 0.25, ..Default::default() };
     let a = assess_regions(&map, &regions, &quarter).unwrap();
-    assert!(a.regions.iter().all(|r| !r.suspect && (r.mark_share.unwrap() - 0.2).abs() < 1e-6));
+    assert!(a.regions.iter().all(|r| !r.suspect && (r.figures.mark_share.unwrap() - 0.2).abs() < 1e-6));
     let all = a.all_regions.as_ref().unwrap();
     assert!((all.mark_share.unwrap() - 0.4).abs() < 1e-6 && (all.lift.unwrap() - 4.0).abs() < 1e-5);
     assert!(a.suspect && a.reason.contains("together"), "{}", a.reason);

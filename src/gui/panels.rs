@@ -354,8 +354,8 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                         RichText::new(format!(
                             "{}: mark share {} · lift {}{}",
                             rr.label,
-                            fmt_opt(rr.mark_share, 2),
-                            fmt_opt(rr.lift, 1),
+                            fmt_opt(rr.figures.mark_share, 2),
+                            fmt_opt(rr.figures.lift, 1),
                             if rr.suspect { " · passes the flag rule" } else { "" }
                         ))
                         .small(),
@@ -554,7 +554,7 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
             for (i, (r, edges)) in prepared.regions.iter().zip(&prepared.region_edges).enumerate() {
                 painter.extend(edges.iter().map(|[a, b]| egui::Shape::line_segment([place.to_screen(*a), place.to_screen(*b)], stroke)));
                 let figures = shown.as_ref().and_then(|s| s.assessment.regions.get(i)).map(|rr| {
-                    format!(" · share {} · lift {}", fmt_opt(rr.mark_share, 2), fmt_opt(rr.lift, 1))
+                    format!(" · share {} · lift {}", fmt_opt(rr.figures.mark_share, 2), fmt_opt(rr.figures.lift, 1))
                 });
                 let text = format!("{}{}", r.label(), figures.unwrap_or_default());
                 // Label inside the image near the region's corner, clamped to the panel.

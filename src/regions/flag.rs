@@ -58,12 +58,9 @@ pub struct RegionReport {
     pub label: String,
     #[serde(rename = "box")]
     pub bbox: [usize; 4],
-    pub area_fraction: f64,
-    pub mark_share: Option<f64>,
-    pub lift: Option<f64>,
-    pub relevance_mass_accuracy: Option<f64>,
-    pub relevance_rank_accuracy: Option<f64>,
-    pub pointing_hit: Option<bool>,
+    /// Mark share, lift and the other figures of this region (flat in JSON).
+    #[serde(flatten)]
+    pub figures: Figures,
     pub confidence: f32,
     pub reason: String,
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
@@ -111,16 +108,11 @@ pub fn assess_regions(map: &Array2<f32>, regions: &[Region], s: &FlagSettings) -
             kind: r.kind,
             label: r.label(),
             bbox: r.bbox,
-            area_fraction: f.area_fraction,
-            mark_share: f.mark_share,
-            lift: f.lift,
-            relevance_mass_accuracy: f.relevance_mass_accuracy,
-            relevance_rank_accuracy: f.relevance_rank_accuracy,
-            pointing_hit: f.pointing_hit,
+            suspect: counts && passes(&f, s),
+            figures: f,
             confidence: r.confidence,
             reason: r.reason.clone(),
             sides: r.sides.clone(),
-            suspect: counts && passes(&f, s),
         });
     }
     let all_regions = if s.check_union && eligible > 0 {
@@ -132,7 +124,7 @@ pub fn assess_regions(map: &Array2<f32>, regions: &[Region], s: &FlagSettings) -
     let best = reports
         .iter()
         .filter(|r| r.suspect)
-        .max_by(|a, b| a.mark_share.unwrap_or(0.0).total_cmp(&b.mark_share.unwrap_or(0.0)));
+        .max_by(|a, b| a.figures.mark_share.unwrap_or(0.0).total_cmp(&b.figures.mark_share.unwrap_or(0.0)));
     let (suspect, reason) = if let Some(r) = best {
         (
             true,
@@ -140,9 +132,9 @@ pub fn assess_regions(map: &Array2<f32>, regions: &[Region], s: &FlagSettings) -
                 "the {part} attribution sits on the {} at {:?}: mark share {} (at least {}) and lift {} (at least {})",
                 r.label,
                 r.bbox,
-                fmt(r.mark_share),
+                fmt(r.figures.mark_share),
                 s.min_mark_share,
-                fmt(r.lift),
+                fmt(r.figures.lift),
                 s.min_lift
             ),
         )
@@ -162,7 +154,7 @@ pub fn assess_regions(map: &Array2<f32>, regions: &[Region], s: &FlagSettings) -
     } else {
         let top = reports
             .iter()
-            .max_by(|a, b| a.mark_share.unwrap_or(-1.0).total_cmp(&b.mark_share.unwrap_or(-1.0)))
+            .max_by(|a, b| a.figures.mark_share.unwrap_or(-1.0).total_cmp(&b.figures.mark_share.unwrap_or(-1.0)))
             .expect("reports is not empty");
         (
             false,
@@ -170,9 +162,9 @@ pub fn assess_regions(map: &Array2<f32>, regions: &[Region], s: &FlagSettings) -
                 "no region passes mark share at least {} and lift at least {}; the largest share is {} on the {} (lift {})",
                 s.min_mark_share,
                 s.min_lift,
-                fmt(top.mark_share),
+                fmt(top.figures.mark_share),
                 top.label,
-                fmt(top.lift)
+                fmt(top.figures.lift)
             ),
         )
     };
