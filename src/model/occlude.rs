@@ -3,14 +3,14 @@
 //! Occluding a window of an NCHW input changes the early activations of a CNN only near the
 //! window: a convolution or pool widens the changed box by its kernel's reach, a stride shrinks
 //! it, element-wise ops keep it. The plan here walks tract's decluttered graph once per window:
-//! while the changed box is small, each convolution / max pool runs on a fixed-size crop around
-//! it (a small plan built once per node with explicit padding taken out of the op and applied
-//! by filling the crop) and its output is the clean activation with the crop pasted in; cheap
-//! element-wise nodes run whole. Where the box grows past most of the map, or an op is not one
-//! of these, the rest of the graph (the *tail*) runs as one optimized tract plan from those
-//! activations. The result is the same arithmetic as a full forward (same ops, same kernels,
-//! only on fewer positions); `tests/methods_reference.rs` holds it equal to an independent
-//! onnxruntime occlusion and to spurion's plain forwards.
+//! while the changed box is small, each convolution, max pool, 1×1 einsum, element-wise op and
+//! downsampling runs on a fixed-size crop around it (a small plan built once per node; padding
+//! is taken out of the op and applied by filling the crop), and its output is the clean
+//! activation with the crop patched in. Where the box grows past most of the map, or an op is
+//! not one of these, the rest of the graph (the *tail*) runs as one optimized tract plan from
+//! those activations. The result is the same arithmetic as a full forward (same ops, same
+//! kernels, only on fewer positions); `tests/occlusion_incremental.rs` holds it equal to plain
+//! forwards and `tests/methods_reference.rs` to an independent onnxruntime occlusion.
 
 use std::collections::HashMap;
 
@@ -68,8 +68,16 @@ struct Step {
     kind: Kind,
 }
 
+/// A node that joins the prefix, as pass 1 of [`Occluder::build`] found it.
+struct Candidate {
+    node: usize,
+    inputs: Vec<Src>,
+    rule: Rule,
+    /// The largest changed box over all windows (rows, cols).
+    big: [usize; 2],
+}
+
 /// How a node maps changed boxes.
-#[derive(Clone)]
 enum Rule {
     /// Element-wise: the union of the inputs' boxes.
     Same,
@@ -176,10 +184,6 @@ fn node_plan(g: &TypedModel, node: &TypedNode, op: Box<dyn TypedOp>, src_shapes:
     TypedSimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))
 }
 
-fn run(plan: &Plan, inputs: Vec<Tensor>) -> Result<ArrayD<f32>> {
-    crate::grad::run_sub(plan, inputs)
-}
-
 impl Occluder {
     /// Prepares the plan for windows `wins` of side `window` on an NCHW input `x`; `None` when
     /// the graph offers nothing to save (then plain forwards are just as good).
@@ -194,14 +198,13 @@ impl Occluder {
         let Some(hw) = nchw_hw(g.outlet_fact(input)?) else { return Ok(None) };
         let order = g.eval_order()?;
         // Pass 1: which nodes can join the prefix and the largest box each gets over all windows.
-        let mut rules: HashMap<usize, Rule> = HashMap::new();
+        // Value k + 1 is the output of prefix[k]; value 0 is the input.
         let mut index: HashMap<OutletId, usize> = HashMap::from([(input, 0)]);
-        let mut prefix_nodes: Vec<usize> = vec![];
+        let mut prefix: Vec<Candidate> = vec![];
         let mut boxes: Vec<Vec<Option<Bx>>> = wins
             .iter()
             .map(|&(y0, x0)| vec![Some([(y0, (y0 + window).min(hw[0])), (x0, (x0 + window).min(hw[1]))])])
             .collect();
-        let mut largest: Vec<[usize; 2]> = vec![[window.min(hw[0]), window.min(hw[1])]];
         for &n in &order {
             let node = g.node(n);
             if n == input.node || node.op_is::<tract_onnx::tract_core::ops::konst::Const>() || n == tap.node {
@@ -280,12 +283,10 @@ impl Occluder {
                 }
                 continue;
             }
-            index.insert(OutletId::new(n, 0), largest.len());
-            largest.push(big);
-            rules.insert(n, rule);
-            prefix_nodes.push(n);
+            index.insert(OutletId::new(n, 0), prefix.len() + 1);
+            prefix.push(Candidate { node: n, inputs: srcs, rule, big: [big[0].max(1), big[1].max(1)] });
         }
-        let has_window = prefix_nodes.iter().any(|n| matches!(rules[n], Rule::Window { .. }));
+        let has_window = prefix.iter().any(|c| matches!(c.rule, Rule::Window { .. }));
         if !has_window {
             return Ok(None);
         }
@@ -335,7 +336,7 @@ impl Occluder {
         let tail = tail.into_optimized().map_err(|e| anyhow!("{e:#}"))?;
         let tail = TypedSimplePlan::new(tail).map_err(|e| anyhow!("{e:#}"))?;
         // Clean values of the prefix at x.
-        let outlets: Vec<OutletId> = prefix_nodes.iter().map(|n| OutletId::new(*n, 0)).collect();
+        let outlets: Vec<OutletId> = prefix.iter().map(|c| OutletId::new(c.node, 0)).collect();
         let clean_plan = optimized_plan(g, &outlets)?;
         let got = clean_plan.run(tvec!(Tensor::from(x.clone()).into_tvalue())).map_err(|e| anyhow!("{e:#}"))?;
         let mut clean = vec![x.clone()];
@@ -344,17 +345,10 @@ impl Occluder {
         }
         // Plans per prefix node.
         let mut steps = vec![];
-        for (k, &n) in prefix_nodes.iter().enumerate() {
+        for (k, Candidate { node: n, inputs, rule, big }) in prefix.into_iter().enumerate() {
             let node = g.node(n);
             let out = k + 1;
-            let inputs: Vec<Src> = node
-                .inputs
-                .iter()
-                .map(|i| if g.outlet_fact(*i).map(|f| f.konst.is_some()).unwrap_or(false) { Src::Const } else { Src::Val(index[i]) })
-                .collect();
             let feeds: Vec<usize> = (0..inputs.len()).filter(|s| matches!(inputs[*s], Src::Val(_))).collect();
-            let rule = rules[&n].clone();
-            let big = [largest[out][0].max(1), largest[out][1].max(1)];
             let channels = |slot: usize| -> Result<usize> {
                 Ok(g.outlet_fact(node.inputs[slot])?.shape.as_concrete().ok_or_else(|| anyhow!("symbolic shape"))?[1])
             };
@@ -391,8 +385,9 @@ impl Occluder {
                     crop(Box::new(op), inp, st, off, 0.0)?
                 }
                 Rule::Same => {
-                    // Constants must not vary over the spatial axes (they are not cropped).
-                    let flat = node.inputs.iter().zip(&inputs).all(|(i, s)| match s {
+                    // Constants must not vary over the spatial axes (they are not cropped); a
+                    // point-wise einsum's weights never touch them (checked in pass 1).
+                    let flat = node.op_is::<EinSum>() || node.inputs.iter().zip(&inputs).all(|(i, s)| match s {
                         Src::Val(_) => true,
                         Src::Const => g.outlet_fact(*i).is_ok_and(|f| {
                             let sh = f.shape.as_concrete().unwrap_or(&[]);
@@ -451,7 +446,7 @@ impl Occluder {
                             Tensor::from(materialize(&self.clean[v], patches[v].as_ref()))
                         })
                         .collect();
-                    Patch { at: [0, 0], data: run(plan, ins)? }
+                    Patch { at: [0, 0], data: crate::grad::run_sub(plan, ins)? }
                 }
                 Kind::Crop { plan, feeds, out, inp, stride, offset, fill } => {
                     let size = [self.clean[s.out].shape()[2], self.clean[s.out].shape()[3]];
@@ -467,7 +462,7 @@ impl Occluder {
                             Tensor::from(extract(&self.clean[v], patches[v].as_ref(), r0, *inp, *fill))
                         })
                         .collect();
-                    Patch { at: o0, data: run(plan, ins)? }
+                    Patch { at: o0, data: crate::grad::run_sub(plan, ins)? }
                 }
             };
             patches[s.out] = Some(patch);
