@@ -55,6 +55,11 @@ fn incremental_occlusion_equals_plain_forwards() {
         // Windows of 8 every 5 pixels on 40×40: edges, overlaps and a ragged last window.
         check(name, &m, &x, 8, 5, Tap::Output, name != "mixed");
     }
+    // A graph with nothing to crop (flatten and gemm) takes the plain-forward path.
+    let linear = Model::load(&common::fixture("methods/linear.onnx"), &LoadOptions::default()).unwrap();
+    let x = ArrayD::from_shape_fn(ndarray::IxDyn(&[1, 1, 8, 8]), |i| ((i[2] * 8 + i[3]) as f32 * 0.37).sin());
+    assert_eq!(linear.incremental_occlusion_nodes(&x, 3, &[(0, 0)], Tap::Output).unwrap(), 0);
+    check("linear (plain forwards)", &linear, &x, 3, 2, Tap::Output, false);
     let samples = common::root().join("sample-models");
     for name in ["shortcut", "shortcut-rgb224"] {
         let m = Model::load(&samples.join(format!("{name}.onnx")), &LoadOptions::default()).unwrap();

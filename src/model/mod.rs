@@ -357,11 +357,10 @@ impl Model {
     ) -> Result<Vec<Array1<f32>>> {
         self.check_input(x)?;
         self.check_input(xb)?;
-        let tap_outlet = self.tap_outlet(tap)?;
+        self.tap_outlet(tap)?;
         if spatial == [2, 3] && x.ndim() == 4 && std::env::var_os("SPURION_PLAIN_OCCLUSION").is_none() {
-            let input = self.graph.input_outlets().map_err(|e| anyhow!("{e}"))?[0];
             // A graph the occluder cannot prepare still gets plain forwards below.
-            if let Ok(Some(occ)) = occlude::Occluder::build(&self.graph, input, tap_outlet, x, window, wins) {
+            if let Ok(Some(occ)) = self.occluder(x, window, wins, tap) {
                 let outs = occ.outputs(xb, window, wins, ctl)?;
                 for o in &outs {
                     check_finite(&self.path, o.as_slice().unwrap_or(&o.to_vec()))?;
@@ -374,17 +373,8 @@ impl Model {
             ctl.check().map_err(anyhow::Error::new)?;
             let batch: Vec<ArrayD<f32>> = chunk
                 .iter()
-                .map(|&(y0, x0)| {
-                    let pick = |ax: ndarray::AxisDescription| {
-                        let i = ax.axis.index();
-                        if i == spatial[0] {
-                            ndarray::Slice::from(y0..(y0 + window).min(ax.len))
-                        } else if i == spatial[1] {
-                            ndarray::Slice::from(x0..(x0 + window).min(ax.len))
-                        } else {
-                            ndarray::Slice::from(..)
-                        }
-                    };
+                .map(|&corner| {
+                    let pick = occlude::window_pick(spatial, corner, window);
                     let mut t = x.clone();
                     t.slice_each_axis_mut(pick).assign(&xb.slice_each_axis(pick));
                     t
@@ -398,8 +388,12 @@ impl Model {
     /// How many nodes the incremental occlusion runs on crops before the rest of the graph
     /// (0: it would use plain forwards). For tests and diagnostics.
     pub fn incremental_occlusion_nodes(&self, x: &ArrayD<f32>, window: usize, wins: &[(usize, usize)], tap: Tap) -> Result<usize> {
+        Ok(self.occluder(x, window, wins, tap)?.map_or(0, |o| o.prefix_len()))
+    }
+
+    fn occluder(&self, x: &ArrayD<f32>, window: usize, wins: &[(usize, usize)], tap: Tap) -> Result<Option<occlude::Occluder>> {
         let input = self.graph.input_outlets().map_err(|e| anyhow!("{e}"))?[0];
-        Ok(occlude::Occluder::build(&self.graph, input, self.tap_outlet(tap)?, x, window, wins)?.map_or(0, |o| o.prefix_len()))
+        occlude::Occluder::build(&self.graph, input, self.tap_outlet(tap)?, x, window, wins)
     }
 
     pub fn gradient(

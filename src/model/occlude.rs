@@ -413,11 +413,7 @@ impl Occluder {
     /// The tapped output with window (y0, x0) of side `window` taken from `xb`.
     fn one(&self, xb: &ArrayD<f32>, window: usize, (y0, x0): (usize, usize)) -> Result<Array1<f32>> {
         let wb: Bx = [(y0, (y0 + window).min(self.hw[0])), (x0, (x0 + window).min(self.hw[1]))];
-        let pick = |ax: ndarray::AxisDescription| match ax.axis.index() {
-            2 => Slice::from(wb[0].0..wb[0].1),
-            3 => Slice::from(wb[1].0..wb[1].1),
-            _ => Slice::from(..),
-        };
+        let pick = window_pick([2, 3], (y0, x0), window);
         let mut patches: Vec<Option<Patch>> = (0..self.clean.len()).map(|_| None).collect();
         let mut boxes: Vec<Option<Bx>> = vec![None; self.clean.len()];
         patches[0] = Some(Patch { at: [wb[0].0, wb[1].0], data: xb.slice_each_axis(pick).to_owned() });
@@ -494,6 +490,21 @@ impl Occluder {
                 Ok(r)
             })
             .collect()
+    }
+}
+
+/// Per-axis slices of the window of side `window` at corner (y0, x0) on the axes `spatial`
+/// (clipped at the far edges), for `slice_each_axis`.
+pub(crate) fn window_pick(spatial: [usize; 2], (y0, x0): (usize, usize), window: usize) -> impl Fn(ndarray::AxisDescription) -> Slice + Copy {
+    move |ax| {
+        let i = ax.axis.index();
+        if i == spatial[0] {
+            Slice::from(y0..(y0 + window).min(ax.len))
+        } else if i == spatial[1] {
+            Slice::from(x0..(x0 + window).min(ax.len))
+        } else {
+            Slice::from(..)
+        }
     }
 }
 
