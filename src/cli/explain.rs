@@ -5,7 +5,7 @@ use std::path::{Path, PathBuf};
 use anyhow::{Context, Result, bail};
 use clap::Args;
 use indicatif::{ProgressBar, ProgressStyle};
-use ndarray::{Array2, Array3};
+use ndarray::{Array2, Array3, Axis};
 
 use super::{InputArgs, ModelArgs, load_input};
 use crate::control::Control;
@@ -235,18 +235,19 @@ fn backdrop(input: &Input, map2: &Array2<f32>) -> Array3<f32> {
         Input::Tensor { tensor, .. } => {
             // The mean over the non-spatial axes (channels), wherever the layout puts them.
             let (h, w) = map2.dim();
-            let mut plane = Array2::<f32>::zeros((h, w));
-            let mut count = Array2::<f32>::zeros((h, w));
-            if let Ok([ay, ax]) = input.spatial_axes() {
-                for (ix, v) in tensor.indexed_iter() {
-                    let (y, x) = (ix[ay], ix[ax]);
-                    if y < h && x < w {
-                        plane[[y, x]] += *v;
-                        count[[y, x]] += 1.0;
+            let plane = input
+                .spatial_axes()
+                .ok()
+                .and_then(|[ay, ax]| {
+                    let mut m = tensor.clone();
+                    for a in (0..m.ndim()).rev().filter(|a| *a != ay && *a != ax) {
+                        m = m.mean_axis(Axis(a))?;
                     }
-                }
-            }
-            plane.zip_mut_with(&count, |p, c| *p /= c.max(1.0));
+                    let m = m.into_dimensionality::<ndarray::Ix2>().ok()?;
+                    let m = if ay < ax { m } else { m.reversed_axes() };
+                    (m.dim() == (h, w)).then_some(m)
+                })
+                .unwrap_or_else(|| Array2::zeros((h, w)));
             let (lo, hi) = plane.iter().fold((f32::INFINITY, f32::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
             let span = (hi - lo).max(f32::EPSILON);
             Array3::from_shape_fn((h, w, 1), |(y, x, _)| (plane[[y, x]] - lo) / span)
