@@ -108,11 +108,10 @@ pub fn parse_method(a: &ExplainArgs) -> Result<Method> {
         "integrated-gradients" | "ig" => {
             match (a.steps, a.adaptive) {
                 (Some(steps), None) => Method::IntegratedGradients { steps, rule: Rule::parse(&a.rule)?, adaptive: None },
-                (steps, gap) => Method::IntegratedGradients {
-                    steps: steps.unwrap_or(methods::DEFAULT_STEPS),
-                    rule: Rule::Midpoint,
-                    adaptive: Some(gap.unwrap_or(methods::DEFAULT_ADAPTIVE_GAP)),
-                },
+                (steps, gap) => Method::refined_integrated_gradients(
+                    steps.unwrap_or(methods::DEFAULT_STEPS),
+                    gap.unwrap_or(methods::DEFAULT_ADAPTIVE_GAP),
+                ),
             }
         }
         "occlusion" => Method::Occlusion { window: a.window, stride: a.stride },

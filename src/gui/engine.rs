@@ -67,11 +67,7 @@ pub fn request_of(ask: &Ask) -> Result<Request> {
         MethodChoice::GradientXInput => Method::GradientXInput,
         MethodChoice::IntegratedGradients => match p("refine")?.parse::<bool>()? {
             // Refined as the engine's default reading is; the step count is where it starts.
-            true => Method::IntegratedGradients {
-                steps: p("steps")?.parse()?,
-                rule: methods::Rule::Midpoint,
-                adaptive: Some(methods::DEFAULT_ADAPTIVE_GAP),
-            },
+            true => Method::refined_integrated_gradients(p("steps")?.parse()?, methods::DEFAULT_ADAPTIVE_GAP),
             false => Method::IntegratedGradients {
                 steps: p("steps")?.parse()?,
                 rule: methods::DEFAULT_RULE,
