@@ -30,6 +30,40 @@ fn ort(py: &Path, out: &Path, specs: &[String]) -> Value {
     serde_json::from_str(&common::run_python(py, "ort_directional.py", &args)).expect("reference JSON")
 }
 
+/// spurion's exact gradient of output[target] at x, dotted with the reference script's three
+/// directions for `name`, beside the reference's directional derivatives.
+struct Directional {
+    ours: Vec<f64>,
+    reference: Vec<f64>,
+    /// Largest |reference derivative|.
+    scale: f64,
+    /// Largest |ours − reference| over `scale`.
+    err: f64,
+}
+
+fn directional(m: &Model, x: &ArrayD<f32>, target: usize, name: &str, out: &Path, report: &Value) -> Directional {
+    let n = m.output_len();
+    let g = m.gradient(x, Tap::Output, &move |_: &Array1<f32>| one_hot(n, target)).unwrap().grad;
+    let reference: Vec<f64> = report[name]["dd"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+    assert_eq!(reference.len(), 3, "{name}: three directions");
+    let ours: Vec<f64> = (0..3)
+        .map(|k| {
+            let d = read_tensor(&out.join(format!("{name}.d{k}.npy"))).unwrap();
+            g.iter().zip(d.iter()).map(|(a, b)| *a as f64 * *b as f64).sum()
+        })
+        .collect();
+    let scale = reference.iter().fold(0f64, |m, v| m.max(v.abs()));
+    let err = ours.iter().zip(&reference).fold(0f64, |m, (a, b)| m.max((a - b).abs())) / scale;
+    Directional { ours, reference, scale, err }
+}
+
+/// A path the reference Python prints (where a PyPI package keeps its files).
+fn python_path(py: &Path, code: &str) -> PathBuf {
+    let found = std::process::Command::new(py).args(["-c", code]).output().expect("run python");
+    assert!(found.status.success(), "{code}: {}", String::from_utf8_lossy(&found.stderr));
+    PathBuf::from(String::from_utf8_lossy(&found.stdout).trim())
+}
+
 fn forward_rel(m: &Model, x: &ArrayD<f32>, want: &ArrayD<f32>) -> f32 {
     let y = m.forward(x, Tap::Output).unwrap();
     common::rel_err(y.as_slice().unwrap(), want.as_slice().unwrap(), 1e-12)
@@ -79,20 +113,8 @@ fn gradients_match_onnxruntime_directional_derivatives() {
         let m = Model::load(model, &LoadOptions::default()).unwrap();
         let x = read_tensor(x).unwrap();
         let fwd = forward_rel(&m, &x, &read_tensor(&out.path().join(format!("{name}.y.npy"))).unwrap());
-        let n = m.output_len();
-        let t = *target;
-        let g = m.gradient(&x, Tap::Output, &move |_: &Array1<f32>| one_hot(n, t)).unwrap().grad;
-        let fd: Vec<f64> = report[name]["dd"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
-        assert_eq!(fd.len(), 3, "{name}: three directions");
-        let ours: Vec<f64> = (0..3)
-            .map(|k| {
-                let d = read_tensor(&out.path().join(format!("{name}.d{k}.npy"))).unwrap();
-                g.iter().zip(d.iter()).map(|(a, b)| *a as f64 * *b as f64).sum()
-            })
-            .collect();
-        let scale = fd.iter().fold(0f64, |m, v| m.max(v.abs()));
+        let Directional { ours, reference: fd, scale, err } = directional(&m, &x, *target, name, out.path(), &report);
         assert!(scale > 1e-6, "{name}: all directional derivatives ~0; the directions test nothing");
-        let err = ours.iter().zip(&fd).fold(0f64, |m, (a, b)| m.max((a - b).abs())) / scale;
         eprintln!("{name:18} forward rel {fwd:.1e}  directional rel {err:.1e} (bar {tol:.0e})  ours {ours:.4?} ort {fd:.4?}");
         if fwd > 1e-4 || err > *tol {
             failures.push(format!("{name}: forward {fwd:.2e}, directional {err:.2e} > {tol:.0e}"));
@@ -109,11 +131,7 @@ fn gradients_match_onnxruntime_directional_derivatives() {
 #[test]
 fn third_party_exports_run_like_onnxruntime() {
     let Some(py) = common::reference_python() else { return };
-    let found = std::process::Command::new(&py)
-        .args(["-c", "import onnx, os; print(os.path.join(os.path.dirname(onnx.__file__), 'backend/test/data/light'))"])
-        .output()
-        .expect("run python");
-    let light = PathBuf::from(String::from_utf8_lossy(&found.stdout).trim());
+    let light = python_path(&py, "import onnx, os; print(os.path.join(os.path.dirname(onnx.__file__), 'backend/test/data/light'))");
     let names = ["light_resnet50", "light_densenet121", "light_squeezenet", "light_vgg19", "light_inception_v1", "light_shufflenet"];
     let out = tempfile::tempdir().unwrap();
     let specs: Vec<String> =
@@ -185,14 +203,10 @@ fn external_data_outside_the_folder_is_refused() {
 #[test]
 fn a_trained_third_party_classifier_matches_onnxruntime() {
     let Some(py) = common::reference_python() else { return };
-    let found = std::process::Command::new(&py)
-        .args([
-            "-c",
-            "import importlib.util; print(importlib.util.find_spec('rapidocr_onnxruntime').submodule_search_locations[0])",
-        ])
-        .output()
-        .expect("run python");
-    let pkg = PathBuf::from(String::from_utf8_lossy(&found.stdout).trim());
+    let pkg = python_path(
+        &py,
+        "import importlib.util; print(importlib.util.find_spec('rapidocr_onnxruntime').submodule_search_locations[0])",
+    );
     let path = pkg.join("models/ch_ppocr_mobile_v2.0_cls_infer.onnx");
     assert!(path.exists(), "{} missing: .ci/run installs tests/reference/requirements-models.txt", path.display());
     let m = Model::load(&path, &LoadOptions { input_shape: Some(vec![1, 3, 48, 192]) }).unwrap();
@@ -213,17 +227,7 @@ fn a_trained_third_party_classifier_matches_onnxruntime() {
     spurion::feed::write_tensor(&xp, &x).unwrap();
     let report = ort(&py, out.path(), &[format!("cls={}:{}:0", path.display(), xp.display())]);
     let fwd = forward_rel(&m, &x, &read_tensor(&out.path().join("cls.y.npy")).unwrap());
-    let n = m.output_len();
-    let g = m.gradient(&x, Tap::Output, &move |_: &Array1<f32>| one_hot(n, 0)).unwrap().grad;
-    let fd: Vec<f64> = report["cls"]["dd"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
-    let ours: Vec<f64> = (0..3)
-        .map(|k| {
-            let d = read_tensor(&out.path().join(format!("cls.d{k}.npy"))).unwrap();
-            g.iter().zip(d.iter()).map(|(a, b)| *a as f64 * *b as f64).sum()
-        })
-        .collect();
-    let scale = fd.iter().fold(0f64, |m, v| m.max(v.abs()));
-    let err = ours.iter().zip(&fd).fold(0f64, |m, (a, b)| m.max((a - b).abs())) / scale;
+    let Directional { ours, reference: fd, scale, err } = directional(&m, &x, 0, "cls", out.path(), &report);
     let y = m.forward(&x, Tap::Output).unwrap();
     eprintln!("rapidocr cls: p = {y:?}, forward rel {fwd:.1e}, directional rel {err:.1e}, ours {ours:.4?} ort {fd:.4?}");
     assert!(fwd < 1e-4, "forward rel {fwd:.2e}");
