@@ -43,8 +43,9 @@ struct GatherStep {
 }
 
 impl ReverseStep for GatherStep {
-    fn needs_inputs(&self) -> bool {
-        true
+    // Only the indices: the data's values do not enter its gradient.
+    fn needs_input(&self, slot: usize) -> bool {
+        slot == 1
     }
 
     fn back(&self, cx: &Cx, dy: ArrayD<f32>) -> Result<Vec<Option<ArrayD<f32>>>> {
@@ -69,8 +70,9 @@ struct GatherNdStep {
 }
 
 impl ReverseStep for GatherNdStep {
-    fn needs_inputs(&self) -> bool {
-        true
+    // Only the indices: the data's values do not enter its gradient.
+    fn needs_input(&self, slot: usize) -> bool {
+        slot == 1
     }
 
     fn back(&self, cx: &Cx, dy: ArrayD<f32>) -> Result<Vec<Option<ArrayD<f32>>>> {

@@ -34,6 +34,10 @@ pub(crate) trait ReverseStep: Send + Sync {
     fn needs_inputs(&self) -> bool {
         false
     }
+    /// Reads the value of input `slot` (when not a constant); by default as `needs_inputs`.
+    fn needs_input(&self, _slot: usize) -> bool {
+        self.needs_inputs()
+    }
     /// Reads the value of the node's output.
     fn needs_output(&self) -> bool {
         false
@@ -258,9 +262,10 @@ impl ReversePass {
             let values = inputs
                 .iter()
                 .zip(&konst)
-                .map(|(i, k)| match k {
+                .enumerate()
+                .map(|(slot, (i, k))| match k {
                     Some(k) => Value::Const(k.clone()),
-                    None if step.needs_inputs() => tape_ix(*i, &mut taped),
+                    None if step.needs_input(slot) => tape_ix(*i, &mut taped),
                     None => Value::None,
                 })
                 .collect();
