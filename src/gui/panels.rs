@@ -158,6 +158,17 @@ fn labelled_drag<T: egui::emath::Numeric>(ui: &mut egui::Ui, label: &str, v: &mu
     });
 }
 
+/// A labelled path field with a "…" button that asks for a file dialog.
+fn path_row(ui: &mut egui::Ui, label: &str, path: &mut String, hint: &str, pick: Pick, out: &mut Vec<Intent>) {
+    ui.horizontal(|ui| {
+        let l = ui.label(label);
+        ui.add(egui::TextEdit::singleline(path).hint_text(hint).desired_width(150.0)).labelled_by(l.id);
+        if ui.small_button("…").clicked() {
+            out.push(Intent::Pick(pick));
+        }
+    });
+}
+
 pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     egui::Panel::right("controls").default_size(290.0).show(ui, |ui| {
         egui::ScrollArea::vertical().auto_shrink([false, false]).show(ui, |ui| {
@@ -225,22 +236,8 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 labelled_drag(ui, "blur σ (model pixels)", &mut f.blur_sigma, 0.1..=64.0, 0.05);
                 labelled_drag(ui, "Gaussian noise σ", &mut f.noise_sigma, 0.001..=1.0, 0.002);
                 labelled_drag(ui, "noise seed", &mut f.noise_seed, 0..=u64::MAX, 1.0);
-                ui.horizontal(|ui| {
-                    let l = ui.label("mean over");
-                    ui.add(egui::TextEdit::singleline(&mut f.mean_dir).hint_text("folder of the image").desired_width(150.0))
-                        .labelled_by(l.id);
-                    if ui.small_button("…").clicked() {
-                        out.push(Intent::Pick(Pick::MeanFolder));
-                    }
-                });
-                ui.horizontal(|ui| {
-                    let l = ui.label("custom image");
-                    ui.add(egui::TextEdit::singleline(&mut f.custom_path).hint_text("path to an image").desired_width(150.0))
-                        .labelled_by(l.id);
-                    if ui.small_button("…").clicked() {
-                        out.push(Intent::Pick(Pick::CustomBaseline));
-                    }
-                });
+                path_row(ui, "mean over", &mut f.mean_dir, "folder of the image", Pick::MeanFolder, out);
+                path_row(ui, "custom image", &mut f.custom_path, "path to an image", Pick::CustomBaseline, out);
             });
             // Target classes with this image's scores.
             let score_of = |i: usize| scores.as_ref().and_then(|s| s.get(i)).map(|v| format!(" — {v:.3}")).unwrap_or_default();
