@@ -52,7 +52,7 @@ fn main() {
         assert!(started.elapsed() < Duration::from_secs(600), "the reading did not finish");
     }
     let reading = started.elapsed();
-    println!("integrated gradients, {steps} steps, {} ({}):", images[0].display(), h.state().form.method.name());
+    println!("integrated gradients, {steps} steps, {} ({}):", images[0].display(), h.state().form.method.entry().title);
     println!("  reading took {:.2} s wall time", reading.as_secs_f64());
     println!("  UI pass while computing: {}", spurion::gui::app::frame_stats(&during, true).trim());
     let _ = std::fs::remove_dir_all(&tmp);

@@ -34,7 +34,11 @@ sleep 1
 # A fresh config folder, so the picture does not show this machine's recent files.
 export XDG_CONFIG_HOME
 XDG_CONFIG_HOME="$(mktemp -d)"
-DISPLAY="$display" SPURION_INSPECTOR_STRIP="${SPURION_INSPECTOR_STRIP:-1}" target/debug/spurion >/tmp/spurion-gui.log 2>&1 &
+# Started from an empty folder, so no path of this machine shows (the demo is found beside the
+# crate the binary was built from).
+bin="$PWD/target/debug/spurion"
+neutral="$(mktemp -d)"
+(cd "$neutral" && DISPLAY="$display" SPURION_INSPECTOR_STRIP="${SPURION_INSPECTOR_STRIP:-1}" exec "$bin") >/tmp/spurion-gui.log 2>&1 &
 app_pid=$!
 sleep "$wait_s"
 if ! kill -0 "$app_pid" 2>/dev/null; then

@@ -2,10 +2,13 @@
 //! shortcut (a burned-in mark or a border band instead of the anatomy).
 //!
 //! The modules follow the pipeline: [`feed`] (feed card, images and tensors in) → [`model`]
-//! (ONNX on CPU, forward) and [`grad`] (exact reverse pass) → [`methods`] (attribution methods
-//! and baselines, producing a [`methods::Reading`]) → [`regions`] (border bands, burned-in marks
-//! and the figures over them) → presentation ([`render`] for pictures, [`cli`], [`gui`]).
-//! The engine knows nothing of egui; only [`gui`] does.
+//! (ONNX on CPU, forward) and [`grad`] (exact reverse pass), both over [`graph`] (tract plans
+//! and window geometry) → [`methods`] (attribution methods and baselines, producing a
+//! [`methods::Reading`]) → [`regions`] (border bands, burned-in marks and the figures over them)
+//! → [`report`] (the files written) → presentation ([`render`] for pictures, [`cli`], [`gui`]).
+//! [`sign`] and [`control`] sit below everything. Imports point one way: the engine (feed,
+//! model, grad, methods, regions) never imports render, report, cli or gui, and neither front
+//! end imports the other; the binary picks the front end.
 //!
 //! spurion is a research and data-quality tool, not a diagnostic device.
 
@@ -13,10 +16,13 @@ pub mod control;
 pub mod demo;
 pub mod feed;
 pub mod grad;
+pub mod graph;
 pub mod methods;
 pub mod model;
 pub mod regions;
 pub mod render;
+pub mod report;
+pub mod sign;
 
 pub mod cli;
 pub mod gui;

@@ -4,8 +4,14 @@
 use clap::Parser;
 
 fn main() -> std::process::ExitCode {
-    let cli = spurion::cli::Cli::parse();
-    match spurion::cli::run(cli) {
+    use spurion::cli::{Cli, Command};
+    use spurion::gui::{self, GuiOptions};
+    let result = match Cli::parse().command {
+        None => gui::run(GuiOptions::default()),
+        Some(Command::Gui(a)) => gui::run(GuiOptions { model: a.model, paths: a.paths }),
+        Some(command) => spurion::cli::run(command),
+    };
+    match result {
         Ok(()) => std::process::ExitCode::SUCCESS,
         Err(e) if spurion::model::is_cancelled(&e) => {
             eprintln!("spurion: cancelled; no reading was written");

@@ -154,7 +154,7 @@ fn shortcut_model_reads_the_marks_and_control_does_not() {
 fn ig_mark_shares(name: &str, files: &[String]) -> Vec<f64> {
     use spurion::control::Control;
     use spurion::methods::{self, Baseline, Input, Method, Request, Rule, ScoreKind, TargetSpec};
-    use spurion::regions::Part;
+    use spurion::sign::Sign;
     use spurion::regions::figures::mark_share;
     let (model, card) = load(name);
     let req = Request {
@@ -178,7 +178,7 @@ fn ig_mark_shares(name: &str, files: &[String]) -> Vec<f64> {
                 })
             };
             let marks = &mask("tag") | &mask("frame");
-            mark_share(&reading.map2d(), &marks, Part::Supporting).unwrap().unwrap_or(0.0)
+            mark_share(&reading.map2d(), &marks, Sign::Supporting).unwrap().unwrap_or(0.0)
         })
         .collect()
 }

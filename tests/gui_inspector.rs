@@ -13,10 +13,10 @@ use egui_kittest::kittest::{NodeT, Queryable};
 
 use spurion::control::Control;
 use spurion::feed::{FeedCard, Picture};
-use spurion::gui::form::BaselineChoice;
 use spurion::gui::{GuiOptions, Inspector, InspectorConfig};
-use spurion::methods::agree::{self, Sign};
-use spurion::methods::{self, Baseline, Input, Method, Request, ScoreKind, TargetSpec};
+use spurion::methods::agree;
+use spurion::sign::Sign;
+use spurion::methods::{self, Baseline, BaselineKind, Input, Method, Request, ScoreKind, TargetSpec};
 use spurion::model::{LoadOptions, Model};
 
 const STEPS: usize = 8;
@@ -86,16 +86,16 @@ fn strip_shows_every_baseline_and_the_engines_agreement() {
     let mut h = harness(vec![first.clone()], tmp.path());
 
     wait_for(&mut h, "the first reading", 120, |a| a.current_shown().is_some());
-    assert_eq!(h.state().form.baseline, BaselineChoice::Blur, "the inspector starts on blur σ 8");
+    assert_eq!(h.state().form.baseline, BaselineKind::Blur, "the inspector starts on blur σ 8");
 
     // Change the baseline through the combo box, as a person would.
     h.get_by_label("baseline").click();
     h.run_steps(2);
     h.get_by_label("grey").click();
     h.run_steps(2);
-    assert_eq!(h.state().form.baseline, BaselineChoice::Grey, "clicking 'grey' in the baseline list");
+    assert_eq!(h.state().form.baseline, BaselineKind::Grey, "clicking 'grey' in the baseline list");
     wait_for(&mut h, "the grey reading", 120, |a| {
-        a.current_shown().is_some_and(|(k, _)| k.ask.baseline.choice() == BaselineChoice::Grey)
+        a.current_shown().is_some_and(|(k, _)| k.request.baseline.kind() == BaselineKind::Grey)
     });
 
     // The custom baseline needs an image: type its path into the field.
@@ -232,7 +232,7 @@ fn with_no_arguments_the_first_view_is_a_marked_positive_under_blur_8_and_it_is_
     assert_eq!(h.state().current_image().map(|e| e.path.clone()), Some(want.clone()));
     assert_eq!(h.state().images.len(), spurion::feed::list_images(&demo).unwrap().len(), "the whole demo folder is listed");
     assert_eq!(h.state().model_path.as_deref(), Some(model_path().as_path()));
-    assert_eq!(h.state().form.baseline, BaselineChoice::Blur);
+    assert_eq!(h.state().form.baseline, BaselineKind::Blur);
     assert_eq!(h.state().form.blur_sigma, 8.0);
     // The tooltip's reason is on screen as a short line under the baseline control.
     assert!(h.query_by_label_contains("blur keeps a dark frame visible").is_some());
@@ -248,7 +248,7 @@ fn with_no_arguments_the_first_view_is_a_marked_positive_under_blur_8_and_it_is_
     wait_for(&mut h, "the first reading", 300, |a| a.current_shown().is_some());
     h.run_steps(2);
     let (key, shown) = h.state().current_shown().unwrap();
-    assert_eq!(key.ask.baseline.label(), "blur σ 8");
+    assert_eq!(key.request.baseline.title(), "blur σ 8");
     assert_eq!(shown.reading.baseline.as_deref(), Some("blur:8"));
     // The main job, on the first view: the shortcut model's reading of a marked positive is
     // flagged (regions_e2e measures 6/6 such images flagged under blur σ 8, 0/6 with the control).

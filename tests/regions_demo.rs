@@ -118,23 +118,23 @@ fn tag_and_frame_detection_on_demo_phantoms_128() {
 
 #[test]
 fn static_overlay_across_demo_folders() {
-    use spurion::regions::{OverlaySettings, find_static_overlays};
+    use spurion::regions::{RepeatedPatchSettings, find_repeated_patches};
     let folder = |site: Site| -> Vec<Array2<f32>> {
         (0..12).map(|i| to_unit(&render(&PhantomSpec::new(9000 + i, site, i % 2 == 0)).image)).collect()
     };
     // Hillmoor: the frame and the "HM" of the tag sit at the same place with the same values in
     // every image (the laterality letter changes, so only part of it is static).
     let hm = folder(Site::Hillmoor);
-    let found = find_static_overlays(&hm, &OverlaySettings::default()).unwrap();
+    let found = find_repeated_patches(&hm, &RepeatedPatchSettings::default()).unwrap();
     let truth = render(&PhantomSpec::new(9000, Site::Hillmoor, true));
     let tag_box = mask_bbox(&truth.tag_mask).unwrap();
     let tag_hit = found.iter().map(|r| box_iou(r.bbox, tag_box)).fold(0.0, f64::max);
     let frame_hit = found.iter().map(|r| mask_iou(&r.mask, &truth.frame_mask)).fold(0.0, f64::max);
-    eprintln!("hillmoor static overlays: {:?}", found.iter().map(|r| (r.bbox, r.area())).collect::<Vec<_>>());
+    eprintln!("hillmoor repeated patches: {:?}", found.iter().map(|r| (r.bbox, r.area())).collect::<Vec<_>>());
     assert!(tag_hit >= 0.5, "best tag IoU {tag_hit}");
     assert!(frame_hit >= 0.5, "best frame IoU {frame_hit}");
     // North Quay: fresh anatomy and film grain in every image; nothing should be static.
-    let nq = find_static_overlays(&folder(Site::NorthQuay), &OverlaySettings::default()).unwrap();
-    eprintln!("north quay static overlays: {:?}", nq.iter().map(|r| (r.bbox, r.area(), r.reason.clone())).collect::<Vec<_>>());
+    let nq = find_repeated_patches(&folder(Site::NorthQuay), &RepeatedPatchSettings::default()).unwrap();
+    eprintln!("north quay repeated patches: {:?}", nq.iter().map(|r| (r.bbox, r.area(), r.reason.clone())).collect::<Vec<_>>());
     assert!(nq.is_empty());
 }

@@ -1,14 +1,14 @@
 //! The region finders on small synthetic pictures whose answer is known by construction:
 //! padding, frames and tilted collimation-like edges on various sides; bright and dark
-//! burned-in text; static overlays across a set; drawn rectangles and polygons. Only the
+//! burned-in text; repeated patches across a set; drawn rectangles and polygons. Only the
 //! finders' own geometry is checked here; the demo set and real images have their own tests.
 
 use ndarray::Array2;
 use spurion::demo::for_each_lit;
 use spurion::regions::drawn::{DrawnFile, DrawnShape, Shape, drawn_region, load_drawn, polygon_mask, save_drawn};
 use spurion::regions::{
-    FinderSettings, MarkSettings, OverlaySettings, RegionKind, Side, box_iou, find_border_bands, find_burned_in_marks,
-    find_regions, find_static_overlays, mask_bbox, mask_iou,
+    FinderSettings, MarkSettings, RepeatedPatchSettings, RegionKind, Side, box_iou, find_border_bands, find_burned_in_marks,
+    find_regions, find_repeated_patches, mask_bbox, mask_iou,
 };
 
 /// Textured content (no flat margins, no extremes): smooth waves plus hashed noise in 0.25..0.75.
@@ -174,18 +174,18 @@ fn static_overlay_across_a_set() {
             im
         })
         .collect();
-    let found = find_static_overlays(&images, &OverlaySettings::default()).unwrap();
+    let found = find_repeated_patches(&images, &RepeatedPatchSettings::default()).unwrap();
     assert_eq!(found.len(), 1, "{found:?}");
     // Static pixels are the block; the mask grows them by one pixel.
     assert_eq!(found[0].bbox, [39, 29, 53, 36]);
     assert!((found[0].confidence - 0.8).abs() < 1e-6);
     // With a share of 0.9 asked, eight of ten is not enough.
-    let strict = OverlaySettings { min_share: 0.9, ..Default::default() };
-    assert!(find_static_overlays(&images, &strict).unwrap().is_empty());
+    let strict = RepeatedPatchSettings { min_share: 0.9, ..Default::default() };
+    assert!(find_repeated_patches(&images, &strict).unwrap().is_empty());
     // Unequal sizes are refused with the offending image named.
     let mut mixed = images.clone();
     mixed[3] = Array2::zeros((64, 95));
-    let err = find_static_overlays(&mixed, &OverlaySettings::default()).unwrap_err().to_string();
+    let err = find_repeated_patches(&mixed, &RepeatedPatchSettings::default()).unwrap_err().to_string();
     assert!(err.contains("image 3") && err.contains("95×64"), "{err}");
 }
 

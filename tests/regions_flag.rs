@@ -5,9 +5,10 @@ use std::time::Instant;
 
 use ndarray::Array2;
 use spurion::demo::{PhantomSpec, Site, render};
+use spurion::sign::Sign;
 use spurion::regions::drawn::{DrawnShape, Shape, drawn_region};
 use spurion::regions::{
-    FinderSettings, FlagSettings, Part, RegionKind, RegionsFile, assess, assess_regions, find_regions, write_regions,
+    FinderSettings, FlagSettings, RegionKind, RegionsFile, assess, assess_regions, find_regions, write_regions,
 };
 
 fn hillmoor() -> (Array2<f32>, Array2<bool>) {
@@ -71,7 +72,7 @@ fn opposing_part_flags_opposition_on_the_tag() {
     let map = tag.mapv(|t| if t { -1.0f32 } else { 0.001 });
     let sup = assess(&map, &img, &FinderSettings::default(), &FlagSettings::default()).unwrap();
     assert!(!sup.suspect, "{}", sup.reason);
-    let opp = FlagSettings { part: Part::Opposing, ..Default::default() };
+    let opp = FlagSettings { part: Sign::Opposing, ..Default::default() };
     let o = assess(&map, &img, &FinderSettings::default(), &opp).unwrap();
     assert!(o.suspect && o.reason.contains("opposing"), "{}", o.reason);
 }

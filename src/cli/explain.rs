@@ -9,8 +9,10 @@ use ndarray::{Array2, Array3, Axis};
 
 use super::{InputArgs, ModelArgs, load_input};
 use crate::control::Control;
+use crate::methods::catalog::{MethodKind, baseline_forms, method_names};
 use crate::methods::{self, Baseline, Input, Method, Request, Rule, ScoreKind, TargetSpec};
-use crate::render::Sign;
+use crate::report::{ReadingFile, assess_input};
+use crate::sign::Sign;
 
 #[derive(Args, Debug)]
 pub struct ExplainArgs {
@@ -18,12 +20,9 @@ pub struct ExplainArgs {
     pub model: ModelArgs,
     #[command(flatten)]
     pub input: InputArgs,
-    /// integrated-gradients | occlusion | gradient | gradient-x-input | smoothgrad | expected-gradients
-    #[arg(long, default_value = "integrated-gradients")]
+    #[arg(long, default_value = "integrated-gradients", help = method_names())]
     pub method: String,
-    /// black | grey | value:V | blur:SIGMA | uniform-noise:SEED | gaussian-noise:SIGMA:SEED |
-    /// mean:DIR | image:PATH | tensor:PATH.npy | folder:DIR (expected-gradients draws)
-    #[arg(long, default_value = "black")]
+    #[arg(long, default_value = "black", help = format!("{} (folder: expected-gradients draws)", baseline_forms()))]
     pub baseline: String,
     /// Integrated-gradients steps, a fixed count. Without --steps, integrated gradients start at
     /// 64 and refine until the completeness gap is below 1% (as --adaptive does).
@@ -91,12 +90,14 @@ pub(crate) fn control_for(bar: &ProgressBar) -> Control {
         b.set_position(done);
     });
     let slot = CURRENT.get_or_init(|| {
-        // Failing to install the handler only loses Ctrl-C cancelling; the default kill remains.
-        let _ = ctrlc::set_handler(|| {
+        // Failing to install the handler only loses Ctrl-C cancelling (the default kill
+        // remains), so it is not worth stopping the command for.
+        ctrlc::set_handler(|| {
             if let Some(c) = CURRENT.get().and_then(|m| m.lock().ok()).and_then(|g| g.clone()) {
                 c.cancel();
             }
-        });
+        })
+        .ok();
         std::sync::Mutex::new(None)
     });
     *slot.lock().unwrap() = Some(ctl.clone());
@@ -104,30 +105,27 @@ pub(crate) fn control_for(bar: &ProgressBar) -> Control {
 }
 
 pub fn parse_method(a: &ExplainArgs) -> Result<Method> {
-    Ok(match a.method.as_str() {
-        "integrated-gradients" | "ig" => {
-            match (a.steps, a.adaptive) {
-                (Some(steps), None) => Method::IntegratedGradients { steps, rule: Rule::parse(&a.rule)?, adaptive: None },
-                (steps, gap) => Method::refined_integrated_gradients(
-                    steps.unwrap_or(methods::DEFAULT_STEPS),
-                    gap.unwrap_or(methods::DEFAULT_ADAPTIVE_GAP),
-                ),
-            }
-        }
-        "occlusion" => Method::Occlusion { window: a.window, stride: a.stride },
-        "gradient" | "saliency" => Method::Gradient,
-        "gradient-x-input" => Method::GradientXInput,
-        "smoothgrad" => Method::SmoothGrad { noise: a.noise, samples: a.samples, seed: a.seed },
-        "expected-gradients" => Method::ExpectedGradients { samples: a.samples, seed: a.seed },
-        m => bail!("unknown method \"{m}\"; use one of: {}", methods::METHOD_NAMES.join(", ")),
+    let Some(kind) = MethodKind::parse(&a.method) else {
+        bail!("unknown method \"{}\"; use one of: {}", a.method, method_names());
+    };
+    Ok(match kind {
+        MethodKind::IntegratedGradients => match (a.steps, a.adaptive) {
+            (Some(steps), None) => Method::IntegratedGradients { steps, rule: Rule::parse(&a.rule)?, adaptive: None },
+            (steps, gap) => Method::refined_integrated_gradients(
+                steps.unwrap_or(methods::DEFAULT_STEPS),
+                gap.unwrap_or(methods::DEFAULT_ADAPTIVE_GAP),
+            ),
+        },
+        MethodKind::Occlusion => Method::Occlusion { window: a.window, stride: a.stride },
+        MethodKind::Gradient => Method::Gradient,
+        MethodKind::GradientXInput => Method::GradientXInput,
+        MethodKind::SmoothGrad => Method::SmoothGrad { noise: a.noise, samples: a.samples, seed: a.seed },
+        MethodKind::ExpectedGradients => Method::ExpectedGradients { samples: a.samples, seed: a.seed },
     })
 }
 
 fn parse_sign(s: &str) -> Result<Sign> {
-    Sign::ALL
-        .into_iter()
-        .find(|k| k.name() == s)
-        .with_context(|| format!("unknown sign \"{s}\"; use both, supporting, opposing or magnitude"))
+    Sign::parse(s).with_context(|| format!("unknown sign \"{s}\"; use both, supporting, opposing or magnitude"))
 }
 
 pub fn run(a: &ExplainArgs) -> Result<()> {
@@ -149,8 +147,9 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     let out = a.out.clone().unwrap_or_else(|| default_out(&input, &reading.method));
     std::fs::create_dir_all(&out).with_context(|| format!("cannot create output folder {}", out.display()))?;
     let map2 = reading.map2d();
-    let (json, suspect) = reading_json(&reading, &input, &map2)?;
-    write_json(&out.join("reading.json"), &json)?;
+    let assessment = assess_input(&input, &map2)?;
+    let suspect = assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
+    write_json(&out.join("reading.json"), &ReadingFile::new(&reading, assessment).to_json()?)?;
     crate::feed::write_tensor(&out.join("map.npy"), &reading.map)?;
     crate::render::write_map_png(&out.join("map.png"), &map2, sign)?;
     let backdrop = backdrop(&input, &map2);
@@ -194,32 +193,6 @@ fn default_out(input: &Input, method: &str) -> PathBuf {
     PathBuf::from(format!("reading-{stem}-{method}"))
 }
 
-/// reading.json: the reading's fields plus, for pictures, the regions found and the flag.
-/// Public (as `spurion::cli::reading_json`) so that the inspector's JSON export is this object,
-/// field for field.
-pub fn reading_json(
-    reading: &methods::Reading,
-    input: &Input,
-    map2: &Array2<f32>,
-) -> Result<(serde_json::Value, Option<(bool, String)>)> {
-    let mut v = serde_json::to_value(reading)?;
-    v["caution"] = serde_json::Value::String(crate::CAUTION.into());
-    let mut suspect = None;
-    if let Input::Picture { picture, .. } = input {
-        let lum = picture.luminance();
-        let regions = crate::regions::find_regions(&lum, &Default::default());
-        let a = crate::regions::assess_regions(map2, &regions, &Default::default())?;
-        let obj = serde_json::to_value(&a)?;
-        if let serde_json::Value::Object(m) = obj {
-            for (k, val) in m {
-                v[k] = val;
-            }
-        }
-        suspect = Some((a.suspect, a.reason.clone()));
-    }
-    Ok((v, suspect))
-}
-
 fn write_json(path: &Path, v: &serde_json::Value) -> Result<()> {
     let tmp = path.with_extension("json.part");
     std::fs::write(&tmp, serde_json::to_string_pretty(v)? + "\n")
@@ -227,7 +200,7 @@ fn write_json(path: &Path, v: &serde_json::Value) -> Result<()> {
     std::fs::rename(&tmp, path).with_context(|| format!("cannot write {}", path.display()))
 }
 
-/// What the overlay is drawn on: the picture, or a tensor's first channel scaled to 0..1.
+/// What the overlay is drawn on: the picture, or a tensor's channel mean scaled to 0..1.
 fn backdrop(input: &Input, map2: &Array2<f32>) -> Array3<f32> {
     match input {
         Input::Picture { picture, .. } => picture.pixels.clone(),

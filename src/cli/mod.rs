@@ -2,9 +2,7 @@
 //! and what to do; exit codes: 0 done, 1 bad input or failed computation, 2 usage error.
 
 mod explain;
-
-/// reading.json of `spurion explain`; the inspector's JSON export writes the same object.
-pub use explain::reading_json;
+mod regions;
 
 use std::path::PathBuf;
 
@@ -163,18 +161,16 @@ pub struct GuiArgs {
     pub paths: Vec<PathBuf>,
 }
 
-/// Runs the parsed command line; the binary maps errors to exit code 1.
-pub fn run(cli: Cli) -> Result<()> {
-    match cli.command {
-        None => crate::gui::run(crate::gui::GuiOptions::default()),
-        Some(Command::Gui(a)) => crate::gui::run(crate::gui::GuiOptions { model: a.model, paths: a.paths }),
-        Some(Command::Info(a)) => info(&a),
-        Some(Command::Predict(a)) => predict(&a),
-        Some(Command::Explain(a)) => explain::run(&a),
-        Some(Command::Regions(a)) => {
-            crate::regions::run_regions_command(&a.image, a.out.as_deref(), &Default::default())
-        }
-        Some(Command::Demo(a)) => demo(&a),
+/// Runs one command; the binary maps errors to exit code 1. `gui` (and no command at all) is
+/// the binary's to start: the command line does not depend on the inspector.
+pub fn run(command: Command) -> Result<()> {
+    match command {
+        Command::Gui(_) => anyhow::bail!("`spurion gui` is started by the spurion binary, not by the command-line module"),
+        Command::Info(a) => info(&a),
+        Command::Predict(a) => predict(&a),
+        Command::Explain(a) => explain::run(&a),
+        Command::Regions(a) => regions::run(&a.image, a.out.as_deref(), &Default::default()),
+        Command::Demo(a) => demo(&a),
     }
 }
 

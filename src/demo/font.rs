@@ -54,13 +54,13 @@ fn glyph(c: char) -> &'static [&'static str; 5] {
 }
 
 /// Width in pixels of `text` at `scale` (one empty cell between glyphs).
-pub fn text_width(text: &str, scale: usize) -> usize {
+pub fn tag_width(text: &str, scale: usize) -> usize {
     let n = text.chars().count();
     if n == 0 { 0 } else { (n * (GLYPH_W + 1) - 1) * scale }
 }
 
 /// Height in pixels of one line at `scale`.
-pub fn text_height(scale: usize) -> usize {
+pub fn tag_height(scale: usize) -> usize {
     GLYPH_H * scale
 }
 
@@ -106,6 +106,6 @@ mod tests {
         for_each_lit("HM", 0, 0, 2, |_, _| n += 1);
         // H has 11 lit cells, M has 12.
         assert_eq!(n, (11 + 12) * 4);
-        assert_eq!(text_width("HM L", 2), (4 * 4 - 1) * 2);
+        assert_eq!(tag_width("HM L", 2), (4 * 4 - 1) * 2);
     }
 }

@@ -15,7 +15,7 @@
 mod font;
 mod phantom;
 
-pub use font::{GLYPH_H, GLYPH_W, for_each_lit, text_height, text_width};
+pub use font::{GLYPH_H, GLYPH_W, for_each_lit, tag_height, tag_width};
 pub use phantom::{
     DEFAULT_CONTRAST, DEFAULT_SIZE, FILM_MAX, FILM_MIN, FRAME_LEVEL, LABELS, ManifestRow, Phantom, PhantomSpec, Site,
     TAG_CODE, TAG_LEVEL, render, tag_text,
@@ -240,7 +240,7 @@ pub fn png_bytes(img: &image::GrayImage) -> Result<Vec<u8>> {
     Ok(out)
 }
 
-fn save_png(img: &image::GrayImage, path: &Path) -> Result<()> {
+fn write_png(img: &image::GrayImage, path: &Path) -> Result<()> {
     std::fs::write(path, png_bytes(img)?)
         .with_context(|| format!("cannot write {}; check that the folder is writable and the disk not full", path.display()))
 }
@@ -269,10 +269,10 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
             ctl.check()?;
             let p = render(&spec.phantom(i));
             let stem = spec.stem(i, p.row.site);
-            save_png(&to_gray_image(&p.image), &out.join(format!("{stem}.png")))?;
+            write_png(&to_gray_image(&p.image), &out.join(format!("{stem}.png")))?;
             if spec.masks {
                 for (what, m) in [("tag", &p.tag_mask), ("frame", &p.frame_mask), ("finding", &p.finding_mask)] {
-                    save_png(&mask_image(m), &masks.join(format!("{stem}.{what}.png")))?;
+                    write_png(&mask_image(m), &masks.join(format!("{stem}.{what}.png")))?;
                 }
             }
             ctl.advance(1);

@@ -10,7 +10,7 @@
 //! height = 128
 //! width = 128
 //! resize = "stretch"         # stretch | shorter-side-crop
-//! gray_to_rgb = "replicate"  # replicate | refuse  (grayscale image, 3-channel model)
+//! grey_to_rgb = "replicate"  # replicate | refuse  (grey image, 3-channel model; gray_to_rgb also read)
 //! scale = "unit"             # unit: pixels 0..1 | byte: pixels 0..255
 //! mean = [0.5]               # per channel, subtracted after scaling
 //! std = [0.25]               # per channel, divided after the mean
@@ -45,7 +45,7 @@ pub enum Resize {
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
-pub enum GrayRule {
+pub enum GreyRule {
     Replicate,
     Refuse,
 }
@@ -77,8 +77,9 @@ pub struct InputCard {
     pub width: usize,
     #[serde(default = "default_resize")]
     pub resize: Resize,
-    #[serde(default = "default_gray")]
-    pub gray_to_rgb: GrayRule,
+    /// Also read as `gray_to_rgb` (American spelling).
+    #[serde(default = "default_grey", alias = "gray_to_rgb")]
+    pub grey_to_rgb: GreyRule,
     #[serde(default = "default_scale")]
     pub scale: Scale,
     #[serde(default)]
@@ -120,8 +121,8 @@ fn default_channels() -> usize {
 fn default_resize() -> Resize {
     Resize::Stretch
 }
-fn default_gray() -> GrayRule {
-    GrayRule::Replicate
+fn default_grey() -> GreyRule {
+    GreyRule::Replicate
 }
 fn default_scale() -> Scale {
     Scale::Unit
@@ -203,7 +204,7 @@ impl FeedCard {
                 height: h,
                 width: w,
                 resize: Resize::Stretch,
-                gray_to_rgb: GrayRule::Replicate,
+                grey_to_rgb: GreyRule::Replicate,
                 scale: Scale::Unit,
                 mean: vec![0.0; c],
                 std: vec![1.0; c],

@@ -4,7 +4,7 @@ mod card;
 mod picture;
 mod prepare;
 
-pub use card::{FeedCard, GrayRule, InputCard, Layout, OutputCard, OutputKind, Resize, Scale};
+pub use card::{FeedCard, GreyRule, InputCard, Layout, OutputCard, OutputKind, Resize, Scale};
 pub use picture::{IMAGE_ENDINGS, LUMA, Picture, list_images, luminance};
 pub use prepare::{ChannelRule, Feeder, axis_weights, grid_to_tensor, tensor_to_grid};
 

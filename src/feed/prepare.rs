@@ -13,7 +13,7 @@
 use anyhow::{Result, bail};
 use ndarray::{Array2, Array3, ArrayD, Axis, IxDyn, s};
 
-use super::card::{FeedCard, GrayRule, Layout, Resize, Scale};
+use super::card::{FeedCard, GreyRule, Layout, Resize, Scale};
 use super::picture::{LUMA, Picture};
 
 /// How the picture's channels became the model's.
@@ -72,10 +72,10 @@ impl Feeder {
         let want_c = card.input.channels;
         let channels = match (c, want_c) {
             (a, b) if a == b => ChannelRule::Same,
-            (1, 3) if card.input.gray_to_rgb == GrayRule::Replicate => ChannelRule::Replicate,
+            (1, 3) if card.input.grey_to_rgb == GreyRule::Replicate => ChannelRule::Replicate,
             (1, 3) => bail!(
                 "the model takes 3 channels but the image is grayscale, and the feed card says \
-                 gray_to_rgb = \"refuse\". Set gray_to_rgb = \"replicate\" in the card, or convert the image."
+                 grey_to_rgb = \"refuse\". Set grey_to_rgb = \"replicate\" in the card, or convert the image."
             ),
             (3, 1) => ChannelRule::Luma,
             (a, b) => bail!("cannot feed a {a}-channel image to a {b}-channel model"),
@@ -106,7 +106,7 @@ impl Feeder {
 
     /// The picture on the model's grid: th×tw×C_model, values 0..1.
     pub fn prepare(&self, pixels: &Array3<f32>) -> Result<Array3<f32>> {
-        let (h, w, c) = pixels.dim();
+        let (h, w, _) = pixels.dim();
         if (h, w) != (self.src_h, self.src_w) {
             bail!("image is {w}×{h} but this feed was planned for {}×{}", self.src_w, self.src_h);
         }
@@ -122,7 +122,6 @@ impl Feeder {
             let r = self.rows.dot(&plane).dot(&self.cols.t());
             out_c.index_axis_mut(Axis(2), k).assign(&r);
         }
-        let _ = c;
         Ok(match self.channels {
             ChannelRule::Replicate => {
                 let g = out_c.index_axis(Axis(2), 0).to_owned();
@@ -218,7 +217,7 @@ mod tests {
                 height: h,
                 width: w,
                 resize,
-                gray_to_rgb: GrayRule::Replicate,
+                grey_to_rgb: GreyRule::Replicate,
                 scale: Scale::Byte,
                 mean: vec![10.0],
                 std: vec![2.0],
@@ -274,8 +273,8 @@ mod tests {
     #[test]
     fn refuse_rule_stops_gray_for_rgb() {
         let mut c = card(3, 2, 2, Layout::Nchw, Resize::Stretch);
-        c.input.gray_to_rgb = GrayRule::Refuse;
+        c.input.grey_to_rgb = GreyRule::Refuse;
         let e = Feeder::new(&c, 4, 4, 1).unwrap_err().to_string();
-        assert!(e.contains("gray_to_rgb"), "{e}");
+        assert!(e.contains("grey_to_rgb"), "{e}");
     }
 }

@@ -11,8 +11,8 @@ use ndarray::ArrayD;
 use tract_onnx::prelude::*;
 use tract_onnx::tract_core::ops::cnn::{Conv, Deconv, PaddingSpec, PoolSpec};
 
-use super::{Cx, NodeFacts, ReverseStep, run_sub};
-use crate::model::Plan;
+use super::{Cx, NodeFacts, ReverseStep};
+use crate::graph::{Plan, geometry, plan, run_sub};
 
 pub(super) fn build(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
     let op = node.op_as::<Conv>()?;
@@ -29,19 +29,15 @@ struct ConvStep {
 
 /// The `Deconv` whose output is the conv's input gradient, for an input of spatial size
 /// `x_hw` and output `y_hw`.
-pub(crate) fn transposed(op: &Conv, x_shape: &[usize], y_shape: &[usize]) -> Result<Deconv> {
+fn transposed(op: &Conv, x_shape: &[usize], y_shape: &[usize]) -> Result<Deconv> {
     let spec = &op.pool_spec;
-    let x = spec.data_format.shape(x_shape.to_vec())?;
     let y = spec.data_format.shape(y_shape.to_vec())?;
-    let computed = spec.computed_padding(x.hw_dims());
-    let strides = spec.strides();
-    let dilations = spec.dilations();
+    let axes = geometry::axes(spec, x_shape)?;
     let mut adjustments = tvec![];
-    for ax in 0..spec.rank() {
-        let c = &computed[ax];
-        let reach = (y.hw_dims()[ax] - 1) * strides[ax] + dilations[ax] * (spec.kernel_shape[ax] - 1) + 1;
-        let covered = reach as isize - c.pad_before as isize - c.pad_after as isize;
-        let adj = x.hw_dims()[ax] as isize - covered;
+    for (ax, g) in axes.iter().enumerate() {
+        let reach = (y.hw_dims()[ax] - 1) * g.stride + g.reach();
+        let covered = reach as isize - g.pad_before as isize - g.pad_after as isize;
+        let adj = g.len as isize - covered;
         if adj < 0 {
             bail!("conv geometry: negative output adjustment on axis {ax}");
         }
@@ -49,8 +45,8 @@ pub(crate) fn transposed(op: &Conv, x_shape: &[usize], y_shape: &[usize]) -> Res
     }
     let pool_spec = PoolSpec {
         padding: PaddingSpec::Explicit(
-            computed.iter().map(|c| c.pad_before).collect(),
-            computed.iter().map(|c| c.pad_after).collect(),
+            axes.iter().map(|g| g.pad_before).collect(),
+            axes.iter().map(|g| g.pad_after).collect(),
         ),
         // The transposed convolution reads dy (the conv's output channels) and writes dx.
         input_channels: spec.output_channels,
@@ -104,8 +100,7 @@ impl ReverseStep for ConvStep {
         if fact.shape.as_concrete() != Some(&f.in_shapes[0][..]) {
             bail!("transposed convolution gives {:?}, input is {:?}", fact.shape, f.in_shapes[0]);
         }
-        let m = m.into_optimized().map_err(|e| anyhow!("{e:#}"))?;
-        self.plan = Some(TypedSimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))?);
+        self.plan = Some(plan(m)?);
         Ok(())
     }
 

@@ -10,8 +10,8 @@ use tract_onnx::prelude::*;
 use tract_onnx::tract_core::axes::AxesMapping;
 use tract_onnx::tract_core::ops::einsum::EinSum;
 
-use super::{Cx, NodeFacts, ReverseStep, run_sub, unbroadcast};
-use crate::model::Plan;
+use super::{Cx, NodeFacts, ReverseStep, unbroadcast};
+use crate::graph::{Plan, plan, run_sub};
 
 pub(super) fn build(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
     let op = node.op_as::<EinSum>()?;
@@ -84,9 +84,8 @@ impl ReverseStep for EinSumStep {
                 &wires,
             )?;
             m.select_output_outlets(&g)?;
-            let m = m.into_optimized().map_err(|e| anyhow!("{e:#}"))?;
             self.needs |= !fed.is_empty();
-            self.plans.push(OperandPlan { slot: j, plan: TypedSimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))?, fed, lonely });
+            self.plans.push(OperandPlan { slot: j, plan: plan(m)?, fed, lonely });
         }
         Ok(())
     }

@@ -26,7 +26,7 @@ use anyhow::{Context, Result, anyhow, bail};
 use ndarray::{Array1, ArrayD, ArrayViewD, Axis, IxDyn};
 use tract_onnx::prelude::*;
 
-use crate::model::{Plan, optimized_plan};
+use crate::graph::{Plan, optimized_plan};
 
 /// One op family's reverse step for one node.
 pub(crate) trait ReverseStep: Send + Sync {
@@ -73,7 +73,7 @@ fn lookup(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
 }
 
 /// Whether `node`'s op has a reverse step (as configured in this graph).
-pub fn has_reverse_step(_g: &TypedModel, node: &TypedNode) -> bool {
+pub fn has_reverse_step(node: &TypedNode) -> bool {
     if node.op_is::<tract_onnx::tract_core::ops::konst::Const>()
         || node.op_is::<tract_onnx::tract_core::ops::source::TypedSource>()
     {
@@ -377,17 +377,4 @@ pub(crate) fn unbroadcast(mut g: ArrayD<f32>, shape: &[usize]) -> Result<ArrayD<
         bail!("cannot reduce gradient of shape {:?} to {:?}", g.shape(), shape);
     }
     Ok(g)
-}
-
-/// An owned ndarray from a tract tensor.
-pub(crate) fn to_array(t: &Tensor) -> Result<ArrayD<f32>> {
-    Ok(t.to_plain_array_view::<f32>().map_err(|e| anyhow!("{e}"))?.to_owned())
-}
-
-/// Runs a step's own small tract graph and returns its single output.
-pub(crate) fn run_sub(plan: &Plan, inputs: Vec<Tensor>) -> Result<ArrayD<f32>> {
-    let out = plan
-        .run(inputs.into_iter().map(|t| t.into_tvalue()).collect())
-        .map_err(|e| anyhow!("{e:#}"))?;
-    to_array(&out[0])
 }

@@ -8,6 +8,7 @@ use tract_onnx::tract_core::ops::cnn::{MaxPool, PaddingSpec, PoolSpec, SumPool};
 use tract_onnx::tract_core::ops::nn::DataFormat;
 
 use super::{Cx, ReverseStep};
+use crate::graph::geometry;
 
 pub(super) fn build(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
     if let Some(op) = node.op_as::<MaxPool>() {
@@ -98,26 +99,21 @@ fn from_nchw(a: Array4<f32>, fmt: DataFormat, rank: usize, shape: &[usize]) -> R
 
 impl PoolStep {
     fn geometry(&self, in_shape: &[usize]) -> Result<[AxisGeo; 2]> {
-        let ds = self.spec.data_format.shape(in_shape.to_vec())?;
-        let hw: Vec<usize> = ds.hw_dims().to_vec();
-        let computed = self.spec.computed_padding(&hw);
-        let strides = self.spec.strides();
-        let dilations = self.spec.dilations();
+        let axes = geometry::axes(&self.spec, in_shape)?;
         let mut geo = [AxisGeo { len: 1, out: 1, kernel: 1, stride: 1, dilation: 1, pad_before: 0, padded_len: 1 }; 2];
-        let off = 2 - hw.len();
-        for ax in 0..hw.len() {
-            let c = &computed[ax];
+        let off = 2 - axes.len();
+        for (ax, g) in axes.iter().enumerate() {
             let padded_len = match &self.spec.padding {
-                PaddingSpec::ExplicitOnnxPool(b, a, true) => b[ax] + hw[ax] + a[ax],
+                PaddingSpec::ExplicitOnnxPool(b, a, true) => b[ax] + g.len + a[ax],
                 _ => usize::MAX,
             };
             geo[ax + off] = AxisGeo {
-                len: hw[ax],
-                out: c.convoluted,
-                kernel: self.spec.kernel_shape[ax],
-                stride: strides[ax],
-                dilation: dilations[ax],
-                pad_before: c.pad_before,
+                len: g.len,
+                out: g.out,
+                kernel: g.kernel,
+                stride: g.stride,
+                dilation: g.dilation,
+                pad_before: g.pad_before,
                 padded_len,
             };
         }

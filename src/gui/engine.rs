@@ -1,5 +1,5 @@
-//! The calls into the engine that worker jobs make. Each turns GUI choices into engine types and
-//! engine results into [`super::state`] types; none computes anything itself.
+//! The calls into the engine that worker jobs make. Each hands the engine its own typed request
+//! and turns engine results into [`super::state`] types; none computes anything itself.
 
 use std::path::Path;
 use std::sync::Arc;
@@ -9,11 +9,10 @@ use anyhow::{Context, Result};
 use crate::control::Control;
 use crate::feed::{FeedCard, Feeder, Picture};
 use crate::methods::agree::Spread;
-use crate::methods::{self, Baseline, Input, Method, Request, ScoreKind, TargetSpec};
+use crate::methods::{self, Input, Request};
 use crate::model::{LoadOptions, Model, Tap};
 use crate::regions::{FinderSettings, FlagSettings, assess_regions, find_regions};
 
-use super::form::{Ask, BaselineSpec, MethodChoice, ScoreChoice, TargetChoice};
 use super::paint;
 use super::state::{Prepared, Session, Shown};
 
@@ -53,88 +52,12 @@ pub fn prepare(session: &Session, path: &Path) -> Result<Prepared> {
     Ok(Prepared { picture: Arc::new(picture), scores, regions, region_edges, base_image })
 }
 
-/// The engine request for a GUI ask.
-pub fn request_of(ask: &Ask) -> Result<Request> {
-    let p = |name: &str| -> Result<String> {
-        ask.method_params
-            .iter()
-            .find(|(k, _)| *k == name)
-            .map(|(_, v)| v.clone())
-            .with_context(|| format!("internal: {name} missing from the request"))
-    };
-    let method = match ask.method {
-        MethodChoice::Gradient => Method::Gradient,
-        MethodChoice::GradientXInput => Method::GradientXInput,
-        MethodChoice::IntegratedGradients => match p("refine")?.parse::<bool>()? {
-            // Refined as the engine's default reading is; the step count is where it starts.
-            true => Method::refined_integrated_gradients(p("steps")?.parse()?, methods::DEFAULT_ADAPTIVE_GAP),
-            false => Method::IntegratedGradients {
-                steps: p("steps")?.parse()?,
-                rule: methods::DEFAULT_RULE,
-                adaptive: None,
-            },
-        },
-        MethodChoice::SmoothGrad => Method::SmoothGrad {
-            noise: p("noise")?.parse()?,
-            samples: p("samples")?.parse()?,
-            seed: p("seed")?.parse()?,
-        },
-        MethodChoice::ExpectedGradients => {
-            Method::ExpectedGradients { samples: p("samples")?.parse()?, seed: p("seed")?.parse()? }
-        }
-        MethodChoice::Occlusion => Method::Occlusion { window: p("window")?.parse()?, stride: p("stride")?.parse()? },
-    };
-    let baseline = match &ask.baseline {
-        BaselineSpec::Black => Baseline::Black,
-        BaselineSpec::Grey => Baseline::Grey,
-        BaselineSpec::Blur(s) => Baseline::Blur { sigma: s.parse()? },
-        BaselineSpec::UniformNoise(seed) => Baseline::UniformNoise { seed: *seed },
-        BaselineSpec::GaussianNoise(s, seed) => Baseline::GaussianNoise { sigma: s.parse()?, seed: *seed },
-        BaselineSpec::Mean(d) => Baseline::Mean { dir: d.clone() },
-        BaselineSpec::Image(p) => Baseline::Image { path: p.clone() },
-    };
-    let target = match ask.target {
-        TargetChoice::Top => TargetSpec::Top,
-        TargetChoice::Index(i) => TargetSpec::Index(i),
-    };
-    let score = match ask.score {
-        ScoreChoice::Raw => ScoreKind::Raw,
-        ScoreChoice::Softmax => ScoreKind::Softmax,
-        ScoreChoice::Logits => ScoreKind::Logits,
-    };
-    Ok(Request { method, baseline, target, score })
-}
-
 /// One reading with its region figures and flag.
-pub fn read(session: &Session, prepared: &Prepared, ask: &Ask, ctl: &Control) -> Result<Shown> {
-    let req = request_of(ask)?;
+pub fn read(session: &Session, prepared: &Prepared, req: &Request, ctl: &Control) -> Result<Shown> {
     let input = Input::picture((*prepared.picture).clone(), &session.card)?;
-    let reading = methods::explain(&session.model, Some(&session.card), &input, &req, ctl)?;
+    let reading = methods::explain(&session.model, Some(&session.card), &input, req, ctl)?;
     let map = reading.map2d();
     let spread = Spread::of(&map);
     let assessment = assess_regions(&map, &prepared.regions, &FlagSettings::default())?;
     Ok(Shown { reading: Arc::new(reading), map, spread, assessment })
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-    use crate::gui::form::{BaselineSpec, Form};
-
-    #[test]
-    fn integrated_gradients_refine_by_default_and_run_fixed_when_asked() {
-        let mut form = Form::default();
-        let r = request_of(&form.ask_with(BaselineSpec::Black)).unwrap();
-        assert_eq!(
-            r.method,
-            Method::IntegratedGradients {
-                steps: form.steps,
-                rule: methods::Rule::Midpoint,
-                adaptive: Some(methods::DEFAULT_ADAPTIVE_GAP)
-            }
-        );
-        form.refine = false;
-        let r = request_of(&form.ask_with(BaselineSpec::Black)).unwrap();
-        assert_eq!(r.method, Method::IntegratedGradients { steps: form.steps, rule: methods::DEFAULT_RULE, adaptive: None });
-    }
 }

@@ -8,11 +8,13 @@ use std::sync::Arc;
 use anyhow::Result;
 use image::{Rgb, RgbImage};
 
-use crate::feed::FeedCard;
-use crate::methods::{Input, agree};
-use crate::render::{self, Sign};
+use crate::methods::agree;
+use crate::report::ReadingFile;
+use crate::render;
+use crate::sign::Sign;
 
-use super::app::{ExportWhat, Inspector};
+use super::app::Inspector;
+use super::intents::ExportWhat;
 use super::look;
 use super::state::{Overlay, Prepared, Shown};
 
@@ -20,7 +22,7 @@ use super::state::{Overlay, Prepared, Shown};
 pub enum ExportJob {
     View { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown>, sign: Sign, overlay: Overlay, opacity: f32, share: f64, regions: bool },
     Strip { path: PathBuf, prepared: Arc<Prepared>, tiles: Vec<(String, Arc<Shown>)>, sign: Sign, per_map: bool },
-    Json { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown>, card: Arc<FeedCard> },
+    Json { path: PathBuf, shown: Arc<Shown> },
 }
 
 fn slug(s: &str) -> String {
@@ -47,10 +49,9 @@ pub fn plan(app: &Inspector, what: ExportWhat) -> Result<ExportJob, String> {
     match what {
         ExportWhat::View | ExportWhat::Json => {
             let (key, shown) = app.current_shown().ok_or("the reading is not ready yet")?;
-            let tag = slug(&key.ask.describe());
+            let tag = slug(&key.request.describe());
             if what == ExportWhat::Json {
-                let card = app.session.as_ref().ok_or("the model is still loading")?.card.clone();
-                return Ok(ExportJob::Json { path: dir.join(format!("{stem}-{tag}.reading.json")), prepared, shown, card });
+                return Ok(ExportJob::Json { path: dir.join(format!("{stem}-{tag}.reading.json")), shown });
             }
             Ok(ExportJob::View {
                 path: dir.join(format!("{stem}-{tag}-{}-{}.png", app.view.overlay.name().replace(' ', "-"), app.view.sign.name())),
@@ -68,9 +69,9 @@ pub fn plan(app: &Inspector, what: ExportWhat) -> Result<ExportJob, String> {
             let mut tiles = Vec::new();
             for k in plan.keys() {
                 let s = app.cache.done(&k).ok_or("the strip is still being read")?;
-                tiles.push((k.ask.baseline.label(), s.clone()));
+                tiles.push((k.request.baseline.title(), s.clone()));
             }
-            let tag = plan.keys().first().map(|k| slug(k.ask.method.name())).unwrap_or_default();
+            let tag = plan.keys().first().map(|k| slug(k.request.method.name())).unwrap_or_default();
             Ok(ExportJob::Strip {
                 path: dir.join(format!("{stem}-{tag}-baseline-strip-{}.png", app.view.sign.name())),
                 prepared,
@@ -170,13 +171,10 @@ pub fn strip_image(prepared: &Prepared, tiles: &[(String, Arc<Shown>)], sign: Si
     out
 }
 
-/// The reading as JSON: exactly `spurion explain`'s reading.json (the CLI's own function builds
-/// it: the reading, the caution, the regions found with default finder settings and the flag).
-/// Runs on the export worker: finding the regions again is the CLI's cost, not the frame's.
-pub fn reading_json(prepared: &Prepared, shown: &Shown, card: &FeedCard) -> Result<serde_json::Value> {
-    let input = Input::picture((*prepared.picture).clone(), card)?;
-    let (v, _) = crate::cli::reading_json(&shown.reading, &input, &shown.map)?;
-    Ok(v)
+/// The reading as JSON: the same file `spurion explain` writes ([`crate::report::ReadingFile`]),
+/// with the regions and flag the inspector already found.
+pub fn reading_json(shown: &Shown) -> Result<serde_json::Value> {
+    ReadingFile::new(&shown.reading, Some(shown.assessment.clone())).to_json()
 }
 
 impl ExportJob {
@@ -195,8 +193,8 @@ impl ExportJob {
             ExportJob::Strip { path, prepared, tiles, sign, per_map } => {
                 render::save(&path, &strip_image(&prepared, &tiles, sign, per_map))?;
             }
-            ExportJob::Json { path, prepared, shown, card } => {
-                let text = serde_json::to_string_pretty(&reading_json(&prepared, &shown, &card)?)? + "\n";
+            ExportJob::Json { path, shown } => {
+                let text = serde_json::to_string_pretty(&reading_json(&shown)?)? + "\n";
                 std::fs::write(&path, text).with_context(|| format!("cannot write {}", path.display()))?;
             }
         }

@@ -1,113 +1,13 @@
 //! What the reading controls edit, and how it becomes an engine request.
 //!
 //! The form keeps every parameter of every choice (so switching method and back keeps the steps
-//! the user typed); only the ones the chosen method and baseline use go into the request.
+//! the user typed); only the ones the chosen method and baseline use go into the request, as the
+//! engine's own typed values.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
-/// Attribution methods offered in the controls (published names).
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-pub enum MethodChoice {
-    Gradient,
-    GradientXInput,
-    IntegratedGradients,
-    SmoothGrad,
-    ExpectedGradients,
-    Occlusion,
-}
-
-impl MethodChoice {
-    pub const ALL: [MethodChoice; 6] = [
-        MethodChoice::IntegratedGradients,
-        MethodChoice::Gradient,
-        MethodChoice::GradientXInput,
-        MethodChoice::SmoothGrad,
-        MethodChoice::ExpectedGradients,
-        MethodChoice::Occlusion,
-    ];
-
-    pub fn name(self) -> &'static str {
-        match self {
-            MethodChoice::Gradient => "gradient",
-            MethodChoice::GradientXInput => "gradient × input",
-            MethodChoice::IntegratedGradients => "integrated gradients",
-            MethodChoice::SmoothGrad => "SmoothGrad",
-            MethodChoice::ExpectedGradients => "expected gradients",
-            MethodChoice::Occlusion => "occlusion",
-        }
-    }
-
-    /// Whether the method's result depends on a baseline (the strip only makes sense then).
-    pub fn takes_baseline(self) -> bool {
-        matches!(self, MethodChoice::IntegratedGradients | MethodChoice::Occlusion)
-    }
-}
-
-/// Baselines offered in the controls and the strip.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-pub enum BaselineChoice {
-    Black,
-    Grey,
-    Blur,
-    UniformNoise,
-    GaussianNoise,
-    DatasetMean,
-    Custom,
-}
-
-impl BaselineChoice {
-    pub const ALL: [BaselineChoice; 7] = [
-        BaselineChoice::Black,
-        BaselineChoice::Grey,
-        BaselineChoice::Blur,
-        BaselineChoice::UniformNoise,
-        BaselineChoice::GaussianNoise,
-        BaselineChoice::DatasetMean,
-        BaselineChoice::Custom,
-    ];
-
-    pub fn name(self) -> &'static str {
-        match self {
-            BaselineChoice::Black => "black",
-            BaselineChoice::Grey => "grey",
-            BaselineChoice::Blur => "blur",
-            BaselineChoice::UniformNoise => "uniform noise",
-            BaselineChoice::GaussianNoise => "Gaussian noise",
-            BaselineChoice::DatasetMean => "dataset mean",
-            BaselineChoice::Custom => "custom image",
-        }
-    }
-}
-
-/// The class a reading explains.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Default)]
-pub enum TargetChoice {
-    /// Whatever class scores highest on this image.
-    #[default]
-    Top,
-    Index(usize),
-}
-
-/// Which score the reading differentiates (mirrors the engine's score kinds).
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Default)]
-pub enum ScoreChoice {
-    /// The model's output 0 as it is.
-    #[default]
-    Raw,
-    Softmax,
-    Logits,
-}
-
-impl ScoreChoice {
-    pub const ALL: [ScoreChoice; 3] = [ScoreChoice::Raw, ScoreChoice::Softmax, ScoreChoice::Logits];
-    pub fn name(self) -> &'static str {
-        match self {
-            ScoreChoice::Raw => "output as given",
-            ScoreChoice::Softmax => "softmax probability",
-            ScoreChoice::Logits => "logit (before softmax)",
-        }
-    }
-}
+use crate::methods::catalog::{BaselineKind, METHODS, MethodKind};
+use crate::methods::{self, Baseline, Method, Request, ScoreKind, TargetSpec};
 
 /// The inspector's default baseline is a blur of this σ (model-grid pixels); see [`DEFAULT_BASELINE_WHY`].
 pub const DEFAULT_BLUR_SIGMA: f32 = 8.0;
@@ -125,7 +25,7 @@ pub const BLACK_BASELINE_CAVEAT: &str = "black = the dark frame: x − x′ = 0 
 /// Everything the reading controls edit.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Form {
-    pub method: MethodChoice,
+    pub method: MethodKind,
     pub steps: usize,
     /// Integrated gradients: refine from `steps` until the completeness gap is under 1%.
     pub refine: bool,
@@ -134,7 +34,7 @@ pub struct Form {
     pub seed: u64,
     pub window: usize,
     pub stride: usize,
-    pub baseline: BaselineChoice,
+    pub baseline: BaselineKind,
     pub blur_sigma: f32,
     pub noise_sigma: f32,
     pub noise_seed: u64,
@@ -142,14 +42,14 @@ pub struct Form {
     pub mean_dir: String,
     /// Image used as the custom baseline ("" = none chosen yet).
     pub custom_path: String,
-    pub target: TargetChoice,
-    pub score: ScoreChoice,
+    pub target: TargetSpec,
+    pub score: ScoreKind,
 }
 
 impl Default for Form {
     fn default() -> Self {
         Form {
-            method: MethodChoice::IntegratedGradients,
+            method: MethodKind::IntegratedGradients,
             steps: 32,
             refine: true,
             samples: 16,
@@ -157,106 +57,63 @@ impl Default for Form {
             seed: 7,
             window: 16,
             stride: 8,
-            baseline: BaselineChoice::Blur,
+            baseline: BaselineKind::Blur,
             blur_sigma: DEFAULT_BLUR_SIGMA,
             noise_sigma: 0.2,
             noise_seed: 7,
             mean_dir: String::new(),
             custom_path: String::new(),
-            target: TargetChoice::Top,
-            score: ScoreChoice::Raw,
+            target: TargetSpec::Top,
+            score: ScoreKind::Raw,
         }
     }
 }
 
-/// A form turned into plain words the engine parses, plus the folder context it needs.
-#[derive(Clone, Debug, PartialEq, Eq, Hash)]
-pub struct Ask {
-    pub method: MethodChoice,
-    /// Method parameters that matter for the chosen method only (cache key material).
-    pub method_params: Vec<(&'static str, String)>,
-    pub baseline: BaselineSpec,
-    pub target: TargetChoice,
-    pub score: ScoreChoice,
-}
-
-/// A baseline with its resolved parameter.
-#[derive(Clone, Debug, PartialEq, Eq, Hash)]
-pub enum BaselineSpec {
-    Black,
-    Grey,
-    /// σ in image pixels, kept as text so the key is exact.
-    Blur(String),
-    UniformNoise(u64),
-    GaussianNoise(String, u64),
-    Mean(PathBuf),
-    Image(PathBuf),
-}
-
-impl BaselineSpec {
-    pub fn choice(&self) -> BaselineChoice {
-        match self {
-            BaselineSpec::Black => BaselineChoice::Black,
-            BaselineSpec::Grey => BaselineChoice::Grey,
-            BaselineSpec::Blur(_) => BaselineChoice::Blur,
-            BaselineSpec::UniformNoise(_) => BaselineChoice::UniformNoise,
-            BaselineSpec::GaussianNoise(..) => BaselineChoice::GaussianNoise,
-            BaselineSpec::Mean(_) => BaselineChoice::DatasetMean,
-            BaselineSpec::Image(_) => BaselineChoice::Custom,
-        }
-    }
-
-    /// Short label for strip tiles and file names.
-    pub fn label(&self) -> String {
-        match self {
-            BaselineSpec::Black => "black".into(),
-            BaselineSpec::Grey => "grey".into(),
-            BaselineSpec::Blur(s) => format!("blur σ {s}"),
-            BaselineSpec::UniformNoise(seed) => format!("uniform noise #{seed}"),
-            BaselineSpec::GaussianNoise(s, seed) => format!("Gaussian σ {s} #{seed}"),
-            BaselineSpec::Mean(_) => "dataset mean".into(),
-            BaselineSpec::Image(p) => format!("custom: {}", super::short_name(p)),
-        }
-    }
-}
-
-fn num(v: f32) -> String {
-    // Shortest text that round-trips, so "4" not "4.0000".
-    format!("{v}")
+/// The methods the controls offer, in menu order.
+pub fn method_menu() -> impl Iterator<Item = MethodKind> {
+    METHODS.iter().map(|e| e.kind)
 }
 
 impl Form {
-    /// The baseline the form names, or why it cannot be used yet. `image_dir` is the folder of
-    /// the current image (the default for the dataset mean).
-    pub fn baseline_spec(&self, choice: BaselineChoice, image_dir: Option<&std::path::Path>) -> Result<BaselineSpec, String> {
-        Ok(match choice {
-            BaselineChoice::Black => BaselineSpec::Black,
-            BaselineChoice::Grey => BaselineSpec::Grey,
-            BaselineChoice::Blur => {
+    /// The chosen method with the form's settings for it.
+    pub fn method(&self) -> Method {
+        match self.method {
+            MethodKind::Gradient => Method::Gradient,
+            MethodKind::GradientXInput => Method::GradientXInput,
+            // Refined as the engine's default reading is; the step count is where it starts.
+            MethodKind::IntegratedGradients if self.refine => {
+                Method::refined_integrated_gradients(self.steps, methods::DEFAULT_ADAPTIVE_GAP)
+            }
+            MethodKind::IntegratedGradients => {
+                Method::IntegratedGradients { steps: self.steps, rule: methods::DEFAULT_RULE, adaptive: None }
+            }
+            MethodKind::SmoothGrad => Method::SmoothGrad { noise: self.smooth_noise, samples: self.samples, seed: self.seed },
+            MethodKind::ExpectedGradients => Method::ExpectedGradients { samples: self.samples, seed: self.seed },
+            MethodKind::Occlusion => Method::Occlusion { window: self.window, stride: self.stride },
+        }
+    }
+
+    /// The baseline of kind `kind` with the form's parameters, or why it cannot be used yet.
+    /// `image_dir` is the folder of the current image (the default for the dataset mean).
+    pub fn baseline_of(&self, kind: BaselineKind, image_dir: Option<&Path>) -> Result<Baseline, String> {
+        Ok(match kind {
+            BaselineKind::Black => Baseline::Black,
+            BaselineKind::Grey => Baseline::Grey,
+            BaselineKind::Blur => {
                 if !(self.blur_sigma > 0.0) {
                     return Err("blur σ must be above 0".into());
                 }
-                BaselineSpec::Blur(num(self.blur_sigma))
+                Baseline::Blur { sigma: self.blur_sigma }
             }
-            BaselineChoice::UniformNoise => BaselineSpec::UniformNoise(self.noise_seed),
-            BaselineChoice::GaussianNoise => {
+            BaselineKind::UniformNoise => Baseline::UniformNoise { seed: self.noise_seed },
+            BaselineKind::GaussianNoise => {
                 if !(self.noise_sigma > 0.0) {
                     return Err("Gaussian noise σ must be above 0".into());
                 }
-                BaselineSpec::GaussianNoise(num(self.noise_sigma), self.noise_seed)
+                Baseline::GaussianNoise { sigma: self.noise_sigma, seed: self.noise_seed }
             }
-            BaselineChoice::DatasetMean => {
-                let dir = if self.mean_dir.trim().is_empty() {
-                    image_dir.map(|d| d.to_path_buf()).ok_or("no folder for the dataset mean: type one")?
-                } else {
-                    PathBuf::from(self.mean_dir.trim())
-                };
-                if !dir.is_dir() {
-                    return Err(format!("dataset mean: {} is not a folder", dir.display()));
-                }
-                BaselineSpec::Mean(dir)
-            }
-            BaselineChoice::Custom => {
+            BaselineKind::Mean => Baseline::Mean { dir: self.folder(&self.mean_dir, image_dir, "dataset mean")? },
+            BaselineKind::Image => {
                 let p = self.custom_path.trim();
                 if p.is_empty() {
                     return Err("custom baseline: type or pick an image path".into());
@@ -265,78 +122,71 @@ impl Form {
                 if !p.is_file() {
                     return Err(format!("custom baseline: {} is not a file", p.display()));
                 }
-                BaselineSpec::Image(p)
+                Baseline::Image { path: p }
+            }
+            BaselineKind::Value | BaselineKind::Tensor | BaselineKind::Folder => {
+                return Err(format!("the inspector does not offer the {} baseline", kind.entry().title));
             }
         })
     }
 
-    /// The form as an [`Ask`] for the given baseline.
-    pub fn ask_with(&self, baseline: BaselineSpec) -> Ask {
-        let method_params = match self.method {
-            MethodChoice::Gradient | MethodChoice::GradientXInput => vec![],
-            MethodChoice::IntegratedGradients => {
-                vec![("steps", self.steps.to_string()), ("refine", self.refine.to_string())]
-            }
-            MethodChoice::SmoothGrad => vec![
-                ("samples", self.samples.to_string()),
-                ("noise", num(self.smooth_noise)),
-                ("seed", self.seed.to_string()),
-            ],
-            MethodChoice::ExpectedGradients => {
-                vec![("samples", self.samples.to_string()), ("seed", self.seed.to_string())]
-            }
-            MethodChoice::Occlusion => {
-                vec![("window", self.window.to_string()), ("stride", self.stride.to_string())]
-            }
-        };
-        // Methods without a baseline get a fixed one so that changing the baseline control does
-        // not fill the cache with copies of the same reading.
-        let baseline = if self.method.takes_baseline() || self.method == MethodChoice::ExpectedGradients {
-            baseline
+    /// A folder typed in `field`, or the current image's folder when it is empty.
+    fn folder(&self, field: &str, image_dir: Option<&Path>, what: &str) -> Result<PathBuf, String> {
+        let dir = if field.trim().is_empty() {
+            image_dir.map(|d| d.to_path_buf()).ok_or(format!("no folder for the {what}: type one"))?
         } else {
-            BaselineSpec::Black
+            PathBuf::from(field.trim())
         };
-        Ask { method: self.method, method_params, baseline, target: self.target, score: self.score }
+        if !dir.is_dir() {
+            return Err(format!("{what}: {} is not a folder", dir.display()));
+        }
+        Ok(dir)
     }
 
-    /// The form as an [`Ask`] with its own baseline.
-    pub fn ask(&self, image_dir: Option<&std::path::Path>) -> Result<Ask, String> {
-        let b = if self.method.takes_baseline() {
-            self.baseline_spec(self.baseline, image_dir)?
-        } else {
-            BaselineSpec::Black
-        };
-        Ok(self.ask_with(b))
+    /// The request for the form's method with `baseline`. Methods that take no baseline get a
+    /// fixed one, so that changing the baseline control does not fill the cache with copies of
+    /// the same reading.
+    pub fn request_with(&self, baseline: Baseline) -> Request {
+        let method = self.method();
+        let baseline = if method.uses_baseline() { baseline } else { Baseline::Black };
+        Request { method, baseline, target: self.target.clone(), score: self.score }
     }
 
-    /// The strip's baselines: every kind the form can resolve, in a fixed order, with the reason
-    /// for each that cannot be used yet.
-    pub fn strip_specs(&self, image_dir: Option<&std::path::Path>) -> Vec<(BaselineChoice, Result<BaselineSpec, String>)> {
-        BaselineChoice::ALL.iter().map(|&c| (c, self.baseline_spec(c, image_dir))).collect()
+    /// The form as a request with its own baseline, or why it cannot be made.
+    pub fn request(&self, image_dir: Option<&Path>) -> Result<Request, String> {
+        let b = if self.method.entry().uses_baseline { self.baseline_of(self.baseline, image_dir)? } else { Baseline::Black };
+        Ok(self.request_with(b))
+    }
+
+    /// The strip's baselines: every kind the inspector offers, in order, with the reason for
+    /// each that cannot be used yet.
+    pub fn strip_baselines(&self, image_dir: Option<&Path>) -> Vec<(BaselineKind, Result<Baseline, String>)> {
+        BaselineKind::in_inspector().map(|k| (k, self.baseline_of(k, image_dir))).collect()
     }
 }
 
-impl Ask {
-    /// One line describing the reading, for tiles, tooltips and file names.
-    pub fn describe(&self) -> String {
-        let refined = self.method_params.iter().any(|(k, v)| *k == "refine" && v == "true");
-        let params: Vec<String> = self
-            .method_params
-            .iter()
-            .filter_map(|(k, v)| match (*k, refined) {
-                ("refine", true) => Some("refined to a 1 % gap".to_string()),
-                ("refine", false) => None,
-                ("steps", true) => Some(format!("from {v} steps")),
-                _ => Some(format!("{k} {v}")),
-            })
-            .collect();
-        let mut s = self.method.name().to_string();
-        if !params.is_empty() {
-            s.push_str(&format!(" ({})", params.join(", ")));
-        }
-        if self.method.takes_baseline() {
-            s.push_str(&format!(", baseline {}", self.baseline.label()));
-        }
-        s
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn integrated_gradients_refine_by_default_and_run_fixed_when_asked() {
+        let mut form = Form::default();
+        let r = form.request_with(Baseline::Black);
+        assert_eq!(
+            r.method,
+            Method::IntegratedGradients { steps: form.steps, rule: methods::Rule::Midpoint, adaptive: Some(methods::DEFAULT_ADAPTIVE_GAP) }
+        );
+        form.refine = false;
+        let r = form.request_with(Baseline::Black);
+        assert_eq!(r.method, Method::IntegratedGradients { steps: form.steps, rule: methods::DEFAULT_RULE, adaptive: None });
+    }
+
+    #[test]
+    fn expected_gradients_keep_the_chosen_baseline() {
+        let form = Form { method: MethodKind::ExpectedGradients, baseline: BaselineKind::UniformNoise, ..Form::default() };
+        assert_eq!(form.request(None).unwrap().baseline, Baseline::UniformNoise { seed: form.noise_seed });
+        let form = Form { method: MethodKind::Gradient, ..form };
+        assert_eq!(form.request(None).unwrap().baseline, Baseline::Black, "a method without a baseline gets a fixed one");
     }
 }

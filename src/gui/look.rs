@@ -5,7 +5,7 @@
 use egui::{Color32, CornerRadius, Stroke, Visuals};
 
 /// Ground of side panels.
-pub const SLATE: Color32 = Color32::from_rgb(0x22, 0x27, 0x2e);
+pub const SLATE: Color32 = Color32::from_rgb(0x23, 0x2a, 0x2c);
 /// Ground behind the slide (darker, so the image edge is visible).
 pub const DEEP: Color32 = Color32::from_rgb(0x14, 0x17, 0x1b);
 /// Text.

@@ -9,19 +9,26 @@
 //! figures from `spurion::methods::agree`; this module only turns them into pixels and text.
 
 pub mod app;
+pub mod config;
 pub mod engine;
 pub mod export;
 pub mod form;
+pub mod intents;
 pub mod look;
+mod open;
 pub mod paint;
 pub mod panels;
+mod readings;
 pub mod recent;
+mod results;
 pub mod state;
+pub mod textures;
 pub mod work;
 
 use std::path::{Path, PathBuf};
 
-pub use app::{Inspector, InspectorConfig};
+pub use app::Inspector;
+pub use config::InspectorConfig;
 
 /// What the inspector opens with. Empty means the bundled sample model and demo images.
 #[derive(Clone, Debug, Default)]

@@ -5,7 +5,8 @@ use egui::{Color32, ColorImage};
 use ndarray::Array2;
 
 use crate::feed::Picture;
-use crate::render::{self, Sign};
+use crate::render;
+use crate::sign::Sign;
 
 /// Largest texture side the inspector uploads; bigger images are shown subsampled (the hover
 /// readout still reads the full-resolution arrays).
@@ -73,12 +74,7 @@ pub fn legend_ramp(sign: Sign, n: usize) -> ColorImage {
     let px = (0..n)
         .map(|i| {
             let f = i as f32 / (n - 1).max(1) as f32;
-            let v = match sign {
-                Sign::Both => 2.0 * f - 1.0,
-                Sign::Opposing => -f,
-                _ => f,
-            };
-            let ([r, g, b], _) = render::shade(v, 1.0, sign);
+            let ([r, g, b], _) = render::shade(render::ramp_value(sign, f), 1.0, sign);
             Color32::from_rgb(r, g, b)
         })
         .collect();
@@ -132,20 +128,6 @@ pub fn mask_edges(mask: &Array2<bool>) -> Vec<[[f32; 2]; 2]> {
         }
     }
     out
-}
-
-/// Writes an egui image as PNG (exports).
-pub fn save_png(img: &ColorImage, path: &std::path::Path) -> anyhow::Result<()> {
-    use anyhow::Context;
-    let [w, h] = img.size;
-    let mut buf = image::RgbImage::new(w as u32, h as u32);
-    for (i, c) in img.pixels.iter().enumerate() {
-        buf.put_pixel((i % w) as u32, (i / w) as u32, image::Rgb([c.r(), c.g(), c.b()]));
-    }
-    if let Some(dir) = path.parent() {
-        std::fs::create_dir_all(dir).with_context(|| format!("cannot create folder {}", dir.display()))?;
-    }
-    buf.save(path).with_context(|| format!("cannot write {}", path.display()))
 }
 
 #[cfg(test)]

@@ -9,12 +9,15 @@ use ndarray::Array2;
 
 use crate::feed::{FeedCard, Picture};
 use crate::methods::Reading;
-use crate::methods::agree::{Agreement, Sign, Spread};
+use crate::methods::agree::{Agreement, Spread};
+use crate::sign::Sign;
 
 use crate::model::Model;
 use crate::regions::{Assessment, Region};
 
-use super::form::{Ask, BaselineChoice, BaselineSpec, Form};
+use crate::methods::{BaselineKind, Request};
+
+use super::form::Form;
 
 /// A loaded model with the card it is fed by.
 pub struct Session {
@@ -63,10 +66,34 @@ pub struct Shown {
 }
 
 /// A reading's identity: which image, which request. Equal keys give the same reading.
-#[derive(Clone, Debug, PartialEq, Eq, Hash)]
+#[derive(Clone, Debug)]
 pub struct Key {
     pub image: PathBuf,
-    pub ask: Ask,
+    pub request: Request,
+    /// The request's canonical text, which is what keys compare and hash by.
+    text: String,
+}
+
+impl Key {
+    pub fn new(image: &Path, request: Request) -> Key {
+        let text = request.key_text();
+        Key { image: image.to_path_buf(), request, text }
+    }
+}
+
+impl PartialEq for Key {
+    fn eq(&self, other: &Key) -> bool {
+        self.image == other.image && self.text == other.text
+    }
+}
+
+impl Eq for Key {}
+
+impl std::hash::Hash for Key {
+    fn hash<H: std::hash::Hasher>(&self, h: &mut H) {
+        self.image.hash(h);
+        self.text.hash(h);
+    }
 }
 
 pub type JobId = u64;
@@ -89,9 +116,6 @@ impl ReadingCache {
             Some(Slot::Done(s)) => Some(s),
             _ => None,
         }
-    }
-    pub fn len_done(&self) -> usize {
-        self.slots.values().filter(|s| matches!(s, Slot::Done(_))).count()
     }
 }
 
@@ -151,7 +175,7 @@ impl Default for ViewSettings {
 /// The baseline strip: which readings it shows and the agreement over them.
 #[derive(Default)]
 pub struct StripState {
-    /// One colour scale for all maps (else each map its own).
+    /// Each map on its own colour scale (else one scale for all maps).
     pub per_map_scale: bool,
     /// Set when the user asked for the strip of the current image and settings.
     pub wanted: Option<StripPlan>,
@@ -163,18 +187,15 @@ pub struct StripState {
 #[derive(Clone, Debug, PartialEq)]
 pub struct StripPlan {
     pub image: PathBuf,
-    pub tiles: Vec<(BaselineChoice, Result<Key, String>)>,
+    pub tiles: Vec<(BaselineKind, Result<Key, String>)>,
 }
 
 impl StripPlan {
     pub fn new(image: &Path, form: &Form, image_dir: Option<&Path>) -> StripPlan {
         let tiles = form
-            .strip_specs(image_dir)
+            .strip_baselines(image_dir)
             .into_iter()
-            .map(|(c, spec)| {
-                let key = spec.map(|s: BaselineSpec| Key { image: image.to_path_buf(), ask: form.ask_with(s) });
-                (c, key)
-            })
+            .map(|(kind, b)| (kind, b.map(|b| Key::new(image, form.request_with(b)))))
             .collect();
         StripPlan { image: image.to_path_buf(), tiles }
     }
@@ -212,7 +233,8 @@ pub enum NoteKind {
     Error,
 }
 
-/// Where exports go when no save dialog is available (editable in the export panel).
+/// Where exports go when no save dialog is available (editable in the export panel): a folder in
+/// the current folder, shown relative so the panel names no machine's paths.
 pub fn default_export_dir() -> PathBuf {
-    std::env::current_dir().unwrap_or_else(|_| PathBuf::from(".")).join("spurion-export")
+    PathBuf::from("spurion-export")
 }

@@ -8,7 +8,7 @@
 
 use std::path::PathBuf;
 use std::sync::mpsc::{Receiver, Sender, channel};
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
 use crate::control::Control;
 use crate::methods::agree::Agreement;
@@ -23,6 +23,10 @@ pub enum Done {
     Agreement { key: AgreementKey, result: Agreement },
     Picked { purpose: Pick, paths: Option<Vec<PathBuf>>, took: Duration },
     Exported { result: Result<Vec<PathBuf>, String> },
+    /// A job that sent its results through its outbox has ended.
+    Finished,
+    /// A job with nothing of its own to report failed (the text says what failed).
+    Failed(String),
 }
 
 /// Why a file dialog was opened (decides what is done with its answer).
@@ -58,7 +62,8 @@ pub struct Outbox {
 
 impl Outbox {
     pub fn send(&self, done: Done) {
-        let _ = self.tx.send((self.id, done, false));
+        // The receiver is gone only when the inspector is closing; nothing to tell then.
+        self.tx.send((self.id, done, false)).ok();
         self.ctx.request_repaint();
     }
 }
@@ -68,7 +73,6 @@ pub struct Running {
     pub id: JobId,
     pub label: String,
     pub ctl: Control,
-    pub started: Instant,
     /// Readings are cancellable; dialogs and exports are not worth it.
     pub cancellable: bool,
 }
@@ -88,12 +92,15 @@ impl Workers {
         Workers { tx, rx, next: 1, running: Vec::new(), repaint }
     }
 
-    /// Starts `job` on its own thread; it gets a fresh [`Control`] wired to repaint the UI.
+    /// Starts `job` on its own thread; it gets a fresh [`Control`] wired to repaint the UI. If the
+    /// job panics, what `on_panic` makes of the panic's message is sent in its place, once (a
+    /// reading that panics is a failed reading, not asked for again).
     pub fn spawn(
         &mut self,
         label: impl Into<String>,
         cancellable: bool,
         job: impl FnOnce(&Control, &Outbox) -> Done + Send + 'static,
+        on_panic: impl FnOnce(String) -> Done + Send + 'static,
     ) -> (JobId, Control) {
         let id = self.next;
         self.next += 1;
@@ -115,13 +122,14 @@ impl Workers {
                         .cloned()
                         .or_else(|| p.downcast_ref::<&str>().map(|s| s.to_string()))
                         .unwrap_or_else(|| "unknown".into());
-                    Done::Exported { result: Err(format!("internal error in a worker (please report): {msg}")) }
+                    on_panic(format!("internal error (please report): {msg}"))
                 });
-                let _ = tx.send((id, done, true));
+                // The receiver is gone only when the inspector is closing; nothing to tell then.
+                tx.send((id, done, true)).ok();
                 ctx.request_repaint();
             })
             .expect("the system refused to start a thread");
-        self.running.push(Running { id, label, ctl: ctl.clone(), started: Instant::now(), cancellable });
+        self.running.push(Running { id, label, ctl: ctl.clone(), cancellable });
         (id, ctl)
     }
 
@@ -150,5 +158,4 @@ impl Workers {
     pub fn is_running(&self, id: JobId) -> bool {
         self.running.iter().any(|r| r.id == id)
     }
-
 }

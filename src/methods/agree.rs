@@ -13,21 +13,12 @@
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
-pub use crate::render::Sign;
+use crate::sign::Sign;
 
-/// A value seen through `sign`: supporting max(v, 0), opposing max(−v, 0), both v, magnitude |v|.
-pub fn apply(sign: Sign, v: f32) -> f32 {
-    match sign {
-        Sign::Supporting => v.max(0.0),
-        Sign::Opposing => (-v).max(0.0),
-        Sign::Both => v,
-        Sign::Magnitude => v.abs(),
-    }
-}
-
-/// The map seen through `sign` (same grid).
+/// The map seen through `sign` (same grid): supporting max(v, 0), opposing max(−v, 0), both v,
+/// magnitude |v|.
 pub fn view(map: &Array2<f32>, sign: Sign) -> Array2<f32> {
-    map.mapv(|v| apply(sign, v))
+    map.mapv(|v| sign.apply(v))
 }
 
 /// Ranks 1..=n of `values`, ties sharing the mean of their ranks. NaN sorts last.

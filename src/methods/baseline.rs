@@ -16,6 +16,7 @@ use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 use serde::{Deserialize, Serialize};
 
+use super::catalog::{BaselineKind, baseline_forms, tensor_baseline_forms};
 use crate::feed::{Feeder, Picture, list_images};
 
 /// A baseline choice. Parsed from the CLI forms in [`Baseline::parse`].
@@ -44,12 +45,10 @@ pub enum Baseline {
     Folder { dir: PathBuf },
 }
 
-pub const BASELINE_FORMS: &str = "black | grey | value:V | blur:SIGMA | uniform-noise:SEED | \
-gaussian-noise:SIGMA:SEED | mean:DIR | image:PATH | tensor:PATH.npy | folder:DIR";
-
 impl Baseline {
-    /// Parses `black`, `grey`, `value:0.2`, `blur:8`, `uniform-noise:7`,
-    /// `gaussian-noise:0.1:7`, `mean:DIR`, `image:PATH`, `tensor:PATH`, `folder:DIR`.
+    /// Parses the text forms of [`super::catalog::BASELINES`]: `black`, `grey`, `value:0.2`,
+    /// `blur:8`, `uniform-noise:7`, `gaussian-noise:0.1:7`, `mean:DIR`, `image:PATH`,
+    /// `tensor:PATH`, `folder:DIR`.
     pub fn parse(s: &str) -> Result<Baseline> {
         let (head, rest) = match s.split_once(':') {
             Some((h, r)) => (h, Some(r)),
@@ -66,19 +65,22 @@ impl Baseline {
         let need = |what: &str| -> Result<&str> {
             rest.filter(|r| !r.is_empty()).with_context(|| format!("baseline \"{s}\" needs {what}: {head}:{what}"))
         };
-        Ok(match head {
-            "black" | "zero" | "zeros" => Baseline::Black,
-            "grey" | "gray" => Baseline::Grey,
-            "value" => Baseline::Value { value: num(need("V")?, "value")? },
-            "blur" => {
+        let Some(kind) = BaselineKind::from_head(head) else {
+            bail!("unknown baseline \"{s}\"; use one of: {}", baseline_forms());
+        };
+        Ok(match kind {
+            BaselineKind::Black => Baseline::Black,
+            BaselineKind::Grey => Baseline::Grey,
+            BaselineKind::Value => Baseline::Value { value: num(need("V")?, "value")? },
+            BaselineKind::Blur => {
                 let sigma = num(need("SIGMA")?, "sigma")?;
                 if sigma <= 0.0 {
                     bail!("baseline \"{s}\": blur sigma must be positive");
                 }
                 Baseline::Blur { sigma }
             }
-            "uniform-noise" => Baseline::UniformNoise { seed: rest.map(seed).transpose()?.unwrap_or(0) },
-            "gaussian-noise" => {
+            BaselineKind::UniformNoise => Baseline::UniformNoise { seed: rest.map(seed).transpose()?.unwrap_or(0) },
+            BaselineKind::GaussianNoise => {
                 let r = need("SIGMA:SEED")?;
                 let (sg, sd) = r.split_once(':').unwrap_or((r, "0"));
                 let sigma = num(sg, "sigma")?;
@@ -87,33 +89,63 @@ impl Baseline {
                 }
                 Baseline::GaussianNoise { sigma, seed: seed(sd)? }
             }
-            "mean" => Baseline::Mean { dir: need("DIR")?.into() },
-            "image" => Baseline::Image { path: need("PATH")?.into() },
-            "tensor" => Baseline::Tensor { path: need("PATH")?.into() },
-            "folder" => Baseline::Folder { dir: need("DIR")?.into() },
-            _ => bail!("unknown baseline \"{s}\"; use one of: {BASELINE_FORMS}"),
+            BaselineKind::Mean => Baseline::Mean { dir: need("DIR")?.into() },
+            BaselineKind::Image => Baseline::Image { path: need("PATH")?.into() },
+            BaselineKind::Tensor => Baseline::Tensor { path: need("PATH")?.into() },
+            BaselineKind::Folder => Baseline::Folder { dir: need("DIR")?.into() },
         })
+    }
+
+    pub fn kind(&self) -> BaselineKind {
+        match self {
+            Baseline::Black => BaselineKind::Black,
+            Baseline::Grey => BaselineKind::Grey,
+            Baseline::Value { .. } => BaselineKind::Value,
+            Baseline::Blur { .. } => BaselineKind::Blur,
+            Baseline::UniformNoise { .. } => BaselineKind::UniformNoise,
+            Baseline::GaussianNoise { .. } => BaselineKind::GaussianNoise,
+            Baseline::Mean { .. } => BaselineKind::Mean,
+            Baseline::Image { .. } => BaselineKind::Image,
+            Baseline::Tensor { .. } => BaselineKind::Tensor,
+            Baseline::Folder { .. } => BaselineKind::Folder,
+        }
     }
 
     /// The canonical text form (what `parse` reads back).
     pub fn label(&self) -> String {
+        let head = self.kind().entry().head;
+        match self {
+            Baseline::Black | Baseline::Grey => head.into(),
+            Baseline::Value { value } => format!("{head}:{value}"),
+            Baseline::Blur { sigma } => format!("{head}:{sigma}"),
+            Baseline::UniformNoise { seed } => format!("{head}:{seed}"),
+            Baseline::GaussianNoise { sigma, seed } => format!("{head}:{sigma}:{seed}"),
+            Baseline::Mean { dir: p } | Baseline::Image { path: p } | Baseline::Tensor { path: p } | Baseline::Folder { dir: p } => {
+                format!("{head}:{}", p.display())
+            }
+        }
+    }
+
+    /// A short title for people (strip tiles, file names): `blur σ 8`, `uniform noise #7`.
+    pub fn title(&self) -> String {
+        let name = |p: &Path| p.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| p.display().to_string());
         match self {
             Baseline::Black => "black".into(),
             Baseline::Grey => "grey".into(),
-            Baseline::Value { value } => format!("value:{value}"),
-            Baseline::Blur { sigma } => format!("blur:{sigma}"),
-            Baseline::UniformNoise { seed } => format!("uniform-noise:{seed}"),
-            Baseline::GaussianNoise { sigma, seed } => format!("gaussian-noise:{sigma}:{seed}"),
-            Baseline::Mean { dir } => format!("mean:{}", dir.display()),
-            Baseline::Image { path } => format!("image:{}", path.display()),
-            Baseline::Tensor { path } => format!("tensor:{}", path.display()),
-            Baseline::Folder { dir } => format!("folder:{}", dir.display()),
+            Baseline::Value { value } => format!("value {value}"),
+            Baseline::Blur { sigma } => format!("blur σ {sigma}"),
+            Baseline::UniformNoise { seed } => format!("uniform noise #{seed}"),
+            Baseline::GaussianNoise { sigma, seed } => format!("Gaussian σ {sigma} #{seed}"),
+            Baseline::Mean { .. } => "dataset mean".into(),
+            Baseline::Image { path } => format!("custom: {}", name(path)),
+            Baseline::Tensor { path } => format!("tensor: {}", name(path)),
+            Baseline::Folder { dir } => format!("draws from {}", name(dir)),
         }
     }
 
     /// Whether each draw differs (noise families and folders), so expected gradients resample it.
     pub fn is_distribution(&self) -> bool {
-        matches!(self, Baseline::UniformNoise { .. } | Baseline::GaussianNoise { .. } | Baseline::Folder { .. })
+        self.kind().entry().distribution
     }
 }
 
@@ -253,9 +285,9 @@ pub(crate) fn build(b: &Baseline, space: &Space<'_>, draw: u64, folder_cache: &F
                     t
                 }
                 Baseline::Mean { .. } | Baseline::Image { .. } | Baseline::Folder { .. } => bail!(
-                    "baseline \"{}\" needs images fed through a feed card; with --tensor use \
-                     black, grey, value:V, blur:SIGMA, uniform-noise:SEED, gaussian-noise:SIGMA:SEED or tensor:PATH",
-                    b.label()
+                    "baseline \"{}\" needs images fed through a feed card; with --tensor use {}",
+                    b.label(),
+                    tensor_baseline_forms()
                 ),
             })
         }

@@ -23,8 +23,7 @@ use tract_onnx::tract_core::ops::nn::{Softmax, SoftmaxKind};
 
 use crate::control::{Cancelled, Control};
 use crate::grad::{self, ReversePass};
-
-pub(crate) type Plan = Arc<TypedSimplePlan>;
+use crate::graph::{Plan, geometry, optimized_plan};
 
 /// How to load a model.
 #[derive(Clone, Debug, Default)]
@@ -184,11 +183,6 @@ impl Model {
         self.before_softmax.is_some()
     }
 
-    /// The decluttered graph the reverse pass walks (for tools and tests).
-    pub fn graph(&self) -> &TypedModel {
-        &self.graph
-    }
-
     pub fn info(&self) -> ModelInfo {
         let g = &*self.graph;
         let mut ops: Vec<OpCount> = Vec::new();
@@ -199,7 +193,7 @@ impl Model {
                 None => ops.push(OpCount {
                     op: name,
                     count: 1,
-                    reverse_step: Some(grad::has_reverse_step(g, node)),
+                    reverse_step: Some(grad::has_reverse_step(node)),
                 }),
             }
         }
@@ -374,7 +368,7 @@ impl Model {
             let batch: Vec<ArrayD<f32>> = chunk
                 .iter()
                 .map(|&corner| {
-                    let pick = occlude::window_pick(spatial, corner, window);
+                    let pick = geometry::window_pick(spatial, corner, window);
                     let mut t = x.clone();
                     t.slice_each_axis_mut(pick).assign(&xb.slice_each_axis(pick));
                     t
@@ -487,14 +481,6 @@ fn final_softmax_input(g: &TypedModel, output: OutletId) -> Option<OutletId> {
         }
         return None;
     }
-}
-
-/// An optimized plan of a copy of `g` whose outputs are `outputs`.
-pub(crate) fn optimized_plan(g: &TypedModel, outputs: &[OutletId]) -> Result<Plan> {
-    let mut m = g.clone();
-    m.select_output_outlets(outputs).map_err(|e| anyhow!("{e}"))?;
-    let m = m.into_optimized().map_err(|e| anyhow!("tract could not optimize the graph: {e:#}"))?;
-    TypedSimplePlan::new(m).map_err(|e| anyhow!("tract could not plan the graph: {e:#}"))
 }
 
 fn onnx_op_counts(path: &Path) -> Result<Vec<(String, usize)>> {

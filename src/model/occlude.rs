@@ -26,8 +26,9 @@ use tract_onnx::tract_core::ops::einsum::EinSum;
 use tract_onnx::tract_core::ops::element_wise::ElementWiseOp;
 use tract_onnx::tract_core::ops::nn::DataFormat;
 
-use super::{Plan, optimized_plan};
 use crate::control::Control;
+use crate::graph::geometry::{self, window_pick};
+use crate::graph::{Plan, optimized_plan, plan, run_sub, to_array, to_vec};
 
 /// A changed region of a spatial map: half-open row and column ranges.
 type Bx = [(usize, usize); 2];
@@ -64,7 +65,7 @@ struct Patch {
 struct Step {
     inputs: Vec<Src>,
     out: usize,
-    rule: Rule,
+    growth: Growth,
     kind: Kind,
 }
 
@@ -72,13 +73,13 @@ struct Step {
 struct Candidate {
     node: usize,
     inputs: Vec<Src>,
-    rule: Rule,
+    growth: Growth,
     /// The largest changed box over all windows (rows, cols).
     big: [usize; 2],
 }
 
 /// How a node maps changed boxes.
-enum Rule {
+enum Growth {
     /// Element-wise: the union of the inputs' boxes.
     Same,
     /// Windowed (conv / pool) with per-axis stride, pad before, reach, output size.
@@ -105,11 +106,11 @@ fn union(a: Option<Bx>, b: Option<Bx>) -> Option<Bx> {
     }
 }
 
-impl Rule {
+impl Growth {
     fn apply(&self, b: Bx) -> Bx {
         match self {
-            Rule::Same => b,
-            Rule::Window { stride, pad, reach, size } => {
+            Growth::Same => b,
+            Growth::Window { stride, pad, reach, size } => {
                 let mut o = [(0, 0); 2];
                 for ax in 0..2 {
                     let (i0, i1) = (b[ax].0 as isize, b[ax].1 as isize);
@@ -122,7 +123,7 @@ impl Rule {
                 }
                 o
             }
-            Rule::Downsample { axis, stride, modulo, size } => {
+            Growth::Downsample { axis, stride, modulo, size } => {
                 let mut o = b;
                 let ax = axis - 2;
                 let (i0, i1) = (b[ax].0 as isize, b[ax].1 as isize);
@@ -142,16 +143,13 @@ fn nchw_hw(fact: &TypedFact) -> Option<[usize; 2]> {
     (s.len() == 4 && s[0] == 1 && fact.datum_type == f32::datum_type()).then(|| [s[2], s[3]])
 }
 
+/// Stride, pad before and reach per axis of a 2-d NCHW conv or pool on a map of size `in_hw`.
 fn window_geometry(spec: &PoolSpec, in_hw: [usize; 2]) -> Option<([usize; 2], [usize; 2], [usize; 2])> {
     if spec.data_format != DataFormat::NCHW || spec.rank() != 2 {
         return None;
     }
-    let pads = spec.computed_padding(&in_hw);
-    let (st, dil) = (spec.strides(), spec.dilations());
-    let stride = [st[0], st[1]];
-    let pad = [pads[0].pad_before, pads[1].pad_before];
-    let reach = [dil[0] * (spec.kernel_shape[0] - 1) + 1, dil[1] * (spec.kernel_shape[1] - 1) + 1];
-    Some((stride, pad, reach))
+    let a = geometry::axes_hw(spec, &in_hw);
+    Some(([a[0].stride, a[1].stride], [a[0].pad_before, a[1].pad_before], [a[0].reach(), a[1].reach()]))
 }
 
 /// Whether an einsum maps the two spatial axes of input 0 straight to the same output axes and
@@ -180,8 +178,231 @@ fn node_plan(g: &TypedModel, node: &TypedNode, op: Box<dyn TypedOp>, src_shapes:
     }
     let out = m.wire_node(&node.name, op, &wires)?;
     m.select_output_outlets(&out[..1])?;
-    let m = m.into_optimized().map_err(|e| anyhow!("{e:#}"))?;
-    TypedSimplePlan::new(m).map_err(|e| anyhow!("{e:#}"))
+    plan(m)
+}
+
+/// How node `node` maps changed boxes, if it can run on crops: its inputs' sources `srcs` (the
+/// fed ones among `vals`) and its output size `out_hw`. `None` sends it to the tail.
+fn growth_of(g: &TypedModel, node: &TypedNode, srcs: &[Src], vals: &[usize], out_hw: [usize; 2]) -> Result<Option<Growth>> {
+    let in_hw = nchw_hw(g.outlet_fact(node.inputs[0])?);
+    let single_fed = vals.len() == 1 && matches!(srcs[0], Src::Val(_));
+    let window = |spec: &PoolSpec| {
+        in_hw.and_then(|h| window_geometry(spec, h)).map(|(stride, pad, reach)| Growth::Window { stride, pad, reach, size: out_hw })
+    };
+    Ok(if let Some(c) = node.op_as::<Conv>() {
+        if c.q_params.is_some() || !single_fed { None } else { window(&c.pool_spec) }
+    } else if let Some(p) = node.op_as::<MaxPool>() {
+        if p.with_index_outputs.is_some() { None } else { window(&p.pool_spec) }
+    } else if let Some(d) = node.op_as::<Downsample>() {
+        ((2..4).contains(&d.axis) && d.stride > 0)
+            .then(|| Growth::Downsample { axis: d.axis, stride: d.stride as usize, modulo: d.modulo, size: out_hw })
+    } else if node.op_is::<TypedBinOp>() || node.op_is::<ElementWiseOp>() {
+        // Every fed input must have the output's spatial size (no spatial broadcast).
+        let same = node
+            .inputs
+            .iter()
+            .zip(srcs)
+            .all(|(i, s)| matches!(s, Src::Const) || g.outlet_fact(*i).ok().and_then(nchw_hw) == Some(out_hw));
+        same.then_some(Growth::Same)
+    } else if let Some(e) = node.op_as::<EinSum>() {
+        (pointwise_einsum(e) && e.q_params.is_none() && single_fed && in_hw == Some(out_hw)).then_some(Growth::Same)
+    } else {
+        None
+    })
+}
+
+/// Pass 1: which nodes can join the prefix, in evaluation order, and the largest box each gets
+/// over all windows. In the returned index, value k + 1 is the output of prefix[k] and value 0
+/// is the input.
+fn find_prefix(
+    g: &TypedModel,
+    input: OutletId,
+    tap: OutletId,
+    order: &[usize],
+    hw: [usize; 2],
+    window: usize,
+    wins: &[(usize, usize)],
+) -> Result<(HashMap<OutletId, usize>, Vec<Candidate>)> {
+    let mut index: HashMap<OutletId, usize> = HashMap::from([(input, 0)]);
+    let mut prefix: Vec<Candidate> = vec![];
+    let mut boxes: Vec<Vec<Option<Bx>>> = wins
+        .iter()
+        .map(|&(y0, x0)| vec![Some([(y0, (y0 + window).min(hw[0])), (x0, (x0 + window).min(hw[1]))])])
+        .collect();
+    for &n in order {
+        let node = g.node(n);
+        if n == input.node || node.op_is::<tract_onnx::tract_core::ops::konst::Const>() || n == tap.node {
+            continue;
+        }
+        if node.outputs.len() != 1 {
+            continue;
+        }
+        let Some(out_hw) = nchw_hw(&node.outputs[0].fact) else { continue };
+        let srcs: Option<Vec<Src>> = node
+            .inputs
+            .iter()
+            .map(|i| {
+                if g.outlet_fact(*i).ok()?.konst.is_some() {
+                    Some(Src::Const)
+                } else {
+                    index.get(i).map(|v| Src::Val(*v))
+                }
+            })
+            .collect();
+        let Some(srcs) = srcs else { continue };
+        let vals: Vec<usize> = srcs.iter().filter_map(|s| if let Src::Val(v) = s { Some(*v) } else { None }).collect();
+        if vals.is_empty() {
+            continue;
+        }
+        let Some(growth) = growth_of(g, node, &srcs, &vals, out_hw)? else { continue };
+        // Boxes for every window, and the largest.
+        let mut big = [0usize; 2];
+        for b in boxes.iter_mut() {
+            let mut acc = None;
+            for v in &vals {
+                acc = union(acc, b[*v]);
+            }
+            let ob = acc.map(|a| growth.apply(a));
+            if let Some(o) = ob {
+                big = [big[0].max(o[0].1 - o[0].0), big[1].max(o[1].1 - o[1].0)];
+            }
+            b.push(ob);
+        }
+        if (big[0] * big[1]) as f64 > TAIL_AREA * (out_hw[0] * out_hw[1]) as f64 {
+            for b in boxes.iter_mut() {
+                b.pop();
+            }
+            continue;
+        }
+        index.insert(OutletId::new(n, 0), prefix.len() + 1);
+        prefix.push(Candidate { node: n, inputs: srcs, growth, big: [big[0].max(1), big[1].max(1)] });
+    }
+    Ok((index, prefix))
+}
+
+/// The tail: every node not in the prefix that the tap needs, as one optimised plan whose
+/// sources are the prefix values it reads (returned in source order).
+fn build_tail(g: &TypedModel, tap: OutletId, order: &[usize], index: &HashMap<OutletId, usize>) -> Result<(Plan, Vec<usize>)> {
+    let in_prefix = |o: &OutletId| index.contains_key(o);
+    let mut needed = vec![false; g.nodes().len()];
+    needed[tap.node] = true;
+    for &n in order.iter().rev() {
+        if needed[n] && !in_prefix(&OutletId::new(n, 0)) {
+            for i in &g.node(n).inputs {
+                needed[i.node] = true;
+            }
+        }
+    }
+    let mut tail = TypedModel::default();
+    let mut map: HashMap<OutletId, OutletId> = HashMap::new();
+    let mut frontier = vec![];
+    for &n in order {
+        if !needed[n] {
+            continue;
+        }
+        let node = g.node(n);
+        let o = OutletId::new(n, 0);
+        if let Some(&v) = index.get(&o) {
+            let w = tail.add_source(format!("frontier{v}"), g.outlet_fact(o)?.without_value())?;
+            map.insert(o, w);
+            frontier.push(v);
+            continue;
+        }
+        if let Some(k) = node.op_as::<tract_onnx::tract_core::ops::konst::Const>() {
+            let w = tail.add_const(&node.name, k.val().clone())?;
+            map.insert(o, w);
+            continue;
+        }
+        let wires: Vec<OutletId> = node
+            .inputs
+            .iter()
+            .map(|i| map.get(i).copied().ok_or_else(|| anyhow!("tail input of {} not wired", node.name)))
+            .collect::<Result<_>>()?;
+        let outs = tail.wire_node(&node.name, node.op.clone(), &wires)?;
+        for (k, w) in outs.into_iter().enumerate() {
+            map.insert(OutletId::new(n, k), w);
+        }
+    }
+    tail.select_output_outlets(&[map[&tap]])?;
+    Ok((plan(tail)?, frontier))
+}
+
+/// Clean (unoccluded) values at `x`: the input, then each prefix node's output.
+fn clean_values(g: &TypedModel, x: &ArrayD<f32>, prefix: &[Candidate]) -> Result<Vec<ArrayD<f32>>> {
+    let outlets: Vec<OutletId> = prefix.iter().map(|c| OutletId::new(c.node, 0)).collect();
+    let got = optimized_plan(g, &outlets)?.run(tvec!(Tensor::from(x.clone()).into_tvalue())).map_err(|e| anyhow!("{e:#}"))?;
+    let mut clean = vec![x.clone()];
+    for t in got.iter() {
+        clean.push(to_array(t)?);
+    }
+    Ok(clean)
+}
+
+/// The step of one prefix node (its output is value `out`): a small plan on a fixed-size crop,
+/// or on whole tensors where its constants vary over the spatial axes.
+fn crop_step(g: &TypedModel, out: usize, c: Candidate) -> Result<Step> {
+    let Candidate { node: n, inputs, growth, big } = c;
+    let node = g.node(n);
+    let feeds: Vec<usize> = (0..inputs.len()).filter(|s| matches!(inputs[*s], Src::Val(_))).collect();
+    let channels = |slot: usize| -> Result<usize> {
+        Ok(g.outlet_fact(node.inputs[slot])?.shape.as_concrete().ok_or_else(|| anyhow!("symbolic shape"))?[1])
+    };
+    let crop = |op: Box<dyn TypedOp>, inp: [usize; 2], stride: [usize; 2], offset: [isize; 2], fill: f32| -> Result<Kind> {
+        let mut shapes = HashMap::new();
+        for &slot in &feeds {
+            shapes.insert(slot, vec![1, channels(slot)?, inp[0], inp[1]]);
+        }
+        let plan = node_plan(g, node, op, &shapes)?;
+        Ok(Kind::Crop { plan, feeds: feeds.clone(), out: big, inp, stride, offset, fill })
+    };
+    let kind = match &growth {
+        Growth::Window { stride, pad, reach, .. } => {
+            let inp = [(big[0] - 1) * stride[0] + reach[0], (big[1] - 1) * stride[1] + reach[1]];
+            let offset = [-(pad[0] as isize), -(pad[1] as isize)];
+            if let Some(c) = node.op_as::<Conv>() {
+                let mut c = c.clone();
+                c.pool_spec.padding = PaddingSpec::Valid;
+                crop(Box::new(c), inp, *stride, offset, 0.0)?
+            } else {
+                let mut p = node.op_as::<MaxPool>().expect("a window growth is a conv or a max pool").clone();
+                p.pool_spec.padding = PaddingSpec::Valid;
+                crop(Box::new(p), inp, *stride, offset, f32::NEG_INFINITY)?
+            }
+        }
+        Growth::Downsample { axis, stride, modulo, .. } => {
+            let ax = axis - 2;
+            let mut st = [1, 1];
+            st[ax] = *stride;
+            let mut off = [0, 0];
+            off[ax] = *modulo as isize;
+            let inp = [(big[0] - 1) * st[0] + 1, (big[1] - 1) * st[1] + 1];
+            let op = Downsample { axis: *axis, stride: *stride as isize, modulo: 0 };
+            crop(Box::new(op), inp, st, off, 0.0)?
+        }
+        Growth::Same => {
+            // Constants must not vary over the spatial axes (they are not cropped); a point-wise
+            // einsum's weights never touch them (checked in pass 1).
+            let flat = node.op_is::<EinSum>()
+                || node.inputs.iter().zip(&inputs).all(|(i, s)| match s {
+                    Src::Val(_) => true,
+                    Src::Const => g.outlet_fact(*i).is_ok_and(|f| {
+                        let sh = f.shape.as_concrete().unwrap_or(&[]);
+                        sh.iter().rev().take(2).all(|d| *d == 1)
+                    }),
+                });
+            if flat {
+                crop(node.op.clone(), big, [1, 1], [0, 0], 0.0)?
+            } else {
+                let mut shapes = HashMap::new();
+                for &slot in &feeds {
+                    let shape = g.outlet_fact(node.inputs[slot])?.shape.as_concrete().ok_or_else(|| anyhow!("symbolic shape"))?;
+                    shapes.insert(slot, shape.to_vec());
+                }
+                Kind::Whole { plan: node_plan(g, node, node.op.clone(), &shapes)?, feeds: feeds.clone() }
+            }
+        }
+    };
+    Ok(Step { inputs, out, growth, kind })
 }
 
 impl Occluder {
@@ -197,216 +418,17 @@ impl Occluder {
     ) -> Result<Option<Occluder>> {
         let Some(hw) = nchw_hw(g.outlet_fact(input)?) else { return Ok(None) };
         let order = g.eval_order()?;
-        // Pass 1: which nodes can join the prefix and the largest box each gets over all windows.
-        // Value k + 1 is the output of prefix[k]; value 0 is the input.
-        let mut index: HashMap<OutletId, usize> = HashMap::from([(input, 0)]);
-        let mut prefix: Vec<Candidate> = vec![];
-        let mut boxes: Vec<Vec<Option<Bx>>> = wins
-            .iter()
-            .map(|&(y0, x0)| vec![Some([(y0, (y0 + window).min(hw[0])), (x0, (x0 + window).min(hw[1]))])])
-            .collect();
-        for &n in &order {
-            let node = g.node(n);
-            if n == input.node || node.op_is::<tract_onnx::tract_core::ops::konst::Const>() || n == tap.node {
-                continue;
-            }
-            if node.outputs.len() != 1 {
-                continue;
-            }
-            let Some(out_hw) = nchw_hw(&node.outputs[0].fact) else { continue };
-            let srcs: Option<Vec<Src>> = node
-                .inputs
-                .iter()
-                .map(|i| {
-                    if g.outlet_fact(*i).ok()?.konst.is_some() {
-                        Some(Src::Const)
-                    } else {
-                        index.get(i).map(|v| Src::Val(*v))
-                    }
-                })
-                .collect();
-            let Some(srcs) = srcs else { continue };
-            let vals: Vec<usize> = srcs.iter().filter_map(|s| if let Src::Val(v) = s { Some(*v) } else { None }).collect();
-            if vals.is_empty() {
-                continue;
-            }
-            let in_hw = nchw_hw(g.outlet_fact(node.inputs[0])?);
-            let rule = if let Some(c) = node.op_as::<Conv>() {
-                let Some(geo) = in_hw.and_then(|h| window_geometry(&c.pool_spec, h)) else { continue };
-                if c.q_params.is_some() || vals.len() != 1 || !matches!(srcs[0], Src::Val(_)) {
-                    continue;
-                }
-                Rule::Window { stride: geo.0, pad: geo.1, reach: geo.2, size: out_hw }
-            } else if let Some(p) = node.op_as::<MaxPool>() {
-                let Some(geo) = in_hw.and_then(|h| window_geometry(&p.pool_spec, h)) else { continue };
-                if p.with_index_outputs.is_some() {
-                    continue;
-                }
-                Rule::Window { stride: geo.0, pad: geo.1, reach: geo.2, size: out_hw }
-            } else if let Some(d) = node.op_as::<Downsample>() {
-                if !(2..4).contains(&d.axis) || d.stride <= 0 {
-                    continue;
-                }
-                Rule::Downsample { axis: d.axis, stride: d.stride as usize, modulo: d.modulo, size: out_hw }
-            } else if node.op_is::<TypedBinOp>() || node.op_is::<ElementWiseOp>() {
-                // Every fed input must have the output's spatial size (no spatial broadcast).
-                if !node.inputs.iter().zip(&srcs).all(|(i, s)| {
-                    matches!(s, Src::Const) || g.outlet_fact(*i).ok().and_then(nchw_hw) == Some(out_hw)
-                }) {
-                    continue;
-                }
-                Rule::Same
-            } else if let Some(e) = node.op_as::<EinSum>() {
-                if !pointwise_einsum(e) || e.q_params.is_some() || vals.len() != 1 || !matches!(srcs[0], Src::Val(_)) || in_hw != Some(out_hw) {
-                    continue;
-                }
-                Rule::Same
-            } else {
-                continue;
-            };
-            // Boxes for every window, and the largest.
-            let mut big = [0usize; 2];
-            for b in boxes.iter_mut() {
-                let mut acc = None;
-                for v in &vals {
-                    acc = union(acc, b[*v]);
-                }
-                let ob = acc.map(|a| rule.apply(a));
-                if let Some(o) = ob {
-                    big = [big[0].max(o[0].1 - o[0].0), big[1].max(o[1].1 - o[1].0)];
-                }
-                b.push(ob);
-            }
-            if (big[0] * big[1]) as f64 > TAIL_AREA * (out_hw[0] * out_hw[1]) as f64 {
-                for b in boxes.iter_mut() {
-                    b.pop();
-                }
-                continue;
-            }
-            index.insert(OutletId::new(n, 0), prefix.len() + 1);
-            prefix.push(Candidate { node: n, inputs: srcs, rule, big: [big[0].max(1), big[1].max(1)] });
-        }
-        let has_window = prefix.iter().any(|c| matches!(c.rule, Rule::Window { .. }));
-        if !has_window {
+        let (index, prefix) = find_prefix(g, input, tap, &order, hw, window, wins)?;
+        if !prefix.iter().any(|c| matches!(c.growth, Growth::Window { .. })) {
             return Ok(None);
         }
-        // The tail: every node not in the prefix that the tap needs. Its sources are the prefix
-        // values it reads.
-        let in_prefix = |o: &OutletId| index.contains_key(o);
-        let mut needed = vec![false; g.nodes().len()];
-        needed[tap.node] = true;
-        for &n in order.iter().rev() {
-            if needed[n] && !in_prefix(&OutletId::new(n, 0)) {
-                for i in &g.node(n).inputs {
-                    needed[i.node] = true;
-                }
-            }
-        }
-        let mut tail = TypedModel::default();
-        let mut map: HashMap<OutletId, OutletId> = HashMap::new();
-        let mut frontier = vec![];
-        for &n in &order {
-            if !needed[n] {
-                continue;
-            }
-            let node = g.node(n);
-            let o = OutletId::new(n, 0);
-            if let Some(&v) = index.get(&o) {
-                let w = tail.add_source(format!("frontier{v}"), g.outlet_fact(o)?.without_value())?;
-                map.insert(o, w);
-                frontier.push(v);
-                continue;
-            }
-            if let Some(k) = node.op_as::<tract_onnx::tract_core::ops::konst::Const>() {
-                let w = tail.add_const(&node.name, k.val().clone())?;
-                map.insert(o, w);
-                continue;
-            }
-            let wires: Vec<OutletId> = node
-                .inputs
-                .iter()
-                .map(|i| map.get(i).copied().ok_or_else(|| anyhow!("tail input of {} not wired", node.name)))
-                .collect::<Result<_>>()?;
-            let outs = tail.wire_node(&node.name, node.op.clone(), &wires)?;
-            for (k, w) in outs.into_iter().enumerate() {
-                map.insert(OutletId::new(n, k), w);
-            }
-        }
-        tail.select_output_outlets(&[map[&tap]])?;
-        let tail = tail.into_optimized().map_err(|e| anyhow!("{e:#}"))?;
-        let tail = TypedSimplePlan::new(tail).map_err(|e| anyhow!("{e:#}"))?;
-        // Clean values of the prefix at x.
-        let outlets: Vec<OutletId> = prefix.iter().map(|c| OutletId::new(c.node, 0)).collect();
-        let clean_plan = optimized_plan(g, &outlets)?;
-        let got = clean_plan.run(tvec!(Tensor::from(x.clone()).into_tvalue())).map_err(|e| anyhow!("{e:#}"))?;
-        let mut clean = vec![x.clone()];
-        for t in got.iter() {
-            clean.push(crate::grad::to_array(t)?);
-        }
-        // Plans per prefix node.
-        let mut steps = vec![];
-        for (k, Candidate { node: n, inputs, rule, big }) in prefix.into_iter().enumerate() {
-            let node = g.node(n);
-            let out = k + 1;
-            let feeds: Vec<usize> = (0..inputs.len()).filter(|s| matches!(inputs[*s], Src::Val(_))).collect();
-            let channels = |slot: usize| -> Result<usize> {
-                Ok(g.outlet_fact(node.inputs[slot])?.shape.as_concrete().ok_or_else(|| anyhow!("symbolic shape"))?[1])
-            };
-            let crop = |op: Box<dyn TypedOp>, inp: [usize; 2], stride: [usize; 2], offset: [isize; 2], fill: f32| -> Result<Kind> {
-                let mut shapes = HashMap::new();
-                for &slot in &feeds {
-                    shapes.insert(slot, vec![1, channels(slot)?, inp[0], inp[1]]);
-                }
-                let plan = node_plan(g, node, op, &shapes)?;
-                Ok(Kind::Crop { plan, feeds: feeds.clone(), out: big, inp, stride, offset, fill })
-            };
-            let kind = match &rule {
-                Rule::Window { stride, pad, reach, .. } => {
-                    let inp = [(big[0] - 1) * stride[0] + reach[0], (big[1] - 1) * stride[1] + reach[1]];
-                    let offset = [-(pad[0] as isize), -(pad[1] as isize)];
-                    if let Some(c) = node.op_as::<Conv>() {
-                        let mut c = c.clone();
-                        c.pool_spec.padding = PaddingSpec::Valid;
-                        crop(Box::new(c), inp, *stride, offset, 0.0)?
-                    } else {
-                        let mut p = node.op_as::<MaxPool>().expect("window rule is conv or max pool").clone();
-                        p.pool_spec.padding = PaddingSpec::Valid;
-                        crop(Box::new(p), inp, *stride, offset, f32::NEG_INFINITY)?
-                    }
-                }
-                Rule::Downsample { axis, stride, modulo, .. } => {
-                    let ax = axis - 2;
-                    let mut st = [1, 1];
-                    st[ax] = *stride;
-                    let mut off = [0, 0];
-                    off[ax] = *modulo as isize;
-                    let inp = [(big[0] - 1) * st[0] + 1, (big[1] - 1) * st[1] + 1];
-                    let op = Downsample { axis: *axis, stride: *stride as isize, modulo: 0 };
-                    crop(Box::new(op), inp, st, off, 0.0)?
-                }
-                Rule::Same => {
-                    // Constants must not vary over the spatial axes (they are not cropped); a
-                    // point-wise einsum's weights never touch them (checked in pass 1).
-                    let flat = node.op_is::<EinSum>() || node.inputs.iter().zip(&inputs).all(|(i, s)| match s {
-                        Src::Val(_) => true,
-                        Src::Const => g.outlet_fact(*i).is_ok_and(|f| {
-                            let sh = f.shape.as_concrete().unwrap_or(&[]);
-                            sh.iter().rev().take(2).all(|d| *d == 1)
-                        }),
-                    });
-                    if flat {
-                        crop(node.op.clone(), big, [1, 1], [0, 0], 0.0)?
-                    } else {
-                        let mut shapes = HashMap::new();
-                        for &slot in &feeds {
-                            shapes.insert(slot, g.outlet_fact(node.inputs[slot])?.shape.as_concrete().unwrap().to_vec());
-                        }
-                        Kind::Whole { plan: node_plan(g, node, node.op.clone(), &shapes)?, feeds: feeds.clone() }
-                    }
-                }
-            };
-            steps.push(Step { inputs, out, rule, kind });
-        }
+        let (tail, frontier) = build_tail(g, tap, &order, &index)?;
+        let clean = clean_values(g, x, &prefix)?;
+        let steps = prefix
+            .into_iter()
+            .enumerate()
+            .map(|(k, c)| crop_step(g, k + 1, c))
+            .collect::<Result<Vec<Step>>>()?;
         Ok(Some(Occluder { steps, clean, frontier, tail, hw }))
     }
 
@@ -426,7 +448,7 @@ impl Occluder {
                 }
             }
             let Some(acc) = acc else { continue };
-            let ob = s.rule.apply(acc);
+            let ob = s.growth.apply(acc);
             let value = |slot: usize| -> usize {
                 match s.inputs[slot] {
                     Src::Val(v) => v,
@@ -442,7 +464,7 @@ impl Occluder {
                             Tensor::from(materialize(&self.clean[v], patches[v].as_ref()))
                         })
                         .collect();
-                    Patch { at: [0, 0], data: crate::grad::run_sub(plan, ins)? }
+                    Patch { at: [0, 0], data: run_sub(plan, ins)? }
                 }
                 Kind::Crop { plan, feeds, out, inp, stride, offset, fill } => {
                     let size = [self.clean[s.out].shape()[2], self.clean[s.out].shape()[3]];
@@ -458,7 +480,7 @@ impl Occluder {
                             Tensor::from(extract(&self.clean[v], patches[v].as_ref(), r0, *inp, *fill))
                         })
                         .collect();
-                    Patch { at: o0, data: crate::grad::run_sub(plan, ins)? }
+                    Patch { at: o0, data: run_sub(plan, ins)? }
                 }
             };
             patches[s.out] = Some(patch);
@@ -470,8 +492,7 @@ impl Occluder {
             .map(|v| Tensor::from(materialize(&self.clean[*v], patches[*v].as_ref())).into_tvalue())
             .collect();
         let y = self.tail.run(ins).map_err(|e| anyhow!("{e:#}"))?;
-        let v: Vec<f32> = y[0].to_plain_array_view::<f32>().map_err(|e| anyhow!("{e}"))?.iter().copied().collect();
-        Ok(Array1::from(v))
+        Ok(Array1::from(to_vec(&y[0])?))
     }
 
     /// How many nodes run on crops or patches before the tail.
@@ -490,21 +511,6 @@ impl Occluder {
                 Ok(r)
             })
             .collect()
-    }
-}
-
-/// Per-axis slices of the window of side `window` at corner (y0, x0) on the axes `spatial`
-/// (clipped at the far edges), for `slice_each_axis`.
-pub(crate) fn window_pick(spatial: [usize; 2], (y0, x0): (usize, usize), window: usize) -> impl Fn(ndarray::AxisDescription) -> Slice + Copy {
-    move |ax| {
-        let i = ax.axis.index();
-        if i == spatial[0] {
-            Slice::from(y0..(y0 + window).min(ax.len))
-        } else if i == spatial[1] {
-            Slice::from(x0..(x0 + window).min(ax.len))
-        } else {
-            Slice::from(..)
-        }
     }
 }
 

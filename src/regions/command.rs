@@ -1,5 +1,5 @@
-//! `spurion regions --image I [--out DIR]`: find regions in one image without any model and
-//! write one mask PNG per region plus `regions.json`.
+//! `regions.json` of `spurion regions`: the regions found in one image without any model, and
+//! one mask PNG per region.
 
 use std::path::Path;
 
@@ -37,8 +37,10 @@ pub struct RegionsFile {
     pub caution: String,
 }
 
-const CAUTION: &str = "Regions are found by simple image processing and are hints for a person \
-to check, not verdicts; spurion is a research and data-quality tool, not a diagnostic device.";
+/// What the file says of itself: how the regions were found, then the caution every output carries.
+fn caution() -> String {
+    format!("Regions are found by simple image processing and are hints for a person to check, not verdicts. {}", crate::CAUTION)
+}
 
 /// Loads an image file as luminance (H×W, 0..1), 8- or 16-bit, grey or colour, the way the
 /// rest of spurion reads pictures.
@@ -67,7 +69,7 @@ pub fn regions_file(image: &Path, luma: &Array2<f32>, regions: &[Region], settin
                 mask: None,
             })
             .collect(),
-        caution: CAUTION.to_string(),
+        caution: caution(),
     }
 }
 
@@ -76,37 +78,6 @@ fn write_mask(path: &Path, mask: &Array2<bool>) -> Result<()> {
     let px: Vec<u8> = mask.iter().map(|&m| if m { 255 } else { 0 }).collect();
     let buf = image::GrayImage::from_raw(w as u32, h as u32, px).context("mask buffer size")?;
     buf.save(path).with_context(|| format!("cannot write mask {}", path.display()))
-}
-
-/// `spurion regions`: finds regions in `image`. With `out`, writes `DIR/region-NN-KIND.png`
-/// masks (white = region) and `DIR/regions.json` and prints one line per region; without it,
-/// prints the JSON to standard output and writes nothing.
-pub fn run_regions_command(image: &Path, out: Option<&Path>, settings: &FinderSettings) -> Result<()> {
-    match out {
-        Some(dir) => {
-            let file = write_regions(image, dir, settings)?;
-            if file.regions.is_empty() {
-                println!("{}: no regions found", image.display());
-            }
-            for f in &file.regions {
-                println!(
-                    "{}  box {:?}  area {:.2}%  confidence {:.2}  {}",
-                    f.label,
-                    f.bbox,
-                    100.0 * f.area_fraction,
-                    f.confidence,
-                    f.reason
-                );
-            }
-            println!("wrote {}", dir.join("regions.json").display());
-        }
-        None => {
-            let luma = load_luminance(image)?;
-            let regions = find_regions(&luma, settings);
-            println!("{}", serde_json::to_string_pretty(&regions_file(image, &luma, &regions, settings))?);
-        }
-    }
-    Ok(())
 }
 
 /// Finds regions in `image` and writes the mask PNGs and `regions.json` into `dir` (created if

@@ -1,6 +1,9 @@
 //! Drawn regions: rectangles and polygons a person draws, or loads from a file.
 //!
-//! # File format (`*.regions.json`, spurion's own)
+//! No front end calls this yet: the ledger (issue 14) keeps drawn regions per image and the
+//! inspector draws them.
+//!
+//! # File format (`*.drawn.json`, spurion's own; not `spurion regions`' `regions.json`)
 //!
 //! ```json
 //! {

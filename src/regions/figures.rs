@@ -1,7 +1,7 @@
 //! Figures that say how much of an attribution map falls on a region.
 //!
 //! All take a map on the image grid (H×W, e.g. `Reading::map2d`) and a region mask of the same
-//! shape, and first turn the map into the part asked for ([`Part`]): the supporting part
+//! shape, and first turn the map into the part asked for ([`Sign`]): the supporting part
 //! (positive values) by default. A figure is `None` when it is undefined, e.g. a share of a map
 //! with no support at all.
 //!
@@ -26,47 +26,12 @@ use anyhow::{Result, bail};
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
-/// Which part of a signed map the figures use.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case")]
-pub enum Part {
-    /// Positive values (pixels that raise the target score); negative ones count as 0.
-    #[default]
-    Supporting,
-    /// Negative values taken as magnitudes (pixels that lower the score); positive ones count 0.
-    Opposing,
-    /// Absolute values.
-    Magnitude,
-    /// The signed values as they are. Shares may then leave 0..1 (support outside the region
-    /// partly cancelled by opposition inside it, or the reverse); read them with care.
-    Both,
-}
-
-impl Part {
-    pub fn apply(self, x: f32) -> f64 {
-        let x = x as f64;
-        match self {
-            Part::Supporting => x.max(0.0),
-            Part::Opposing => (-x).max(0.0),
-            Part::Magnitude => x.abs(),
-            Part::Both => x,
-        }
-    }
-
-    pub fn name(self) -> &'static str {
-        match self {
-            Part::Supporting => "supporting",
-            Part::Opposing => "opposing",
-            Part::Magnitude => "magnitude",
-            Part::Both => "both",
-        }
-    }
-}
+use crate::sign::Sign;
 
 /// All figures of one map against one region.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct Figures {
-    pub part: Part,
+    pub part: Sign,
     pub area_fraction: f64,
     pub mark_share: Option<f64>,
     pub lift: Option<f64>,
@@ -93,10 +58,10 @@ fn check(map: &Array2<f32>, mask: &Array2<bool>) -> Result<()> {
 }
 
 /// (part inside, part total).
-fn sums(map: &Array2<f32>, mask: &Array2<bool>, part: Part) -> (f64, f64) {
+fn sums(map: &Array2<f32>, mask: &Array2<bool>, part: Sign) -> (f64, f64) {
     let (mut inside, mut total) = (0f64, 0f64);
     for (&v, &m) in map.iter().zip(mask.iter()) {
-        let a = part.apply(v);
+        let a = part.apply(v) as f64;
         total += a;
         if m {
             inside += a;
@@ -111,26 +76,26 @@ fn ratio(inside: f64, total: f64) -> Option<f64> {
 }
 
 /// Share of the map's part inside the region.
-pub fn mark_share(map: &Array2<f32>, mask: &Array2<bool>, part: Part) -> Result<Option<f64>> {
+pub fn mark_share(map: &Array2<f32>, mask: &Array2<bool>, part: Sign) -> Result<Option<f64>> {
     check(map, mask)?;
     let (i, t) = sums(map, mask, part);
     Ok(ratio(i, t))
 }
 
 /// Mark share divided by the region's share of the image area.
-pub fn lift(map: &Array2<f32>, mask: &Array2<bool>, part: Part) -> Result<Option<f64>> {
+pub fn lift(map: &Array2<f32>, mask: &Array2<bool>, part: Sign) -> Result<Option<f64>> {
     let share = mark_share(map, mask, part)?;
     let area = mask.iter().filter(|&&m| m).count() as f64 / mask.len().max(1) as f64;
     Ok(share.and_then(|s| (area > 0.0).then(|| s / area)))
 }
 
 /// Relevance mass accuracy, Arras et al. 2022: R_within / R_total.
-pub fn relevance_mass_accuracy(map: &Array2<f32>, mask: &Array2<bool>, part: Part) -> Result<Option<f64>> {
+pub fn relevance_mass_accuracy(map: &Array2<f32>, mask: &Array2<bool>, part: Sign) -> Result<Option<f64>> {
     check(map, mask)?;
     let mut within = 0f64;
     let mut total = 0f64;
     for (&v, &m) in map.iter().zip(mask.iter()) {
-        let r = part.apply(v);
+        let r = part.apply(v) as f64;
         total += r;
         within += if m { r } else { 0.0 };
     }
@@ -138,7 +103,7 @@ pub fn relevance_mass_accuracy(map: &Array2<f32>, mask: &Array2<bool>, part: Par
 }
 
 /// Relevance rank accuracy, Arras et al. 2022: |top-K ∩ mask| / K with K = |mask|.
-pub fn relevance_rank_accuracy(map: &Array2<f32>, mask: &Array2<bool>, part: Part) -> Result<Option<f64>> {
+pub fn relevance_rank_accuracy(map: &Array2<f32>, mask: &Array2<bool>, part: Sign) -> Result<Option<f64>> {
     check(map, mask)?;
     let k = mask.iter().filter(|&&m| m).count();
     if k == 0 {
@@ -148,8 +113,8 @@ pub fn relevance_rank_accuracy(map: &Array2<f32>, mask: &Array2<bool>, part: Par
         .iter()
         .zip(mask.iter())
         .enumerate()
-        .map(|(i, (&v, &m))| (part.apply(v), i, m))
-        .filter(|(a, _, _)| part == Part::Both || *a > 0.0)
+        .map(|(i, (&v, &m))| (part.apply(v) as f64, i, m))
+        .filter(|(a, _, _)| part == Sign::Both || *a > 0.0)
         .collect();
     if ranked.is_empty() {
         return Ok(None);
@@ -161,17 +126,17 @@ pub fn relevance_rank_accuracy(map: &Array2<f32>, mask: &Array2<bool>, part: Par
 }
 
 /// Pointing game, Zhang et al. 2018: is the map's maximum in the region (within `tolerance_px`)?
-pub fn pointing_hit(map: &Array2<f32>, mask: &Array2<bool>, part: Part, tolerance_px: f64) -> Result<Option<bool>> {
+pub fn pointing_hit(map: &Array2<f32>, mask: &Array2<bool>, part: Sign, tolerance_px: f64) -> Result<Option<bool>> {
     check(map, mask)?;
     let mut best: Option<(f64, (usize, usize))> = None;
     for (idx, &v) in map.indexed_iter() {
-        let a = part.apply(v);
+        let a = part.apply(v) as f64;
         if best.is_none_or(|(b, _)| a > b) {
             best = Some((a, idx));
         }
     }
     let Some((top, (py, px))) = best else { return Ok(None) };
-    if part != Part::Both && top <= 0.0 {
+    if part != Sign::Both && top <= 0.0 {
         return Ok(None);
     }
     if mask[(py, px)] {
@@ -191,7 +156,7 @@ pub fn pointing_hit(map: &Array2<f32>, mask: &Array2<bool>, part: Part, toleranc
 }
 
 /// Every figure at once.
-pub fn figures(map: &Array2<f32>, mask: &Array2<bool>, part: Part, pointing_tolerance_px: f64) -> Result<Figures> {
+pub fn figures(map: &Array2<f32>, mask: &Array2<bool>, part: Sign, pointing_tolerance_px: f64) -> Result<Figures> {
     check(map, mask)?;
     let area_fraction = mask.iter().filter(|&&m| m).count() as f64 / mask.len().max(1) as f64;
     Ok(Figures {

@@ -10,7 +10,8 @@ use anyhow::{Result, bail};
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
-use super::figures::{Figures, Part, figures};
+use super::figures::{Figures, figures};
+use crate::sign::Sign;
 use super::{FinderSettings, Region, RegionKind, Side, find_regions};
 
 /// Thresholds of the flag rule.
@@ -18,7 +19,7 @@ use super::{FinderSettings, Region, RegionKind, Side, find_regions};
 #[serde(default, deny_unknown_fields)]
 pub struct FlagSettings {
     /// Part of the map the figures use. Default supporting.
-    pub part: Part,
+    pub part: Sign,
     /// Smallest mark share for the flag. Default 0.08, set from the demo: integrated gradients
     /// (blur or grey baseline) put 0.09–0.14 of the shortcut model's supporting attribution on
     /// Hillmoor's tag and at most 0.06 of the control model's on any region (tests/regions_e2e.rs).
@@ -36,7 +37,7 @@ pub struct FlagSettings {
 impl Default for FlagSettings {
     fn default() -> Self {
         FlagSettings {
-            part: Part::Supporting,
+            part: Sign::Supporting,
             min_mark_share: 0.08,
             min_lift: 3.0,
             pointing_tolerance_px: 0.0,
@@ -44,7 +45,7 @@ impl Default for FlagSettings {
             kinds: vec![
                 RegionKind::BorderBand,
                 RegionKind::BurnedInMark,
-                RegionKind::StaticOverlay,
+                RegionKind::RepeatedPatch,
                 RegionKind::DrawnRegion,
             ],
         }
@@ -72,7 +73,7 @@ pub struct RegionReport {
 /// The regions of one reading, their figures and the flag.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct Assessment {
-    pub part: Part,
+    pub part: Sign,
     pub min_mark_share: f64,
     pub min_lift: f64,
     pub regions: Vec<RegionReport>,

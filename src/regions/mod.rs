@@ -1,5 +1,5 @@
-//! Regions: the parts of an image that are not anatomy (border bands, burned-in marks, static
-//! overlays across a folder, drawn regions), and the figures that say how much of an attribution
+//! Regions: the parts of an image that are not anatomy (border bands, burned-in marks, repeated
+//! patches across a folder, drawn regions), and the figures that say how much of an attribution
 //! map falls on them.
 //!
 //! Everything here is plain image processing on a luminance image (`Array2<f32>`, H×W, values in
@@ -16,20 +16,20 @@ pub mod figures;
 pub mod flag;
 mod grid;
 mod mark;
-mod overlay;
+mod repeated;
 mod settings;
 
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
 pub use border::find_border_bands;
-pub use command::{FoundRegion, RegionsFile, load_luminance, regions_file, run_regions_command, write_regions};
+pub use command::{FoundRegion, RegionsFile, load_luminance, regions_file, write_regions};
 pub use drawn::{DrawnFile, DrawnShape, Shape, load_drawn, save_drawn};
-pub use figures::{Figures, Part};
+pub use figures::Figures;
 pub use flag::{Assessment, FlagSettings, RegionReport, assess, assess_regions};
 pub use mark::find_burned_in_marks;
-pub use overlay::find_static_overlays;
-pub use settings::{BorderSettings, FinderSettings, MarkSettings, OverlaySettings};
+pub use repeated::find_repeated_patches;
+pub use settings::{BorderSettings, FinderSettings, MarkSettings, RepeatedPatchSettings};
 
 /// What a region is.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
@@ -40,7 +40,7 @@ pub enum RegionKind {
     /// Text, a tag, a ruler, an arrow or a symbol burned into the pixels.
     BurnedInMark,
     /// Pixels identical at the same place in many images of a folder.
-    StaticOverlay,
+    RepeatedPatch,
     /// A rectangle or polygon a person drew or loaded from a file.
     DrawnRegion,
 }
@@ -51,7 +51,7 @@ impl RegionKind {
         match self {
             RegionKind::BorderBand => "border band",
             RegionKind::BurnedInMark => "burned-in mark",
-            RegionKind::StaticOverlay => "static overlay",
+            RegionKind::RepeatedPatch => "repeated patch",
             RegionKind::DrawnRegion => "drawn region",
         }
     }
@@ -61,7 +61,7 @@ impl RegionKind {
         match self {
             RegionKind::BorderBand => "border-band",
             RegionKind::BurnedInMark => "burned-in-mark",
-            RegionKind::StaticOverlay => "static-overlay",
+            RegionKind::RepeatedPatch => "repeated-patch",
             RegionKind::DrawnRegion => "drawn-region",
         }
     }

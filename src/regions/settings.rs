@@ -14,7 +14,7 @@ use serde::{Deserialize, Serialize};
 pub struct FinderSettings {
     pub border: BorderSettings,
     pub mark: MarkSettings,
-    pub overlay: OverlaySettings,
+    pub repeated_patch: RepeatedPatchSettings,
 }
 
 /// Border bands: a margin along a side whose pixels stay within a tolerance of one value, ending
@@ -131,10 +131,10 @@ impl Default for MarkSettings {
     }
 }
 
-/// Static overlays across a folder.
+/// Repeated patches across a folder.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
-pub struct OverlaySettings {
+pub struct RepeatedPatchSettings {
     /// Two values count as identical within this. Default 0.5/255.
     pub equal_tolerance: f32,
     /// A pixel is static when this share of the images agree on its value. Default 0.5.
@@ -153,9 +153,9 @@ pub struct OverlaySettings {
     pub min_area: usize,
 }
 
-impl Default for OverlaySettings {
+impl Default for RepeatedPatchSettings {
     fn default() -> Self {
-        OverlaySettings {
+        RepeatedPatchSettings {
             equal_tolerance: 0.5 / 255.0,
             min_share: 0.5,
             min_images: 3,

@@ -9,37 +9,10 @@ use std::path::Path;
 use anyhow::{Context, Result};
 use image::{Rgb, RgbImage};
 use ndarray::{Array2, Array3};
-use serde::{Deserialize, Serialize};
+use crate::sign::Sign;
 
 pub use colour::{diverging, opposing_colour, sequential, supporting_colour};
 pub use text::{draw_text, text_width};
-
-/// Which part of a signed map is shown.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
-#[serde(rename_all = "kebab-case")]
-pub enum Sign {
-    /// Positive values only (they raise the target score).
-    #[default]
-    Supporting,
-    /// Negative values only (they lower it).
-    Opposing,
-    /// Both signs on the diverging map.
-    Both,
-    /// Absolute values on the sequential map.
-    Magnitude,
-}
-
-impl Sign {
-    pub const ALL: [Sign; 4] = [Sign::Supporting, Sign::Opposing, Sign::Both, Sign::Magnitude];
-    pub fn name(self) -> &'static str {
-        match self {
-            Sign::Supporting => "supporting",
-            Sign::Opposing => "opposing",
-            Sign::Both => "both",
-            Sign::Magnitude => "magnitude",
-        }
-    }
-}
 
 /// The share of |values| that sets the colour scale's end: the 99.5th percentile, so a few
 /// extreme pixels do not wash the rest out (common practice for saliency display).
@@ -108,6 +81,37 @@ pub fn tint(pixels: &Array3<f32>, map: &Array2<f32>, scale: f32, sign: Sign, opa
     })
 }
 
+/// The value (in units of the scale, −1..1) at position `f` of a legend ramp, where `f` runs
+/// from 0 at the ramp's low end to 1 at its high end. Every legend (files, the inspector) draws
+/// its ramp from this.
+pub fn ramp_value(sign: Sign, f: f32) -> f32 {
+    match sign {
+        Sign::Both => 2.0 * f - 1.0,
+        Sign::Opposing => -f,
+        _ => f,
+    }
+}
+
+/// What a legend writes at its two ends: the values and the words, (low, high).
+pub struct LegendEnds {
+    pub low: String,
+    pub high: String,
+    pub low_word: &'static str,
+    pub high_word: &'static str,
+}
+
+/// The end labels of a legend for `sign` on a scale ending at `scale`. Opposing ramps run from 0
+/// (low) to the most opposing value (high), like the ramp of [`ramp_value`].
+pub fn legend_ends(sign: Sign, scale: f32) -> LegendEnds {
+    let (low, high, low_word, high_word) = match sign {
+        Sign::Both => (format_value(-scale, true), format_value(scale, true), "opposing", "supporting"),
+        Sign::Supporting => ("0".to_string(), format_value(scale, true), "", "supporting"),
+        Sign::Opposing => ("0".to_string(), format_value(-scale, true), "", "opposing"),
+        Sign::Magnitude => ("0".to_string(), format_value(scale, false), "", "magnitude"),
+    };
+    LegendEnds { low, high, low_word, high_word }
+}
+
 /// Legend strip: a colour bar with values and the meaning of its ends.
 fn legend(height: u32, scale: f32, sign: Sign) -> RgbImage {
     let w = 150u32;
@@ -116,31 +120,21 @@ fn legend(height: u32, scale: f32, sign: Sign) -> RgbImage {
     let bar_x = 12u32;
     for y in top..bottom {
         let f = 1.0 - (y - top) as f32 / (bottom - top).max(1) as f32; // 1 at top, 0 at bottom
-        let v = match sign {
-            Sign::Both => (2.0 * f - 1.0) * scale,
-            Sign::Opposing => -(f * scale),
-            _ => f * scale,
-        };
-        let c = shade(v, scale, sign).0;
+        let c = shade(ramp_value(sign, f) * scale, scale, sign).0;
         for x in bar_x..bar_x + 22 {
             img.put_pixel(x, y, Rgb(c));
         }
     }
     let ink = Rgb([30, 30, 34]);
-    let (hi, lo, top_word, bottom_word) = match sign {
-        Sign::Both => (format_value(scale, true), format_value(-scale, true), "supporting", "opposing"),
-        Sign::Supporting => (format_value(scale, true), "0".to_string(), "supporting", ""),
-        Sign::Opposing => ("0".to_string(), format_value(-scale, true), "", "opposing"),
-        Sign::Magnitude => (format_value(scale, false), "0".to_string(), "magnitude", ""),
-    };
-    draw_text(&mut img, bar_x + 28, top - 4, 13.0, &hi, ink);
-    draw_text(&mut img, bar_x + 28, bottom - 10, 13.0, &lo, ink);
+    let ends = legend_ends(sign, scale);
+    draw_text(&mut img, bar_x + 28, top - 4, 13.0, &ends.high, ink);
+    draw_text(&mut img, bar_x + 28, bottom - 10, 13.0, &ends.low, ink);
     if sign == Sign::Both {
         draw_text(&mut img, bar_x + 28, (top + bottom) / 2 - 6, 13.0, "0", ink);
     }
-    draw_text(&mut img, 8, 8, 13.0, top_word, ink);
-    if !bottom_word.is_empty() {
-        draw_text(&mut img, 8, height - 22, 13.0, bottom_word, ink);
+    draw_text(&mut img, 8, 8, 13.0, ends.high_word, ink);
+    if !ends.low_word.is_empty() {
+        draw_text(&mut img, 8, height - 22, 13.0, ends.low_word, ink);
     }
     img
 }

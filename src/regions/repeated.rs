@@ -1,31 +1,33 @@
-//! Static overlays across a folder: pixels that hold the same value at the same place in many
+//! Repeated patches across a folder: pixels that hold the same value at the same place in many
 //! images (a logo or tag the digitiser always burns at one position). Real anatomy and film noise
 //! differ from image to image, so a pixel that agrees across most of a folder was put there by
 //! the machine, not the patient.
+//!
+//! No front end calls this yet: the sweep (issue 13) runs it over each group's folder.
 
 use anyhow::{Result, bail};
 use ndarray::Array2;
 
 use super::grid::{components, dilate, to_mask};
-use super::{OverlaySettings, Region, RegionKind};
+use super::{RepeatedPatchSettings, Region, RegionKind};
 
-/// Finds static overlays in a set of luminance images of equal size (H×W, 0..1).
+/// Finds repeated patches in a set of luminance images of equal size (H×W, 0..1).
 ///
 /// A pixel is static when at least `min_share` of the images (and at least `min_images`) agree
 /// on its value within `equal_tolerance`. Static pixels within `join_px` of each other form one
 /// region (the letters of one tag); its mask is the static pixels grown by one pixel.
-pub fn find_static_overlays(images: &[Array2<f32>], s: &OverlaySettings) -> Result<Vec<Region>> {
+pub fn find_repeated_patches(images: &[Array2<f32>], s: &RepeatedPatchSettings) -> Result<Vec<Region>> {
     let Some(first) = images.first() else {
-        bail!("static overlay search needs at least two images of equal size; got none");
+        bail!("repeated patch search needs at least two images of equal size; got none");
     };
     if images.len() < 2 {
-        bail!("static overlay search needs at least two images of equal size; got one");
+        bail!("repeated patch search needs at least two images of equal size; got one");
     }
     let (h, w) = first.dim();
     for (i, im) in images.iter().enumerate() {
         if im.dim() != (h, w) {
             bail!(
-                "image {i} of the folder is {}×{} but image 0 is {}×{}; static overlays are only \
+                "image {i} of the folder is {}×{} but image 0 is {}×{}; repeated patches are only \
                  looked for among images of one size (resize or split the folder by size)",
                 im.dim().1,
                 im.dim().0,
@@ -144,7 +146,7 @@ pub fn find_static_overlays(images: &[Array2<f32>], s: &OverlaySettings) -> Resu
             100.0 * share,
             n
         );
-        if let Some(r) = Region::from_mask(RegionKind::StaticOverlay, to_mask(h, w, mask), share.min(1.0), "", reason) {
+        if let Some(r) = Region::from_mask(RegionKind::RepeatedPatch, to_mask(h, w, mask), share.min(1.0), "", reason) {
             out.push(r);
         }
     }

@@ -1,0 +1,93 @@
+//! What the panels ask for, and how the inspector carries it out after the frame is drawn.
+
+use std::path::PathBuf;
+use std::time::{Duration, Instant};
+
+use super::app::Inspector;
+use super::state::{JobId, NoteKind};
+use super::work::{Done, Pick};
+
+/// What the panels ask for; applied after drawing, so a panel never changes state under another.
+#[derive(Clone, Debug)]
+pub enum Intent {
+    OpenModel(PathBuf),
+    /// Images, folders, or a mix; an `.onnx` among them opens as the model.
+    OpenPaths(Vec<PathBuf>),
+    /// Open whatever is typed in the path field.
+    OpenTyped,
+    Pick(Pick),
+    Select(usize),
+    Cancel(JobId),
+    ComputeStrip,
+    Export(ExportWhat),
+    About(bool),
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ExportWhat {
+    View,
+    Strip,
+    Json,
+}
+
+
+impl Inspector {
+    pub(crate) fn apply(&mut self, intents: Vec<Intent>) {
+        for i in intents {
+            match i {
+                Intent::OpenModel(p) => self.open_model(&p),
+                Intent::OpenPaths(ps) => self.open_paths(&ps),
+                Intent::OpenTyped => {
+                    let t = self.path_field.trim().to_string();
+                    if t.is_empty() {
+                        self.note(NoteKind::Warning, "type a model, image or folder path first");
+                    } else {
+                        self.open_paths(&[PathBuf::from(t)]);
+                    }
+                }
+                Intent::Pick(what) => self.pick(what),
+                Intent::Select(i) => self.select(i),
+                Intent::Cancel(id) => self.workers.cancel(id),
+                Intent::ComputeStrip => self.compute_strip(),
+                Intent::Export(what) => self.export(what),
+                Intent::About(show) => self.show_about = show,
+            }
+        }
+    }
+
+    pub(crate) fn pick(&mut self, what: Pick) {
+        if !self.config.dialogs {
+            self.picked(what, None, Duration::ZERO);
+            return;
+        }
+        let start_dir = self.image_dir();
+        self.workers.spawn(format!("dialog: {}", what.title()), false, move |_ctl, _| {
+            let started = Instant::now();
+            let mut d = rfd::FileDialog::new().set_title(what.title());
+            if let Some(dir) = &start_dir {
+                d = d.set_directory(dir);
+            }
+            let paths = match what {
+                Pick::Model => d.add_filter("ONNX model", &["onnx"]).pick_file().map(|p| vec![p]),
+                Pick::Images => d.add_filter("images", crate::feed::IMAGE_ENDINGS).pick_files(),
+                Pick::CustomBaseline => d.add_filter("images", crate::feed::IMAGE_ENDINGS).pick_file().map(|p| vec![p]),
+                Pick::Folder | Pick::MeanFolder | Pick::ExportFolder => d.pick_folder().map(|p| vec![p]),
+            };
+            Done::Picked { purpose: what, paths, took: started.elapsed() }
+        }, |msg| Done::Failed(format!("the file dialog failed: {msg}")));
+    }
+
+    pub(crate) fn export(&mut self, what: ExportWhat) {
+        match super::export::plan(self, what) {
+            Ok(job) => {
+                self.workers.spawn(
+                    "writing export",
+                    false,
+                    move |_ctl, _| Done::Exported { result: job.write().map_err(|e| format!("export failed: {e:#}")) },
+                    |msg| Done::Failed(format!("export failed: {msg}")),
+                );
+            }
+            Err(e) => self.note(NoteKind::Warning, e),
+        }
+    }
+}

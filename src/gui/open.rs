@@ -1,0 +1,186 @@
+//! Opening models, images and folders; the file dialogs and what is done with their answers.
+
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+use super::app::Inspector;
+use super::short_name;
+use super::state::{ImageEntry, ImageState, NoteKind};
+use super::work::{Done, Pick};
+
+impl Inspector {
+    pub fn open_model(&mut self, path: &Path) {
+        if let Some(id) = self.model_job.take() {
+            self.workers.cancel(id);
+        }
+        let (p, q) = (path.to_path_buf(), path.to_path_buf());
+        let (id, _) = self.workers.spawn(
+            format!("loading model {}", short_name(path)),
+            false,
+            move |_ctl, _| Done::Model { result: super::engine::load_session(&p).map_err(|e| format!("{e:#}")), path: p },
+            move |msg| Done::Model { path: q, result: Err(msg) },
+        );
+        self.model_job = Some(id);
+        self.model_path = Some(path.to_path_buf());
+        self.model_error = None;
+    }
+
+    /// Adds images and folders to the list (an `.onnx` among them opens as the model) and shows
+    /// the first image named, so a dropped or typed image is the one on the slide. A file that is
+    /// neither an image nor a model is refused with a note that says what to do instead.
+    pub fn open_paths(&mut self, paths: &[PathBuf]) {
+        let mut added = 0usize;
+        let mut show: Option<usize> = None;
+        for p in paths {
+            if p.extension().is_some_and(|e| e.eq_ignore_ascii_case("onnx")) {
+                if p.is_file() {
+                    self.open_model(p);
+                } else {
+                    self.note(NoteKind::Error, format!("model {} does not exist; check the path", p.display()));
+                }
+                continue;
+            }
+            if p.is_dir() {
+                match crate::feed::list_images(p) {
+                    Ok(list) if list.is_empty() => self.note(
+                        NoteKind::Warning,
+                        format!("{} holds no PNG, JPEG, TIFF or BMP images", p.display()),
+                    ),
+                    Ok(list) => {
+                        for f in list {
+                            let (i, new) = self.push_image(f);
+                            added += new as usize;
+                            // A folder already in the list does not move the slide.
+                            if new {
+                                show.get_or_insert(i);
+                            }
+                        }
+                        self.recent.add_images(p);
+                    }
+                    Err(e) => self.note(NoteKind::Error, format!("{e:#}")),
+                }
+            } else if p.is_file() {
+                if let Err(why) = openable_image(p) {
+                    self.note(NoteKind::Error, why);
+                    continue;
+                }
+                let (i, new) = self.push_image(p.clone());
+                added += new as usize;
+                show.get_or_insert(i);
+                self.recent.add_images(p);
+            } else {
+                self.note(NoteKind::Error, format!("{} does not exist; check the path", p.display()));
+            }
+        }
+        self.save_recent();
+        if added > 0 {
+            self.note(NoteKind::Info, format!("{added} image(s) added"));
+        }
+        if let Some(i) = show
+            && self.selected != Some(i)
+        {
+            self.select(i);
+        }
+    }
+
+    /// Shows the image at `path` if it is in the list.
+    pub fn select_path(&mut self, path: &Path) -> bool {
+        match self.images.iter().position(|e| e.path == path) {
+            Some(i) => {
+                self.select(i);
+                true
+            }
+            None => false,
+        }
+    }
+
+    /// The list position of `path`, added if it is not there yet (and whether it was added).
+    pub(crate) fn push_image(&mut self, path: PathBuf) -> (usize, bool) {
+        if let Some(i) = self.images.iter().position(|e| e.path == path) {
+            return (i, false);
+        }
+        self.images.push(ImageEntry { path, state: ImageState::NotOpened });
+        (self.images.len() - 1, true)
+    }
+
+    pub(crate) fn save_recent(&mut self) {
+        if let Some(f) = self.config.recent_file.clone()
+            && let Err(e) = self.recent.save(&f)
+        {
+            self.note(NoteKind::Warning, format!("recent files not remembered: {e:#}"));
+        }
+    }
+
+    pub fn select(&mut self, i: usize) {
+        if i >= self.images.len() {
+            return;
+        }
+        self.selected = Some(i);
+        self.view.zoom = None;
+        self.ensure_prepared(i);
+    }
+
+    pub(crate) fn ensure_prepared(&mut self, i: usize) {
+        let Some(session) = self.session.clone() else { return };
+        let e = &mut self.images[i];
+        if !matches!(e.state, ImageState::NotOpened) {
+            return;
+        }
+        e.state = ImageState::Opening;
+        let p = e.path.clone();
+        let q = p.clone();
+        self.workers.spawn(
+            format!("opening {}", short_name(&p)),
+            false,
+            move |_ctl, _| Done::Image { result: super::engine::prepare(&session, &p).map_err(|e| format!("{e:#}")), path: p },
+            move |msg| Done::Image { path: q, result: Err(msg) },
+        );
+    }
+
+    pub(crate) fn picked(&mut self, purpose: Pick, paths: Option<Vec<PathBuf>>, took: Duration) {
+        let Some(paths) = paths.filter(|p| !p.is_empty()) else {
+            // The portal answers "nothing" both on cancel and when no portal runs at all; a
+            // near-instant answer is almost always the latter.
+            let why = if took < Duration::from_millis(400) {
+                "no file dialog could be shown (this desktop seems to run no xdg-desktop-portal)"
+            } else {
+                "no file was chosen"
+            };
+            self.note(
+                NoteKind::Warning,
+                format!(
+                    "{why}. Other ways in: type a path in the \"path\" field at the top and press Open, \
+                     pick one under \"Recent\", or drop files and folders onto the window."
+                ),
+            );
+            return;
+        };
+        match purpose {
+            Pick::Model => self.open_model(&paths[0]),
+            Pick::Images | Pick::Folder => self.open_paths(&paths),
+            Pick::CustomBaseline => self.form.custom_path = paths[0].display().to_string(),
+            Pick::MeanFolder => self.form.mean_dir = paths[0].display().to_string(),
+            Pick::ExportFolder => self.export_dir = paths[0].display().to_string(),
+        }
+    }
+}
+
+/// Whether a file named as an image can be opened as one, judged by its ending (the worker that
+/// opens it reports damaged files); `Err` is the note to show: which file, what is wrong, what to do.
+pub fn openable_image(p: &Path) -> Result<(), String> {
+    let ending = p.extension().map(|e| e.to_string_lossy().to_ascii_lowercase());
+    if ending.as_deref().is_some_and(|e| crate::feed::IMAGE_ENDINGS.contains(&e)) {
+        return Ok(());
+    }
+    let what = match ending.as_deref() {
+        None => "it has no file ending".to_string(),
+        Some("dcm" | "dicom") => "DICOM files are not read directly".to_string(),
+        Some(e) => format!("files ending in .{e} are neither images nor models"),
+    };
+    let todo = if matches!(ending.as_deref(), Some("dcm" | "dicom")) {
+        "export the pixel data to PNG first (with no patient fields in the picture) and open that"
+    } else {
+        "open an .onnx model, a PNG, JPEG, TIFF or BMP image, or a folder of them"
+    };
+    Err(format!("{} was not opened: {what}; {todo}", p.display()))
+}

@@ -1,0 +1,217 @@
+//! The slide: the image with its reading tinted over it, zoom, pan and the hover readout.
+
+use egui::{Color32, FontId, Pos2, Rect, RichText, Sense, Stroke, pos2, vec2};
+
+use super::{fmt_opt, fmt_value};
+use crate::gui::app::Inspector;
+use crate::gui::textures::LayerKey;
+use crate::gui::look;
+use crate::gui::short_name;
+use crate::gui::state::*;
+use crate::sign::Sign;
+
+// -------------------------------------------------------------------- slide
+
+/// Screen placement of the picture: image pixel (x, y) ↦ `origin + (x, y)·zoom`.
+struct Placement {
+    origin: Pos2,
+    zoom: f32,
+}
+
+impl Placement {
+    fn to_screen(&self, p: [f32; 2]) -> Pos2 {
+        pos2(self.origin.x + p[0] * self.zoom, self.origin.y + p[1] * self.zoom)
+    }
+    fn to_image(&self, s: Pos2) -> [f32; 2] {
+        [(s.x - self.origin.x) / self.zoom, (s.y - self.origin.y) / self.zoom]
+    }
+}
+
+fn flag_banner(ui: &mut egui::Ui, shown: &Shown) {
+    let a = &shown.assessment;
+    if a.suspect {
+        egui::Frame::new().fill(look::SIGNAL).inner_margin(6.0).corner_radius(3.0).show(ui, |ui| {
+            ui.set_width(ui.available_width());
+            ui.label(RichText::new(format!("SUSPECT — {}", a.reason)).color(Color32::WHITE).strong());
+        });
+    } else {
+        egui::Frame::new().stroke(Stroke::new(1.0, look::MOSS)).inner_margin(6.0).corner_radius(3.0).show(ui, |ui| {
+            ui.set_width(ui.available_width());
+            ui.label(RichText::new(format!("not suspect — {}", a.reason)).color(look::MOSS));
+        });
+    }
+}
+
+fn legend(ui: &mut egui::Ui, app: &mut Inspector, scale: f32, sign: Sign) {
+    let tex = app.legend_texture(sign);
+    let ends = crate::render::legend_ends(sign, scale);
+    ui.horizontal(|ui| {
+        ui.label(RichText::new(format!("{} {}", ends.low_word, ends.low)).small());
+        let (rect, _) = ui.allocate_exact_size(vec2(220.0, 12.0), Sense::hover());
+        ui.painter().image(tex.id(), rect, Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0)), Color32::WHITE);
+        ui.label(RichText::new(format!("{} {}", ends.high, ends.high_word)).small());
+        ui.label(RichText::new("(ends at the 99.5th percentile of |attribution|)").small().color(look::ASH));
+    });
+}
+
+pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
+    egui::CentralPanel::default().frame(egui::Frame::new().fill(look::DEEP).inner_margin(8.0)).show(ui, |ui| {
+        let Some(entry) = app.current_image() else {
+            ui.centered_and_justified(|ui| {
+                ui.label(RichText::new("No image open. Use Images… or Folder…, type a path at the top, or drop files here.").color(look::ASH));
+            });
+            return;
+        };
+        let path = entry.path.clone();
+        let prepared = match &entry.state {
+            ImageState::Ready(p) => p.clone(),
+            ImageState::Failed(m) => {
+                ui.label(RichText::new(format!("{} cannot be shown: {m}", short_name(&path))).color(look::SIGNAL));
+                return;
+            }
+            _ => {
+                ui.horizontal(|ui| {
+                    ui.spinner();
+                    ui.label(if app.session.is_none() { "waiting for the model…" } else { "opening the image…" });
+                });
+                return;
+            }
+        };
+        let wanted = app.wanted_key().ok();
+        let shown = wanted.as_ref().and_then(|k| app.cache.done(k).cloned());
+
+        // Header: name, reading state, zoom controls.
+        ui.horizontal(|ui| {
+            ui.label(RichText::new(short_name(&path)).strong());
+            if let Some(k) = &wanted {
+                ui.label(RichText::new(k.request.describe()).color(look::ASH));
+                match app.cache.slots.get(k) {
+                    Some(Slot::Pending(id)) => {
+                        ui.spinner();
+                        let f = app.workers.running.iter().find(|r| r.id == *id).map(|r| r.ctl.fraction()).unwrap_or(0.0);
+                        ui.label(format!("reading… {:.0} %", f * 100.0));
+                    }
+                    Some(Slot::Failed(e)) => {
+                        ui.label(RichText::new(format!("failed: {e}")).color(look::SIGNAL));
+                    }
+                    _ => {}
+                }
+            }
+            ui.with_layout(egui::Layout::right_to_left(egui::Align::Center), |ui| {
+                if ui.button("fit").clicked() {
+                    app.view.zoom = None;
+                }
+                if ui.button("1:1").clicked() {
+                    app.view.zoom = Some(1.0);
+                    app.view.centre = [prepared.picture.width() as f32 / 2.0, prepared.picture.height() as f32 / 2.0];
+                }
+            });
+        });
+        if let Some(s) = &shown {
+            flag_banner(ui, s);
+        }
+
+        // Reserve room under the picture for the readout and legend.
+        let avail = ui.available_size() - vec2(0.0, 48.0);
+        let (rect, resp) = ui.allocate_exact_size(avail.max(vec2(64.0, 64.0)), Sense::click_and_drag());
+        let (w, h) = (prepared.picture.width() as f32, prepared.picture.height() as f32);
+        let fit = (rect.width() / w).min(rect.height() / h) * 0.98;
+        let mut zoom = app.view.zoom.unwrap_or(fit);
+        let mut centre = if app.view.zoom.is_some() { app.view.centre } else { [w / 2.0, h / 2.0] };
+
+        // Scroll or pinch zooms about the pointer; drag pans.
+        if let Some(hp) = resp.hover_pos() {
+            let (scroll, pinch) = ui.input(|i| (i.smooth_scroll_delta.y, i.zoom_delta()));
+            let factor = pinch * (scroll * 0.003).exp();
+            if (factor - 1.0).abs() > 1e-4 {
+                let before = [centre[0] + (hp.x - rect.center().x) / zoom, centre[1] + (hp.y - rect.center().y) / zoom];
+                let nz = (zoom * factor).clamp(fit * 0.25, 64.0);
+                centre = [before[0] - (hp.x - rect.center().x) / nz, before[1] - (hp.y - rect.center().y) / nz];
+                zoom = nz;
+                app.view.zoom = Some(zoom);
+                app.view.centre = centre;
+            }
+        }
+        if resp.dragged() {
+            let d = resp.drag_delta();
+            centre = [centre[0] - d.x / zoom, centre[1] - d.y / zoom];
+            app.view.zoom = Some(zoom);
+            app.view.centre = centre;
+        }
+        if resp.double_clicked() {
+            app.view.zoom = None;
+        }
+        let place = Placement { origin: pos2(rect.center().x - centre[0] * zoom, rect.center().y - centre[1] * zoom), zoom };
+        let img_rect = Rect::from_min_max(place.to_screen([0.0, 0.0]), place.to_screen([w, h]));
+        let painter = ui.painter_at(rect);
+        let uv = Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0));
+        let base = app.base_texture(&path, &prepared);
+        painter.image(base.id(), img_rect, uv, Color32::WHITE);
+
+        let mut scale = 0.0;
+        if let (Some(k), Some(s)) = (&wanted, &shown) {
+            scale = app.scale_of(k, s);
+            let lk = LayerKey {
+                key: k.clone(),
+                sign: app.view.sign,
+                overlay: app.view.overlay,
+                share_permille: (app.view.top_share * 1000.0).round() as u32,
+            };
+            match app.view.overlay {
+                Overlay::Tint | Overlay::Reveal => {
+                    if let Some(t) = app.layer_texture(&lk, s, scale) {
+                        let a = (app.view.opacity.clamp(0.0, 1.0) * 255.0).round() as u8;
+                        painter.image(t.id(), img_rect, uv, Color32::from_white_alpha(a));
+                    }
+                }
+                Overlay::Contour => {
+                    let edges = app.contour_edges(&lk, s);
+                    let stroke = Stroke::new(1.6, crate::gui::paint::contour_colour(app.view.sign));
+                    painter.extend(edges.iter().map(|[a, b]| egui::Shape::line_segment([place.to_screen(*a), place.to_screen(*b)], stroke)));
+                }
+                Overlay::Off => {}
+            }
+        }
+
+        if app.view.show_regions {
+            let stroke = Stroke::new(1.4, look::REGION);
+            for (i, (r, edges)) in prepared.regions.iter().zip(&prepared.region_edges).enumerate() {
+                painter.extend(edges.iter().map(|[a, b]| egui::Shape::line_segment([place.to_screen(*a), place.to_screen(*b)], stroke)));
+                let figures = shown.as_ref().and_then(|s| s.assessment.regions.get(i)).map(|rr| {
+                    format!(" · share {} · lift {}", fmt_opt(rr.figures.mark_share, 2), fmt_opt(rr.figures.lift, 1))
+                });
+                let text = format!("{}{}", r.label(), figures.unwrap_or_default());
+                // Label inside the image near the region's corner, clamped to the panel.
+                let at = place.to_screen([r.bbox[0] as f32, r.bbox[3] as f32]);
+                let at = pos2(at.x.clamp(rect.left() + 2.0, rect.right() - 160.0), (at.y + 2.0).clamp(rect.top() + 2.0, rect.bottom() - 16.0));
+                let galley = painter.layout_no_wrap(text, FontId::proportional(12.0), look::REGION);
+                let bg = Rect::from_min_size(at, galley.size() + vec2(6.0, 2.0));
+                painter.rect_filled(bg, 2.0, Color32::from_black_alpha(190));
+                painter.galley(at + vec2(3.0, 1.0), galley, look::REGION);
+            }
+        }
+
+        // Hover readout.
+        let readout = resp.hover_pos().filter(|p| img_rect.contains(*p)).map(|p| {
+            let q = place.to_image(p);
+            let (x, y) = ((q[0] as usize).min(w as usize - 1), (q[1] as usize).min(h as usize - 1));
+            let px = &prepared.picture.pixels;
+            let pix = if px.shape()[2] >= 3 {
+                format!("rgb {:.3} {:.3} {:.3}", px[[y, x, 0]], px[[y, x, 1]], px[[y, x, 2]])
+            } else {
+                format!("pixel {:.3}", px[[y, x, 0]])
+            };
+            let att = shown.as_ref().map(|s| {
+                let v = s.map[[y, x]];
+                format!(" · attribution {} · percentile {:.1}", fmt_value(v), s.spread.percentile_of(v))
+            });
+            format!("x {x}  y {y} · {pix}{}", att.unwrap_or_default())
+        });
+        ui.label(RichText::new(readout.unwrap_or_else(|| "hover the image for pixel, attribution and percentile; scroll to zoom, drag to pan, double-click to fit".into())).monospace().small());
+        if shown.is_some() && app.view.overlay != Overlay::Off {
+            let sign = app.view.sign;
+            legend(ui, app, scale, sign);
+        }
+    });
+}
+

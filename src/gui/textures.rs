@@ -1,0 +1,100 @@
+//! Texture caches: the picture, the slide's layer, contours, strip tiles and legends, keyed by
+//! what they show so that a frame uploads nothing it uploaded before.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+
+use egui::TextureHandle;
+
+use crate::methods::agree;
+use crate::sign::Sign;
+
+use super::app::Inspector;
+use super::paint;
+use super::state::{Key, Overlay, Prepared, Shown};
+
+/// Texture caches, keyed by what they show.
+#[derive(Default)]
+pub(crate) struct Textures {
+    pub base: HashMap<PathBuf, TextureHandle>,
+    pub layer: Option<(LayerKey, TextureHandle)>,
+    pub contour: Option<(LayerKey, Vec<[[f32; 2]; 2]>)>,
+    pub tiles: HashMap<(Key, &'static str, u32), TextureHandle>,
+    pub legend: HashMap<&'static str, TextureHandle>,
+    /// Colour-scale end per (reading, sign).
+    pub scale: HashMap<Key, f32>,
+}
+
+#[derive(Clone, Debug, PartialEq)]
+pub(crate) struct LayerKey {
+    pub key: Key,
+    pub sign: Sign,
+    pub overlay: Overlay,
+    pub share_permille: u32,
+}
+
+impl Inspector {
+    pub(crate) fn base_texture(&mut self, path: &Path, prepared: &Prepared) -> TextureHandle {
+        if let Some(t) = self.tex.base.get(path) {
+            return t.clone();
+        }
+        let t = self.ctx.load_texture(
+            format!("picture {}", path.display()),
+            prepared.base_image.clone(),
+            egui::TextureOptions::NEAREST,
+        );
+        self.tex.base.insert(path.to_path_buf(), t.clone());
+        t
+    }
+
+    /// Colour-scale end of a reading (the render module's robust scale of the signed map).
+    pub(crate) fn scale_of(&mut self, key: &Key, shown: &Shown) -> f32 {
+        *self.tex.scale.entry(key.clone()).or_insert_with(|| crate::render::robust_scale(&shown.map))
+    }
+
+    pub(crate) fn layer_texture(&mut self, lk: &LayerKey, shown: &Shown, scale: f32) -> Option<TextureHandle> {
+        if let Some((k, t)) = &self.tex.layer
+            && k == lk
+        {
+            return Some(t.clone());
+        }
+        let img = match lk.overlay {
+            Overlay::Tint => paint::tint_layer(&shown.map, scale, lk.sign),
+            Overlay::Reveal => paint::reveal_layer(&agree::top_mask(&agree::view(&shown.map, lk.sign), self.view.top_share)),
+            Overlay::Contour | Overlay::Off => return None,
+        };
+        let t = self.ctx.load_texture("slide layer", img, egui::TextureOptions::NEAREST);
+        self.tex.layer = Some((lk.clone(), t.clone()));
+        Some(t)
+    }
+
+    pub(crate) fn contour_edges(&mut self, lk: &LayerKey, shown: &Shown) -> Vec<[[f32; 2]; 2]> {
+        if let Some((k, e)) = &self.tex.contour
+            && k == lk
+        {
+            return e.clone();
+        }
+        let e = paint::mask_edges(&agree::top_mask(&agree::view(&shown.map, lk.sign), self.view.top_share));
+        self.tex.contour = Some((lk.clone(), e.clone()));
+        e
+    }
+
+    pub(crate) fn tile_texture(&mut self, key: &Key, shown: &Shown, sign: Sign, scale: f32) -> TextureHandle {
+        let tk = (key.clone(), sign.name(), scale.to_bits());
+        if let Some(t) = self.tex.tiles.get(&tk) {
+            return t.clone();
+        }
+        let t = self.ctx.load_texture("strip tile", paint::tint_layer(&shown.map, scale, sign), egui::TextureOptions::LINEAR);
+        self.tex.tiles.insert(tk, t.clone());
+        t
+    }
+
+    pub(crate) fn legend_texture(&mut self, sign: Sign) -> TextureHandle {
+        if let Some(t) = self.tex.legend.get(sign.name()) {
+            return t.clone();
+        }
+        let t = self.ctx.load_texture("legend", paint::legend_ramp(sign, 256), egui::TextureOptions::LINEAR);
+        self.tex.legend.insert(sign.name(), t.clone());
+        t
+    }
+}

@@ -1,0 +1,6 @@
+//! The files spurion writes for other tools and people to read, as typed, serialisable values
+//! built from the engine's results (so every front end writes the same file).
+
+mod reading;
+
+pub use reading::{ReadingFile, assess_input};
