@@ -17,8 +17,8 @@ done
 wait_s="${1:-40}"
 out=assets/screenshots/inspector.png
 mkdir -p "$(dirname "$out")"
-cargo test --test gui_inspector --no-run
-[ -x target/debug/spurion ] || { echo "target/debug/spurion was not built; run cargo test --test gui_inspector" >&2; exit 1; }
+cargo test --test suite --no-run
+[ -x target/debug/spurion ] || { echo "target/debug/spurion was not built; run cargo test --test suite gui_inspector" >&2; exit 1; }
 
 display=":${SPURION_XVFB_DISPLAY:-87}"
 Xvfb "$display" -screen 0 1360x860x24 -nolisten tcp >/tmp/spurion-xvfb.log 2>&1 &

@@ -9,8 +9,8 @@ use ndarray::{Array2, Array3, Axis};
 
 use super::{InputArgs, ModelArgs, load_input};
 use crate::control::Control;
-use crate::methods::catalog::{MethodKind, baseline_forms, method_names};
-use crate::methods::{self, Baseline, Input, Method, Request, Rule, ScoreKind, TargetSpec};
+use super::reading_args::ReadingArgs;
+use crate::methods::{self, Input};
 use crate::report::{ReadingFile, assess_input};
 use crate::sign::Sign;
 
@@ -20,50 +20,16 @@ pub struct ExplainArgs {
     pub model: ModelArgs,
     #[command(flatten)]
     pub input: InputArgs,
-    #[arg(long, default_value = "integrated-gradients", help = method_names())]
-    pub method: String,
-    #[arg(long, default_value = "black", help = format!("{} (folder: expected-gradients draws)", baseline_forms()))]
-    pub baseline: String,
-    /// Integrated-gradients steps, a fixed count. Without --steps, integrated gradients start at
-    /// 64 and refine until the completeness gap is below 1% (as --adaptive does).
-    #[arg(long)]
-    pub steps: Option<usize>,
-    /// Integrated-gradients quadrature for a fixed --steps: gauss-legendre | midpoint | trapezoid.
-    #[arg(long, default_value = "gauss-legendre")]
-    pub rule: String,
-    /// Refine integrated gradients (from --steps, default 64) until the completeness gap is
-    /// below GAP (relative; default 0.01); the default when --steps is not given.
-    #[arg(long, num_args = 0..=1, default_missing_value = "0.01", value_name = "GAP")]
-    pub adaptive: Option<f32>,
-    /// Occlusion window side in model-input pixels.
-    #[arg(long, default_value_t = 16)]
-    pub window: usize,
-    /// Occlusion stride in model-input pixels.
-    #[arg(long, default_value_t = 8)]
-    pub stride: usize,
-    /// SmoothGrad noise, as a share of the input's value range.
-    #[arg(long, default_value_t = 0.15)]
-    pub noise: f32,
-    /// Samples for SmoothGrad and expected gradients.
-    #[arg(long, default_value_t = 32)]
-    pub samples: usize,
-    /// Seed for SmoothGrad noise and expected-gradient draws.
-    #[arg(long, default_value_t = 0)]
-    pub seed: u64,
-    /// top | a class index | a label from the feed card.
-    #[arg(long, default_value = "top")]
-    pub target: String,
-    /// logits | softmax | raw.
-    #[arg(long, default_value = "logits")]
-    pub score: String,
+    #[command(flatten)]
+    pub reading: ReadingArgs,
     /// Folder for the reading's files (default: reading-<input name>-<method>).
     #[arg(long)]
     pub out: Option<PathBuf>,
-    /// Which sign the pictures show: both | supporting | opposing | magnitude.
-    #[arg(long, default_value = "both")]
+    /// Which sign the pictures show: supporting | opposing | both | magnitude.
+    #[arg(long, default_value = crate::methods::defaults::SIGN_TEXT)]
     pub sign: String,
     /// Tint opacity in overlay.png, 0..1.
-    #[arg(long, default_value_t = 0.75)]
+    #[arg(long, default_value_t = crate::methods::defaults::OPACITY)]
     pub opacity: f32,
     /// No progress bar.
     #[arg(long, short = 'q')]
@@ -104,41 +70,18 @@ pub(crate) fn control_for(bar: &ProgressBar) -> Control {
     ctl
 }
 
-pub fn parse_method(a: &ExplainArgs) -> Result<Method> {
-    let Some(kind) = MethodKind::parse(&a.method) else {
-        bail!("unknown method \"{}\"; use one of: {}", a.method, method_names());
-    };
-    Ok(match kind {
-        MethodKind::IntegratedGradients => match (a.steps, a.adaptive) {
-            (Some(steps), None) => Method::IntegratedGradients { steps, rule: Rule::parse(&a.rule)?, adaptive: None },
-            (steps, gap) => Method::refined_integrated_gradients(
-                steps.unwrap_or(methods::DEFAULT_STEPS),
-                gap.unwrap_or(methods::DEFAULT_ADAPTIVE_GAP),
-            ),
-        },
-        MethodKind::Occlusion => Method::Occlusion { window: a.window, stride: a.stride },
-        MethodKind::Gradient => Method::Gradient,
-        MethodKind::GradientXInput => Method::GradientXInput,
-        MethodKind::SmoothGrad => Method::SmoothGrad { noise: a.noise, samples: a.samples, seed: a.seed },
-        MethodKind::ExpectedGradients => Method::ExpectedGradients { samples: a.samples, seed: a.seed },
-    })
-}
-
 fn parse_sign(s: &str) -> Result<Sign> {
     Sign::parse(s).with_context(|| format!("unknown sign \"{s}\"; use both, supporting, opposing or magnitude"))
 }
 
 pub fn run(a: &ExplainArgs) -> Result<()> {
-    let method = parse_method(a)?;
-    let baseline = Baseline::parse(&a.baseline)?;
-    let score = ScoreKind::parse(&a.score)?;
+    let req = a.reading.request()?;
     let sign = parse_sign(&a.sign)?;
     if !(0.0..=1.0).contains(&a.opacity) {
         bail!("--opacity must be between 0 and 1");
     }
-    let model = a.model.load()?;
+    let model = a.model.load_for(&a.input)?;
     let (input, card) = load_input(&model, &a.model, &a.input)?;
-    let req = Request { method, baseline, target: TargetSpec::parse(&a.target), score };
     let bar = if a.quiet { ProgressBar::hidden() } else { progress_bar(req.method.name()) };
     let ctl = control_for(&bar);
     let reading = methods::explain(&model, card.as_ref(), &input, &req, &ctl)?;
@@ -147,7 +90,7 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     let out = a.out.clone().unwrap_or_else(|| default_out(&input, &reading.method));
     std::fs::create_dir_all(&out).with_context(|| format!("cannot create output folder {}", out.display()))?;
     let map2 = reading.map2d();
-    let assessment = assess_input(&input, &map2)?;
+    let assessment = assess_input(&model, card.as_ref(), &input, &reading)?;
     let suspect = assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
     write_json(&out.join("reading.json"), &ReadingFile::new(&reading, assessment).to_json()?)?;
     crate::feed::write_tensor(&out.join("map.npy"), &reading.map)?;

@@ -2,7 +2,10 @@
 //! and what to do; exit codes: 0 done, 1 bad input or failed computation, 2 usage error.
 
 mod explain;
+mod reading_args;
 mod regions;
+
+pub use reading_args::ReadingArgs;
 
 use std::path::PathBuf;
 
@@ -55,12 +58,49 @@ pub struct ModelArgs {
 }
 
 impl ModelArgs {
+    /// The model with the input shape given, or its feed card's.
     pub fn load(&self) -> Result<Model> {
-        let shape = self.input_shape.clone().or_else(|| {
+        Model::load(&self.model, &LoadOptions { input_shape: self.given_shape() })
+    }
+
+    /// The model for `input`: where neither `--input-shape` nor a feed card fixes the graph's
+    /// dynamic input dimensions, the tensor's shape does, or an image's height and width.
+    pub fn load_for(&self, input: &InputArgs) -> Result<Model> {
+        let shape = match self.given_shape() {
+            Some(s) => Some(s),
+            None => self.shape_from_input(input)?,
+        };
+        Model::load(&self.model, &LoadOptions { input_shape: shape })
+    }
+
+    fn given_shape(&self) -> Option<Vec<usize>> {
+        self.input_shape.clone().or_else(|| {
             // A feed card fixes the input shape of a model with dynamic dimensions.
             self.card_path().and_then(|p| crate::feed::FeedCard::load(&p).ok()).map(|c| c.tensor_shape())
-        });
-        Model::load(&self.model, &LoadOptions { input_shape: shape })
+        })
+    }
+
+    fn shape_from_input(&self, input: &InputArgs) -> Result<Option<Vec<usize>>> {
+        let dims = crate::model::input_dims(&self.model)?;
+        if dims.iter().skip(1).all(Option::is_some) {
+            return Ok(None);
+        }
+        if let Some(t) = &input.tensor {
+            return Ok(Some(crate::feed::read_tensor(t)?.shape().to_vec()));
+        }
+        let Some(path) = &input.image else { return Ok(None) };
+        if dims.len() != 4 {
+            return Ok(None);
+        }
+        let pic = crate::feed::Picture::open(path)?;
+        let (h, w) = (pic.height(), pic.width());
+        // The channel axis is the one the graph fixes at 1 or 3; the other two take the image's size.
+        let fill = |d: Option<usize>, v: usize| d.unwrap_or(v);
+        Ok(match (dims[1], dims[3]) {
+            (Some(c @ (1 | 3)), _) => Some(vec![1, c, fill(dims[2], h), fill(dims[3], w)]),
+            (_, Some(c @ (1 | 3))) => Some(vec![1, fill(dims[1], h), fill(dims[2], w), c]),
+            _ => None,
+        })
     }
 
     fn card_path(&self) -> Option<PathBuf> {
@@ -244,7 +284,7 @@ pub(crate) fn load_input(
 }
 
 fn predict(a: &PredictArgs) -> Result<()> {
-    let m = a.model.load()?;
+    let m = a.model.load_for(&a.input)?;
     let (input, card) = load_input(&m, &a.model, &a.input)?;
     let x = input.model_tensor()?;
     let out = m.forward(&x, crate::model::Tap::Output)?;

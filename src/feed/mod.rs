@@ -13,21 +13,31 @@ use std::path::Path;
 use anyhow::{Context, Result, bail};
 use ndarray::ArrayD;
 
-/// Reads a float32 (or float64, converted) `.npy` tensor.
+/// Reads a float32 (or float64, converted) `.npy` tensor. A tensor holding NaN or infinite
+/// values is refused: no attribution of it means anything.
 pub fn read_tensor(path: &Path) -> Result<ArrayD<f32>> {
     use ndarray_npy::ReadNpyExt;
     let bytes = std::fs::read(path).with_context(|| format!("cannot read tensor file {}", path.display()))?;
-    if let Ok(a) = ArrayD::<f32>::read_npy(std::io::Cursor::new(&bytes)) {
-        return Ok(a);
+    let a = match ArrayD::<f32>::read_npy(std::io::Cursor::new(&bytes)) {
+        Ok(a) => a,
+        Err(_) => match ArrayD::<f64>::read_npy(std::io::Cursor::new(&bytes)) {
+            Ok(a) => a.mapv(|v| v as f32),
+            Err(e) => bail!(
+                "{} is not a NumPy .npy file of float32 or float64 values ({e}). \
+                 Save it with numpy.save(path, array.astype(numpy.float32)).",
+                path.display()
+            ),
+        },
+    };
+    if let Some((at, v)) = a.indexed_iter().find(|(_, v)| !v.is_finite()) {
+        bail!(
+            "tensor {} holds {v} at index {:?}; spurion needs finite values everywhere. Fix the values \
+             (numpy.isfinite(a).all() should be True) and save it again",
+            path.display(),
+            ndarray::Dimension::slice(&at)
+        );
     }
-    match ArrayD::<f64>::read_npy(std::io::Cursor::new(&bytes)) {
-        Ok(a) => Ok(a.mapv(|v| v as f32)),
-        Err(e) => bail!(
-            "{} is not a NumPy .npy file of float32 or float64 values ({e}). \
-             Save it with numpy.save(path, array.astype(numpy.float32)).",
-            path.display()
-        ),
-    }
+    Ok(a)
 }
 
 /// Writes a float32 `.npy` file.

@@ -63,6 +63,9 @@ impl Picture {
                 (Array3::from_shape_fn((h, w, 3), |(y, x, k)| c.get_pixel(x as u32, y as u32)[k] as f32 / 255.0), 8)
             }
         };
+        if let Some(((y, x, c), v)) = pixels.indexed_iter().find(|(_, v)| !v.is_finite()) {
+            bail!("the image holds a value that is not a number ({v}) at x {x}, y {y}, channel {c}; export it again with finite values");
+        }
         Ok(Picture { path: None, pixels, bit_depth })
     }
 

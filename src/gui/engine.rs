@@ -11,7 +11,7 @@ use crate::feed::{FeedCard, Feeder, Picture};
 use crate::methods::agree::Spread;
 use crate::methods::{self, Input, Request};
 use crate::model::{LoadOptions, Model, Tap};
-use crate::regions::{FinderSettings, FlagSettings, assess_regions, find_regions};
+use crate::regions::{FinderSettings, FlagSettings, find_regions};
 
 use super::paint;
 use super::state::{Prepared, Session, Shown};
@@ -58,6 +58,6 @@ pub fn read(session: &Session, prepared: &Prepared, req: &Request, ctl: &Control
     let reading = methods::explain(&session.model, Some(&session.card), &input, req, ctl)?;
     let map = reading.map2d();
     let spread = Spread::of(&map);
-    let assessment = assess_regions(&map, &prepared.regions, &FlagSettings::default())?;
+    let assessment = methods::assess(&session.model, Some(&session.card), &input, &reading, &prepared.regions, &FlagSettings::default())?;
     Ok(Shown { reading: Arc::new(reading), map, spread, assessment })
 }

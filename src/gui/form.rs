@@ -7,17 +7,8 @@
 use std::path::{Path, PathBuf};
 
 use crate::methods::catalog::{BaselineKind, METHODS, MethodKind};
-use crate::methods::{self, Baseline, Method, Request, ScoreKind, TargetSpec};
-
-/// The inspector's default baseline is a blur of this σ (model-grid pixels); see [`DEFAULT_BASELINE_WHY`].
-pub const DEFAULT_BLUR_SIGMA: f32 = 8.0;
-
-/// Why the inspector starts on blur σ 8 rather than black (its tooltip).
-pub const DEFAULT_BASELINE_WHY: &str = "The inspector starts on blur σ 8. A black baseline equals the dark frame \
-of marked images: there x − x′ = 0, so integrated gradients gives the frame no attribution and the \
-suspect flag can miss a frame shortcut. Blur keeps the picture's coarse content and removes the fine detail a tag \
-or frame adds. Measured on the demo set: integrated gradients with blur σ 8 flag 6 of 6 Hillmoor images with a \
-finding under the shortcut model and 0 of 6 under the control; with black the frame gets nothing.";
+use crate::methods::defaults;
+use crate::methods::{Baseline, Method, Request, ScoreKind, TargetSpec};
 
 /// The short line under the baseline control when black is chosen.
 pub const BLACK_BASELINE_CAVEAT: &str = "black = the dark frame: x − x′ = 0 there, so a frame shortcut gets no attribution";
@@ -48,23 +39,25 @@ pub struct Form {
 
 impl Default for Form {
     fn default() -> Self {
+        // Every value from the one set of defaults the command line uses too.
+        let d = Request::default();
         Form {
-            method: MethodKind::IntegratedGradients,
-            steps: 32,
+            method: d.method.kind(),
+            steps: defaults::IG_START_STEPS,
             refine: true,
-            samples: 16,
-            smooth_noise: 0.15,
-            seed: 7,
-            window: 16,
-            stride: 8,
-            baseline: BaselineKind::Blur,
-            blur_sigma: DEFAULT_BLUR_SIGMA,
-            noise_sigma: 0.2,
-            noise_seed: 7,
+            samples: defaults::SAMPLES,
+            smooth_noise: defaults::SMOOTHGRAD_NOISE,
+            seed: defaults::SEED,
+            window: defaults::WINDOW,
+            stride: defaults::STRIDE,
+            baseline: d.baseline.kind(),
+            blur_sigma: defaults::BLUR_SIGMA,
+            noise_sigma: defaults::NOISE_SIGMA,
+            noise_seed: defaults::SEED,
             mean_dir: String::new(),
             custom_path: String::new(),
-            target: TargetSpec::Top,
-            score: ScoreKind::Raw,
+            target: d.target,
+            score: d.score,
         }
     }
 }
@@ -82,10 +75,10 @@ impl Form {
             MethodKind::GradientXInput => Method::GradientXInput,
             // Refined as the engine's default reading is; the step count is where it starts.
             MethodKind::IntegratedGradients if self.refine => {
-                Method::refined_integrated_gradients(self.steps, methods::DEFAULT_ADAPTIVE_GAP)
+                Method::refined_integrated_gradients(self.steps, defaults::IG_GAP)
             }
             MethodKind::IntegratedGradients => {
-                Method::IntegratedGradients { steps: self.steps, rule: methods::DEFAULT_RULE, adaptive: None }
+                Method::IntegratedGradients { steps: self.steps, rule: defaults::IG_FIXED_RULE, adaptive: None }
             }
             MethodKind::SmoothGrad => Method::SmoothGrad { noise: self.smooth_noise, samples: self.samples, seed: self.seed },
             MethodKind::ExpectedGradients => Method::ExpectedGradients { samples: self.samples, seed: self.seed },
@@ -175,11 +168,11 @@ mod tests {
         let r = form.request_with(Baseline::Black);
         assert_eq!(
             r.method,
-            Method::IntegratedGradients { steps: form.steps, rule: methods::Rule::Midpoint, adaptive: Some(methods::DEFAULT_ADAPTIVE_GAP) }
+            Method::IntegratedGradients { steps: form.steps, rule: crate::methods::Rule::Midpoint, adaptive: Some(defaults::IG_GAP) }
         );
         form.refine = false;
         let r = form.request_with(Baseline::Black);
-        assert_eq!(r.method, Method::IntegratedGradients { steps: form.steps, rule: methods::DEFAULT_RULE, adaptive: None });
+        assert_eq!(r.method, Method::IntegratedGradients { steps: form.steps, rule: defaults::IG_FIXED_RULE, adaptive: None });
     }
 
     #[test]

@@ -162,8 +162,8 @@ impl Default for ViewSettings {
     fn default() -> Self {
         ViewSettings {
             overlay: Overlay::Tint,
-            opacity: 0.7,
-            sign: Sign::Supporting,
+            opacity: crate::methods::defaults::OPACITY,
+            sign: crate::methods::defaults::SIGN,
             top_share: 0.10,
             show_regions: true,
             zoom: None,

@@ -48,7 +48,8 @@ pub(super) fn integrated_gradients(job: &Job, xb: &ArrayD<f32>, steps: usize, ru
             loop {
                 let map = &sum / m as f32 * &diff;
                 let gap = gap_of(map.sum() as f64, diff_scores);
-                let done = gap.map(|g| g <= target_gap as f64).unwrap_or(true);
+                // No gap (F(x) = F(x′)) or one that is not a number cannot be refined away.
+                let done = gap.is_none_or(|g| !g.is_finite() || g <= target_gap as f64);
                 if done || m * 3 > MAX_REFINED_STEPS {
                     return Ok(Outcome { map, steps: Some(m), score_baseline: Some(fb), gap });
                 }

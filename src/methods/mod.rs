@@ -14,11 +14,13 @@
 pub mod agree;
 mod baseline;
 pub mod catalog;
+pub mod defaults;
 mod input;
 mod integrated;
 mod occlusion;
 mod quadrature;
 mod reading;
+mod removal;
 mod request;
 mod sampling;
 mod score;
@@ -30,7 +32,8 @@ pub use integrated::MAX_REFINED_STEPS;
 pub use occlusion::window_starts;
 pub use quadrature::{Rule, gauss_legendre};
 pub use reading::{Reading, Target};
-pub use request::{DEFAULT_ADAPTIVE_GAP, DEFAULT_RULE, DEFAULT_STEPS, Method, Request, ScoreKind, TargetSpec};
+pub use removal::{assess, removals};
+pub use request::{Method, Request, ScoreKind, TargetSpec};
 pub use score::{Scorer, resolve_target, softmax, top_index};
 
 use std::time::Instant;

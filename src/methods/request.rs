@@ -5,15 +5,7 @@ use anyhow::{Result, bail};
 use serde::{Deserialize, Serialize};
 
 use super::catalog::{MethodEntry, MethodKind};
-use super::{Baseline, Rule};
-
-/// Integrated-gradients step count (the start of the default adaptive refinement) and the rule
-/// for a fixed step count.
-pub const DEFAULT_STEPS: usize = 64;
-pub const DEFAULT_RULE: Rule = Rule::GaussLegendre;
-/// Default completeness-gap target of adaptive integrated gradients: the paper's advice is
-/// 5% (Sundararajan et al. 2017, section 3); we ask for 1%.
-pub const DEFAULT_ADAPTIVE_GAP: f32 = 0.01;
+use super::{Baseline, Rule, defaults};
 
 /// An attribution method and its settings.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -72,12 +64,12 @@ impl Method {
         self.entry().needs_gradient
     }
 
-    /// The default reading: integrated gradients refined from [`DEFAULT_STEPS`] midpoint steps
-    /// until the completeness gap is under [`DEFAULT_ADAPTIVE_GAP`]. A fixed count is not enough
-    /// on ReLU networks: 64 Gauss–Legendre steps left gaps of 1.4–3.4 % on the control sample
-    /// model, where refinement needed 192–576 steps (measured with `spurion explain --adaptive`).
+    /// The default reading: integrated gradients refined from [`defaults::IG_START_STEPS`]
+    /// midpoint steps until the completeness gap is under [`defaults::IG_GAP`]. A fixed count is
+    /// not enough on ReLU networks: 64 Gauss–Legendre steps left gaps of 1.4–3.4 % on the control
+    /// sample model, where refinement needed 192–576 steps (measured with `spurion explain --adaptive`).
     pub fn integrated_gradients() -> Method {
-        Method::refined_integrated_gradients(DEFAULT_STEPS, DEFAULT_ADAPTIVE_GAP)
+        Method::refined_integrated_gradients(defaults::IG_START_STEPS, defaults::IG_GAP)
     }
 
     /// Integrated gradients refined from `steps` until the completeness gap is under `gap`
@@ -163,9 +155,9 @@ impl Default for Request {
     fn default() -> Self {
         Request {
             method: Method::integrated_gradients(),
-            baseline: Baseline::Black,
+            baseline: defaults::BASELINE,
             target: TargetSpec::Top,
-            score: ScoreKind::Logits,
+            score: defaults::SCORE,
         }
     }
 }

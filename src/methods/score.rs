@@ -14,6 +14,8 @@ use crate::model::{Model, Tap};
 pub struct Scorer {
     pub tap: Tap,
     softmax: bool,
+    /// The tapped vector is already probabilities (a probabilities model's output).
+    probabilities: bool,
     pub target: usize,
 }
 
@@ -32,7 +34,7 @@ impl Scorer {
             ),
             ScoreKind::Logits => (Tap::Output, false),
         };
-        Ok(Scorer { tap, softmax, target })
+        Ok(Scorer { tap, softmax, probabilities: probabilities && tap == Tap::Output, target })
     }
 
     /// The same scoring for another target class.
@@ -43,6 +45,12 @@ impl Scorer {
     /// The score from a tapped vector.
     pub fn score(&self, v: &Array1<f32>) -> f32 {
         if self.softmax { softmax(v)[self.target] } else { v[self.target] }
+    }
+
+    /// The target's probability from a tapped vector: the vector itself when it already holds
+    /// probabilities, else its softmax.
+    pub fn probability(&self, v: &Array1<f32>) -> f32 {
+        if self.probabilities { v[self.target] } else { softmax(v)[self.target] }
     }
 
     /// The cotangent of the tapped vector: e_t, or p_t (e_t − p) through a softmax.
@@ -99,7 +107,7 @@ mod tests {
     #[test]
     fn softmax_seed_is_the_softmax_jacobian_row() {
         // d p_t / d z_j = p_t (δ_tj − p_j) (common practice); checked against central differences.
-        let s = Scorer { tap: Tap::Output, softmax: true, target: 1 };
+        let s = Scorer { tap: Tap::Output, softmax: true, probabilities: false, target: 1 };
         let z = ndarray::arr1(&[0.3f32, -1.2, 2.0]);
         let seed = s.seed(&z);
         let h = 1e-3f32;

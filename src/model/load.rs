@@ -123,6 +123,24 @@ fn check_external_data(path: &Path, dir: &Path, graph: &pb::GraphProto) -> Resul
     Ok(())
 }
 
+/// The input dimensions the graph of `path` fixes (`None` where it leaves one open), read
+/// without typing the graph.
+pub fn input_dims(path: &Path) -> Result<Vec<Option<usize>>> {
+    let Parsed { model, .. } = parse(path)?;
+    if model.inputs.len() != 1 {
+        bail!(
+            "the model {} has {} inputs; spurion handles classifiers with exactly one image input",
+            path.display(),
+            model.inputs.len()
+        );
+    }
+    let fact = model.input_fact(0).map_err(|e| anyhow!("{e}"))?;
+    if fact.shape.is_open() {
+        bail!("the model {} does not say its input's rank; give its input shape (for example 1,3,224,224)", path.display());
+    }
+    Ok(fact.shape.dims().map(|d| d.concretize().and_then(|t| t.to_usize().ok()).filter(|&v| v > 0)).collect())
+}
+
 /// Picks the concrete input shape: the caller's, else the graph's with a free batch axis set to 1.
 pub(crate) fn concrete_input_shape(
     path: &Path,
@@ -194,8 +212,9 @@ pub(crate) fn concrete_input_shape(
             (_, Some(v)) => shape.push(*v),
             (0, None) => shape.push(1),
             (_, None) => bail!(
-                "the model {} has a dynamic input size on axis {ax} ({}); give the full input \
-                 shape (for example 1,3,224,224), or feed a tensor whose shape fixes it",
+                "the model {} has a dynamic input size on axis {ax} ({}) and nothing given fixes it: \
+                 pass --input-shape (for example 1,3,224,224), write a feed card with its height and \
+                 width, or feed an image or tensor whose size the model accepts",
                 path.display(),
                 fact.format_dt_shape()
             ),

@@ -10,6 +10,8 @@
 mod load;
 mod occlude;
 
+pub use load::input_dims;
+
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, OnceLock};
 

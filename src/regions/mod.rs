@@ -12,6 +12,7 @@
 mod border;
 mod command;
 pub mod drawn;
+mod fill;
 pub mod figures;
 pub mod flag;
 mod grid;
@@ -26,7 +27,8 @@ pub use border::find_border_bands;
 pub use command::{FoundRegion, RegionsFile, load_luminance, regions_file, write_regions};
 pub use drawn::{DrawnFile, DrawnShape, Shape, load_drawn, save_drawn};
 pub use figures::Figures;
-pub use flag::{Assessment, FlagSettings, RegionReport, assess, assess_regions};
+pub use fill::{Fill, paint_out, paint_out_all};
+pub use flag::{Assessment, Evidence, FlagSettings, RegionReport, Removal, Removals, assess, assess_regions, assess_with_removals};
 pub use mark::find_burned_in_marks;
 pub use repeated::find_repeated_patches;
 pub use settings::{BorderSettings, FinderSettings, MarkSettings, RepeatedPatchSettings};

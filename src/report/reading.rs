@@ -2,11 +2,12 @@
 //! their figures and the suspect flag, all at the top level of one object.
 
 use anyhow::Result;
-use ndarray::Array2;
 use serde::Serialize;
 
+use crate::feed::FeedCard;
 use crate::methods::{Input, Reading};
-use crate::regions::{Assessment, FinderSettings, FlagSettings, assess_regions, find_regions};
+use crate::model::Model;
+use crate::regions::{Assessment, FinderSettings, FlagSettings, find_regions};
 
 /// The content of `reading.json`. `spurion explain` writes it, the inspector's JSON export
 /// writes it too (with the regions it already found).
@@ -41,12 +42,12 @@ impl<'a> ReadingFile<'a> {
     }
 }
 
-/// For a picture, finds its regions (default finder settings) and assesses `map2` (the map on
-/// the image grid) against them with the default flag; `None` for a tensor.
-pub fn assess_input(input: &Input, map2: &Array2<f32>) -> Result<Option<Assessment>> {
+/// For a picture, finds its regions (default finder settings) and assesses the reading against
+/// them with both kinds of evidence and the default flag; `None` for a tensor.
+pub fn assess_input(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading) -> Result<Option<Assessment>> {
     let Input::Picture { picture, .. } = input else { return Ok(None) };
     let regions = find_regions(&picture.luminance(), &FinderSettings::default());
-    Ok(Some(assess_regions(map2, &regions, &FlagSettings::default())?))
+    Ok(Some(crate::methods::assess(model, card, input, reading, &regions, &FlagSettings::default())?))
 }
 
 #[cfg(test)]
@@ -79,8 +80,8 @@ mod tests {
             tensor_map: ndarray::ArrayD::zeros(ndarray::IxDyn(&[2, 2])),
             channel_axis: None,
         };
-        let map = Array2::<f32>::zeros((2, 2));
-        let a = assess_regions(&map, &[], &FlagSettings::default()).unwrap();
+        let map = ndarray::Array2::<f32>::zeros((2, 2));
+        let a = crate::regions::assess_regions(&map, &[], &FlagSettings::default()).unwrap();
         let v = ReadingFile::new(&reading, Some(a)).to_json().unwrap();
         assert!(v.get("suspect_reason").is_some() && v.get("method").is_some() && v.get("caution").is_some());
     }

@@ -8,7 +8,8 @@ use crate::gui::intents::{ExportWhat, Intent};
 use crate::gui::look;
 use crate::gui::state::*;
 use crate::gui::work::Pick;
-use crate::gui::form::{BLACK_BASELINE_CAVEAT, DEFAULT_BASELINE_WHY, DEFAULT_BLUR_SIGMA, method_menu};
+use crate::gui::form::{BLACK_BASELINE_CAVEAT, method_menu};
+use crate::methods::defaults::{BASELINE_WHY, BLUR_SIGMA};
 use crate::methods::{BaselineKind, MethodKind, ScoreKind, TargetSpec};
 use crate::sign::Sign;
 
@@ -84,15 +85,15 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                         }
                     })
                     .response
-                    .on_hover_text(DEFAULT_BASELINE_WHY);
+                    .on_hover_text(BASELINE_WHY);
             });
             if !uses_baseline {
                 ui.label(RichText::new(format!("{} takes no baseline", f.method.entry().title)).small().color(look::ASH));
             } else if f.baseline == BaselineKind::Black {
-                ui.label(RichText::new(BLACK_BASELINE_CAVEAT).small().color(look::LILAC)).on_hover_text(DEFAULT_BASELINE_WHY);
-            } else if f.baseline == BaselineKind::Blur && f.blur_sigma == DEFAULT_BLUR_SIGMA {
+                ui.label(RichText::new(BLACK_BASELINE_CAVEAT).small().color(look::LILAC)).on_hover_text(BASELINE_WHY);
+            } else if f.baseline == BaselineKind::Blur && f.blur_sigma == BLUR_SIGMA {
                 ui.label(RichText::new("default: blur keeps a dark frame visible to the map (hover for why)").small().color(look::ASH))
-                    .on_hover_text(DEFAULT_BASELINE_WHY);
+                    .on_hover_text(BASELINE_WHY);
             }
             // Parameters of every baseline stay visible: the strip uses them all.
             ui.collapsing("baseline parameters", |ui| {

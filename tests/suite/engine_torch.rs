@@ -8,8 +8,6 @@
 //! exporters, opsets and op types). spurion computes in float32; the bar is 1e-4
 //! relative (largest coordinate error over the largest reference coordinate).
 
-mod common;
-
 use std::path::PathBuf;
 
 use ndarray::{Array1, ArrayD};
@@ -18,7 +16,7 @@ use serde_json::Value;
 use spurion::model::{LoadOptions, Model, Tap};
 
 fn dir() -> PathBuf {
-    common::fixture("torch")
+    crate::common::fixture("torch")
 }
 
 fn read64(name: &str) -> ArrayD<f64> {

@@ -1,11 +1,9 @@
 //! The command line as a script would use it: files written, fields present, and clean errors
 //! with exit code 1 on bad input.
 
-mod common;
-
 use std::process::{Command, Output};
 
-use common::fixture;
+use crate::common::fixture;
 
 fn spurion(args: &[&str]) -> Output {
     Command::new(env!("CARGO_BIN_EXE_spurion")).args(args).output().expect("run spurion")

@@ -1,9 +1,7 @@
 //! Attribution methods checked against their published properties and an independent
 //! occlusion written with onnxruntime. Fixtures: tests/reference/make_method_fixtures.py.
 
-mod common;
-
-use common::{fixture, reference_python, rel_err, run_python};
+use crate::common::{fixture, reference_python, rel_err, run_python};
 use ndarray::{ArrayD, Axis};
 use spurion::control::Control;
 use spurion::feed::read_tensor;

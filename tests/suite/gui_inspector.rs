@@ -136,7 +136,7 @@ fn strip_shows_every_baseline_and_the_engines_agreement() {
         .iter()
         .map(|b| {
             let req = Request {
-                method: Method::IntegratedGradients { steps: STEPS, rule: methods::DEFAULT_RULE, adaptive: None },
+                method: Method::IntegratedGradients { steps: STEPS, rule: methods::defaults::IG_FIXED_RULE, adaptive: None },
                 baseline: Baseline::parse(b).unwrap(),
                 target: TargetSpec::Top,
                 score: ScoreKind::Raw,

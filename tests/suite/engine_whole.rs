@@ -7,8 +7,6 @@
 //! relative on a smooth model, within a few percent (5 %) on ReLU / max-pool networks whose kinks
 //! make float32 differences noisy.
 
-mod common;
-
 use std::path::{Path, PathBuf};
 
 use ndarray::{Array1, ArrayD};
@@ -17,7 +15,7 @@ use spurion::feed::read_tensor;
 use spurion::model::{LoadOptions, Model, Tap};
 
 fn torch_dir() -> PathBuf {
-    common::fixture("torch")
+    crate::common::fixture("torch")
 }
 
 fn one_hot(n: usize, t: usize) -> Array1<f32> {
@@ -27,7 +25,7 @@ fn one_hot(n: usize, t: usize) -> Array1<f32> {
 fn ort(py: &Path, out: &Path, specs: &[String]) -> Value {
     let mut args: Vec<&str> = vec![out.to_str().unwrap()];
     args.extend(specs.iter().map(|s| s.as_str()));
-    serde_json::from_str(&common::run_python(py, "ort_directional.py", &args)).expect("reference JSON")
+    serde_json::from_str(&crate::common::run_python(py, "ort_directional.py", &args)).expect("reference JSON")
 }
 
 /// spurion's exact gradient of output[target] at x, dotted with the reference script's three
@@ -66,12 +64,12 @@ fn python_path(py: &Path, code: &str) -> PathBuf {
 
 fn forward_rel(m: &Model, x: &ArrayD<f32>, want: &ArrayD<f32>) -> f32 {
     let y = m.forward(x, Tap::Output).unwrap();
-    common::rel_err(y.as_slice().unwrap(), want.as_slice().unwrap(), 1e-12)
+    crate::common::rel_err(y.as_slice().unwrap(), want.as_slice().unwrap(), 1e-12)
 }
 
 #[test]
 fn gradients_match_onnxruntime_directional_derivatives() {
-    let Some(py) = common::reference_python() else { return };
+    let Some(py) = crate::common::reference_python() else { return };
     let out = tempfile::tempdir().unwrap();
     let manifest: Value =
         serde_json::from_str(&std::fs::read_to_string(torch_dir().join("manifest.json")).unwrap()).unwrap();
@@ -88,7 +86,7 @@ fn gradients_match_onnxruntime_directional_derivatives() {
             tol,
         ));
     }
-    let samples = common::root().join("sample-models");
+    let samples = crate::common::root().join("sample-models");
     for (name, pic) in [("shortcut", "0005-hillmoor"), ("control", "0005-hillmoor")] {
         let x = samples.join("recorded").join(format!("{name}.{pic}.npy"));
         let m = Model::load(&samples.join(format!("{name}.onnx")), &LoadOptions::default()).unwrap();
@@ -130,7 +128,7 @@ fn gradients_match_onnxruntime_directional_derivatives() {
 /// checks the numbers.
 #[test]
 fn third_party_exports_run_like_onnxruntime() {
-    let Some(py) = common::reference_python() else { return };
+    let Some(py) = crate::common::reference_python() else { return };
     let light = python_path(&py, "import onnx, os; print(os.path.join(os.path.dirname(onnx.__file__), 'backend/test/data/light'))");
     let names = ["light_resnet50", "light_densenet121", "light_squeezenet", "light_vgg19", "light_inception_v1", "light_shufflenet"];
     let out = tempfile::tempdir().unwrap();
@@ -162,7 +160,7 @@ fn third_party_exports_run_like_onnxruntime() {
 }
 
 fn external(name: &str) -> PathBuf {
-    common::fixture("engine/external").join(name)
+    crate::common::fixture("engine/external").join(name)
 }
 
 #[test]
@@ -202,7 +200,7 @@ fn external_data_outside_the_folder_is_refused() {
 /// onnxruntime's directional derivatives (ReLU / hard-sigmoid kinks: the few-percent bar).
 #[test]
 fn a_trained_third_party_classifier_matches_onnxruntime() {
-    let Some(py) = common::reference_python() else { return };
+    let Some(py) = crate::common::reference_python() else { return };
     let pkg = python_path(
         &py,
         "import importlib.util; print(importlib.util.find_spec('rapidocr_onnxruntime').submodule_search_locations[0])",

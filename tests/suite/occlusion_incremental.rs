@@ -3,8 +3,6 @@
 //! v2/v3, EfficientNet, DenseNet, SqueezeNet, VGG, mixed) and the sample models: the same
 //! outputs within float32 rounding, and the crops really in use where the graph allows them.
 
-mod common;
-
 use ndarray::{ArrayD, Slice};
 use spurion::control::Control;
 use spurion::feed::read_tensor;
@@ -48,7 +46,7 @@ fn check(name: &str, m: &Model, x: &ArrayD<f32>, window: usize, stride: usize, t
 
 #[test]
 fn incremental_occlusion_equals_plain_forwards() {
-    let dir = common::fixture("torch");
+    let dir = crate::common::fixture("torch");
     for name in ["resnet", "mobilenet2", "mobilenet3", "efficientnet", "densenet", "squeezenet", "vgg", "mixed"] {
         let m = Model::load(&dir.join(format!("{name}.onnx")), &LoadOptions::default()).unwrap();
         let x = read_tensor(&dir.join(format!("{name}.x.npy"))).unwrap();
@@ -56,11 +54,11 @@ fn incremental_occlusion_equals_plain_forwards() {
         check(name, &m, &x, 8, 5, Tap::Output, name != "mixed");
     }
     // A graph with nothing to crop (flatten and gemm) takes the plain-forward path.
-    let linear = Model::load(&common::fixture("methods/linear.onnx"), &LoadOptions::default()).unwrap();
+    let linear = Model::load(&crate::common::fixture("methods/linear.onnx"), &LoadOptions::default()).unwrap();
     let x = ArrayD::from_shape_fn(ndarray::IxDyn(&[1, 1, 8, 8]), |i| ((i[2] * 8 + i[3]) as f32 * 0.37).sin());
     assert_eq!(linear.incremental_occlusion_nodes(&x, 3, &[(0, 0)], Tap::Output).unwrap(), 0);
     check("linear (plain forwards)", &linear, &x, 3, 2, Tap::Output, false);
-    let samples = common::root().join("sample-models");
+    let samples = crate::common::root().join("sample-models");
     for name in ["shortcut", "shortcut-rgb224"] {
         let m = Model::load(&samples.join(format!("{name}.onnx")), &LoadOptions::default()).unwrap();
         let x = read_tensor(&samples.join(format!("recorded/{name}.0005-hillmoor.npy"))).unwrap();

@@ -1,0 +1,96 @@
+//! The one set of defaults. The command line's flags, the inspector's form and
+//! [`super::Request::default`] all read these, so that with every setting at its default the
+//! two front ends give the same reading of the same image. Each says why it is what it is.
+
+use super::{Baseline, MethodKind, Rule, ScoreKind};
+use crate::sign::Sign;
+
+/// Integrated gradients (Sundararajan, Taly, Yan 2017): it has a completeness property the
+/// reading can check (the completeness gap) and, unlike occlusion, resolves single glyphs of a
+/// tag at any model size.
+pub const METHOD: MethodKind = MethodKind::IntegratedGradients;
+
+/// σ of the default blur baseline, in model-grid pixels.
+pub const BLUR_SIGMA: f32 = 8.0;
+
+/// A blur of σ [`BLUR_SIGMA`]. Not black: integrated gradients give a pixel the share
+/// (x − x′)·∫∂F, so a region that equals the baseline gets no attribution at all, whatever the
+/// model makes of it — and a dark frame equals a black baseline (Sturmfels, Lundberg, Lee 2020
+/// discuss this blindness of constant baselines). A blur keeps the picture's coarse content and
+/// takes away the fine detail a tag or a frame adds, so both stay visible to the map.
+pub const BASELINE: Baseline = Baseline::Blur { sigma: BLUR_SIGMA };
+
+/// Why the default baseline is a blur, for tooltips and help.
+pub const BASELINE_WHY: &str = "The default baseline is a blur of σ 8 model pixels. Integrated gradients give a pixel \
+(x − x′) times its mean gradient, so a region equal to the baseline gets nothing: a dark frame under a black \
+baseline is invisible to the map, whatever the model makes of it. A blur keeps the picture's coarse content and \
+takes away the fine detail a tag or a frame adds, so both can show.";
+
+/// Integrated gradients start at this many midpoint steps and refine (tripling, reusing every
+/// gradient) until the completeness gap is under [`IG_GAP`]. Measured on the 36 demo images
+/// under both sample models with the default baseline: see the closing note of issue 10 and
+/// `tests/demo_models.rs`.
+pub const IG_START_STEPS: usize = 64;
+
+/// The completeness gap the refinement stops at. The method's paper advises checking that the
+/// attributions sum to F(x) − F(x′) within 5 % (Sundararajan et al. 2017, section 3); 1 % leaves
+/// room for the map to be read.
+pub const IG_GAP: f32 = 0.01;
+
+/// The rule of a fixed step count (`--steps N`): Gauss–Legendre is exact for polynomials of
+/// degree 2N − 1 and needs fewer steps than the midpoint rule on smooth paths.
+pub const IG_FIXED_RULE: Rule = Rule::GaussLegendre;
+
+/// Samples of SmoothGrad and expected gradients: 32 keeps the sampling noise of the mean small
+/// next to the map (its standard error falls as 1/√n) at a cost of 32 gradients.
+pub const SAMPLES: usize = 32;
+
+/// SmoothGrad's noise as a share of the input's value range. SmoothGrad's paper found 10–20 %
+/// worked well (Smilkov et al. 2017; from memory).
+pub const SMOOTHGRAD_NOISE: f32 = 0.15;
+
+/// Seed of SmoothGrad's noise, expected gradients' draws and the noise baselines: fixed, so a
+/// reading repeats exactly.
+pub const SEED: u64 = 0;
+
+/// σ of the Gaussian-noise baseline, in image units (0..1).
+pub const NOISE_SIGMA: f32 = 0.2;
+
+/// Occlusion window and stride in model-input pixels: a window about the size of a burned-in
+/// glyph run on 128–224 pixel inputs, half-overlapping (Zeiler and Fergus 2014 slid a grey
+/// square; the size is ours).
+pub const WINDOW: usize = 16;
+pub const STRIDE: usize = 8;
+
+/// The logits: the input of a final softmax when the graph ends in one, else the output of a
+/// logits model. A confident softmax saturates and its gradients vanish; the logits do not.
+pub const SCORE: ScoreKind = ScoreKind::Logits;
+
+/// Pictures show the supporting part of the map: what raises the target's score, which is
+/// also what the suspect flag measures.
+pub const SIGN: Sign = Sign::Supporting;
+
+/// Tint opacity of overlays.
+pub const OPACITY: f32 = 0.7;
+
+/// The defaults as the command line writes them (clap's defaults are text); a test holds each
+/// equal to the typed value above.
+pub const METHOD_TEXT: &str = "integrated-gradients";
+pub const BASELINE_TEXT: &str = "blur:8";
+pub const SCORE_TEXT: &str = "logits";
+pub const SIGN_TEXT: &str = "supporting";
+pub const RULE_TEXT: &str = "gauss-legendre";
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_text_forms_are_the_typed_defaults() {
+        assert_eq!(MethodKind::parse(METHOD_TEXT), Some(METHOD));
+        assert_eq!(Baseline::parse(BASELINE_TEXT).unwrap(), BASELINE);
+        assert_eq!(ScoreKind::parse(SCORE_TEXT).unwrap(), SCORE);
+        assert_eq!(Sign::parse(SIGN_TEXT), Some(SIGN));
+        assert_eq!(Rule::parse(RULE_TEXT).unwrap(), IG_FIXED_RULE);
+    }
+}

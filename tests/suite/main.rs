@@ -1,0 +1,19 @@
+//! spurion's integration tests, in one test binary (each file a module) so that the tests link
+//! tract, egui and eframe once instead of once per file.
+
+mod common;
+mod cli_explain;
+mod demo_generator;
+mod demo_models;
+mod engine_ops;
+mod engine_torch;
+mod engine_whole;
+mod gui_inspector;
+mod methods_reference;
+mod occlusion_incremental;
+mod regions_clean;
+mod regions_demo;
+mod regions_e2e;
+mod regions_figures;
+mod regions_finders;
+mod regions_flag;
