@@ -1,5 +1,6 @@
 //! The command line: a thin layer over the library. Every error names the file, what is wrong
-//! and what to do; exit codes: 0 done, 1 bad input or failed computation, 2 usage error.
+//! and what to do; exit codes: 0 done, 1 bad input or failed computation, 2 usage error, 130
+//! cancelled with Ctrl-C.
 
 mod explain;
 mod reading_args;
@@ -20,8 +21,11 @@ use crate::model::{LoadOptions, Model};
     version,
     about = "Shows what an image classifier is looking at, and catches it when the answer is a shortcut.",
     long_about = None,
-    after_help = "With no command, spurion opens the desktop inspector on the bundled demo.\n\n\
-                  spurion is a research and data-quality tool, not a diagnostic device."
+    after_help = format!(
+        "With no command, spurion opens the desktop inspector on the bundled demo.\n\n\
+         Exit codes: 0 done, 1 bad input or failed computation, 2 usage error, 130 cancelled.\n\n{}",
+        crate::CAUTION
+    )
 )]
 pub struct Cli {
     #[command(subcommand)]

@@ -16,13 +16,13 @@ pub struct ReadingArgs {
     #[arg(long, default_value = d::BASELINE_TEXT, help = format!("{} (folder: expected-gradients draws). Default blur:8: a black baseline gives a dark frame no attribution", baseline_forms()))]
     pub baseline: String,
     /// Integrated-gradients steps, a fixed count. Without --steps, integrated gradients start at
-    /// 64 and refine until the completeness gap is below 1% (as --adaptive does).
+    /// 32 and refine until the completeness gap is below 1% (as --adaptive does).
     #[arg(long, value_parser = RangedU64ValueParser::<usize>::new().range(1..))]
     pub steps: Option<usize>,
     /// Integrated-gradients quadrature for a fixed --steps: gauss-legendre | midpoint | trapezoid.
     #[arg(long, default_value = d::RULE_TEXT)]
     pub rule: String,
-    /// Refine integrated gradients (from --steps, default 64) until the completeness gap is
+    /// Refine integrated gradients (from --steps, default 32) until the completeness gap is
     /// below GAP (relative; default 0.01); the default when --steps is not given.
     #[arg(long, num_args = 0..=1, default_missing_value = "0.01", value_name = "GAP")]
     pub adaptive: Option<f32>,

@@ -49,6 +49,7 @@ pub struct Inspector {
 
 impl Inspector {
     pub fn new(ctx: egui::Context, opts: GuiOptions, config: InspectorConfig) -> Inspector {
+        super::look::fonts(&ctx);
         let (recent, recent_note) = match &config.recent_file {
             Some(f) => Recent::load(f),
             None => (Recent::default(), None),
@@ -121,6 +122,7 @@ impl Inspector {
         let t0 = Instant::now();
         // The context is the window's (or a test harness's): textures and repaints go there.
         self.ctx = ui.ctx().clone();
+        super::look::fonts(ui.ctx());
         self.workers.set_repaint(ui.ctx());
         self.take_results();
         let mut intents = Vec::new();

@@ -11,7 +11,7 @@ use crate::feed::{FeedCard, Feeder, Picture};
 use crate::methods::agree::Spread;
 use crate::methods::{self, Input, Request};
 use crate::model::{LoadOptions, Model, Tap};
-use crate::regions::{FinderSettings, FlagSettings, find_regions};
+use crate::regions::{FinderSettings, FlagSettings, find_regions, paint_out_all};
 
 use super::paint;
 use super::state::{Prepared, Session, Shown};
@@ -49,7 +49,11 @@ pub fn prepare(session: &Session, path: &Path) -> Result<Prepared> {
     let regions = find_regions(&picture.luminance(), &FinderSettings::default());
     let region_edges = regions.iter().map(|r| paint::mask_edges(&r.mask)).collect();
     let base_image = paint::picture_image(&picture);
-    Ok(Prepared { picture: Arc::new(picture), scores, regions, region_edges, base_image })
+    let painted = (!regions.is_empty()).then(|| {
+        let (pixels, fill) = paint_out_all(&picture.pixels, &regions);
+        (paint::picture_image(&Picture { path: None, pixels, bit_depth: picture.bit_depth }), fill)
+    });
+    Ok(Prepared { picture: Arc::new(picture), scores, regions, region_edges, base_image, painted })
 }
 
 /// One reading with its region figures and flag.

@@ -33,6 +33,8 @@ pub struct Form {
     pub mean_dir: String,
     /// Image used as the custom baseline ("" = none chosen yet).
     pub custom_path: String,
+    /// Folder expected gradients draw baselines from ("" = the folder of the current image).
+    pub draws_dir: String,
     pub target: TargetSpec,
     pub score: ScoreKind,
 }
@@ -56,6 +58,7 @@ impl Default for Form {
             noise_seed: defaults::SEED,
             mean_dir: String::new(),
             custom_path: String::new(),
+            draws_dir: String::new(),
             target: d.target,
             score: d.score,
         }
@@ -117,7 +120,8 @@ impl Form {
                 }
                 Baseline::Image { path: p }
             }
-            BaselineKind::Value | BaselineKind::Tensor | BaselineKind::Folder => {
+            BaselineKind::Folder => Baseline::Folder { dir: self.folder(&self.draws_dir, image_dir, "folder of draws")? },
+            BaselineKind::Value | BaselineKind::Tensor => {
                 return Err(format!("the inspector does not offer the {} baseline", kind.entry().title));
             }
         })
@@ -148,13 +152,16 @@ impl Form {
     /// The form as a request with its own baseline, or why it cannot be made.
     pub fn request(&self, image_dir: Option<&Path>) -> Result<Request, String> {
         let b = if self.method.entry().uses_baseline { self.baseline_of(self.baseline, image_dir)? } else { Baseline::Black };
+        if matches!(b, Baseline::Folder { .. }) && self.method != MethodKind::ExpectedGradients {
+            return Err("draws from a folder suit expected gradients only; choose another baseline, or the dataset mean".into());
+        }
         Ok(self.request_with(b))
     }
 
-    /// The strip's baselines: every kind the inspector offers, in order, with the reason for
-    /// each that cannot be used yet.
+    /// The strip's baselines: every single-input kind the inspector offers, in order, with the
+    /// reason for each that cannot be used yet (draws from a folder are many baselines, not one).
     pub fn strip_baselines(&self, image_dir: Option<&Path>) -> Vec<(BaselineKind, Result<Baseline, String>)> {
-        BaselineKind::in_inspector().map(|k| (k, self.baseline_of(k, image_dir))).collect()
+        BaselineKind::in_inspector().filter(|k| *k != BaselineKind::Folder).map(|k| (k, self.baseline_of(k, image_dir))).collect()
     }
 }
 
@@ -179,6 +186,11 @@ mod tests {
     fn expected_gradients_keep_the_chosen_baseline() {
         let form = Form { method: MethodKind::ExpectedGradients, baseline: BaselineKind::UniformNoise, ..Form::default() };
         assert_eq!(form.request(None).unwrap().baseline, Baseline::UniformNoise { seed: form.noise_seed });
+        let dir = std::env::temp_dir();
+        let eg = Form { baseline: BaselineKind::Folder, draws_dir: dir.display().to_string(), ..form.clone() };
+        assert_eq!(eg.request(None).unwrap().baseline, Baseline::Folder { dir: dir.clone() });
+        let ig = Form { method: MethodKind::IntegratedGradients, ..eg };
+        assert!(ig.request(None).unwrap_err().contains("expected gradients only"));
         let form = Form { method: MethodKind::Gradient, ..form };
         assert_eq!(form.request(None).unwrap().baseline, Baseline::Black, "a method without a baseline gets a fixed one");
     }

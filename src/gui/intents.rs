@@ -71,7 +71,7 @@ impl Inspector {
                 Pick::Model => d.add_filter("ONNX model", &["onnx"]).pick_file().map(|p| vec![p]),
                 Pick::Images => d.add_filter("images", crate::feed::IMAGE_ENDINGS).pick_files(),
                 Pick::CustomBaseline => d.add_filter("images", crate::feed::IMAGE_ENDINGS).pick_file().map(|p| vec![p]),
-                Pick::Folder | Pick::MeanFolder | Pick::ExportFolder => d.pick_folder().map(|p| vec![p]),
+                Pick::Folder | Pick::MeanFolder | Pick::DrawsFolder | Pick::ExportFolder => d.pick_folder().map(|p| vec![p]),
             };
             Done::Picked { purpose: what, paths, took: started.elapsed() }
         }, |msg| Done::Failed(format!("the file dialog failed: {msg}")));

@@ -21,6 +21,28 @@ pub const MOSS: Color32 = Color32::from_rgb(0x7f, 0xa8, 0x6a);
 /// Region outlines (burned-in marks, border bands): a colour outside the map's ramps.
 pub const REGION: Color32 = Color32::from_rgb(0xf2, 0x5f, 0xd0);
 
+/// Adds the bundled DejaVu Sans behind egui's own font, so that signs the inspector writes
+/// (σ, ρ, ×, →, −, ′) always have a glyph. The inspector calls this for every context it draws
+/// into, headless tests included; a context keeps a note that it has the font, so it is added
+/// once.
+pub fn fonts(ctx: &egui::Context) {
+    use egui::epaint::text::{FontData, FontInsert, FontPriority, InsertFontFamily};
+    let id = egui::Id::unique("spurion: DejaVu Sans added");
+    if ctx.data(|d| d.get_temp::<bool>(id)).unwrap_or(false) {
+        return;
+    }
+    ctx.data_mut(|d| d.insert_temp(id, true));
+    let families = [egui::FontFamily::Proportional, egui::FontFamily::Monospace]
+        .into_iter()
+        .map(|family| InsertFontFamily { family, priority: FontPriority::Lowest })
+        .collect();
+    ctx.add_font(FontInsert {
+        name: "DejaVu Sans".into(),
+        data: FontData::from_static(include_bytes!("../../assets/fonts/DejaVuSans.ttf")),
+        families,
+    });
+}
+
 pub fn apply(ctx: &egui::Context) {
     let mut v = Visuals::dark();
     v.panel_fill = SLATE;

@@ -160,6 +160,7 @@ impl Inspector {
             Pick::Images | Pick::Folder => self.open_paths(&paths),
             Pick::CustomBaseline => self.form.custom_path = paths[0].display().to_string(),
             Pick::MeanFolder => self.form.mean_dir = paths[0].display().to_string(),
+            Pick::DrawsFolder => self.form.draws_dir = paths[0].display().to_string(),
             Pick::ExportFolder => self.export_dir = paths[0].display().to_string(),
         }
     }

@@ -39,6 +39,9 @@ pub struct Prepared {
     pub region_edges: Vec<Vec<[[f32; 2]; 2]>>,
     /// The picture ready to upload as a texture.
     pub base_image: egui::ColorImage,
+    /// The picture with every found region painted out (what the removal figures ran the model
+    /// on), and the fills used; `None` when no region was found.
+    pub painted: Option<(egui::ColorImage, String)>,
 }
 
 /// One entry of the image list.
@@ -152,6 +155,8 @@ pub struct ViewSettings {
     pub sign: Sign,
     pub top_share: f64,
     pub show_regions: bool,
+    /// Show the picture with its found regions painted out instead of as it is.
+    pub painted_out: bool,
     /// Image pixels per screen point; `None` fits the image to the panel.
     pub zoom: Option<f32>,
     /// Image-pixel position shown at the panel centre (when zoomed).
@@ -166,6 +171,7 @@ impl Default for ViewSettings {
             sign: crate::methods::defaults::SIGN,
             top_share: 0.10,
             show_regions: true,
+            painted_out: false,
             zoom: None,
             centre: [0.0, 0.0],
         }

@@ -17,6 +17,8 @@ use super::state::{Key, Overlay, Prepared, Shown};
 #[derive(Default)]
 pub(crate) struct Textures {
     pub base: HashMap<PathBuf, TextureHandle>,
+    /// The pictures with their found regions painted out.
+    pub painted: HashMap<PathBuf, TextureHandle>,
     pub layer: Option<(LayerKey, TextureHandle)>,
     pub contour: Option<(LayerKey, Vec<[[f32; 2]; 2]>)>,
     pub tiles: HashMap<(Key, &'static str, u32), TextureHandle>,
@@ -34,6 +36,22 @@ pub(crate) struct LayerKey {
 }
 
 impl Inspector {
+    /// The slide's picture: as it is, or with its found regions painted out when the view asks
+    /// for that and there are any.
+    pub(crate) fn slide_texture(&mut self, path: &Path, prepared: &Prepared) -> TextureHandle {
+        match (&prepared.painted, self.view.painted_out) {
+            (Some((img, _)), true) => {
+                if let Some(t) = self.tex.painted.get(path) {
+                    return t.clone();
+                }
+                let t = self.ctx.load_texture(format!("painted {}", path.display()), img.clone(), egui::TextureOptions::NEAREST);
+                self.tex.painted.insert(path.to_path_buf(), t.clone());
+                t
+            }
+            _ => self.base_texture(path, prepared),
+        }
+    }
+
     pub(crate) fn base_texture(&mut self, path: &Path, prepared: &Prepared) -> TextureHandle {
         if let Some(t) = self.tex.base.get(path) {
             return t.clone();

@@ -37,6 +37,7 @@ pub enum Pick {
     Folder,
     CustomBaseline,
     MeanFolder,
+    DrawsFolder,
     ExportFolder,
 }
 
@@ -48,6 +49,7 @@ impl Pick {
             Pick::Folder => "Open a folder of images",
             Pick::CustomBaseline => "Choose the custom baseline image",
             Pick::MeanFolder => "Choose the folder for the dataset mean",
+            Pick::DrawsFolder => "Choose the folder expected gradients draw baselines from",
             Pick::ExportFolder => "Choose where exports go",
         }
     }
@@ -157,5 +159,29 @@ impl Workers {
 
     pub fn is_running(&self, id: JobId) -> bool {
         self.running.iter().any(|r| r.id == id)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_job_that_panics_reports_once_what_on_panic_makes_of_it() {
+        let mut w = Workers::new(egui::Context::default());
+        let (id, _) = w.spawn("doomed", false, |_, _| panic!("the engine fell over"), |msg| Done::Failed(msg));
+        let started = std::time::Instant::now();
+        let mut got = vec![];
+        while w.is_running(id) {
+            got.extend(w.finished());
+            assert!(started.elapsed() < Duration::from_secs(10), "the job never ended");
+            std::thread::sleep(Duration::from_millis(5));
+        }
+        got.extend(w.finished());
+        assert_eq!(got.len(), 1, "one report, not one per frame");
+        match &got[0].1 {
+            Done::Failed(m) => assert!(m.contains("the engine fell over") && m.contains("internal error"), "{m}"),
+            _ => panic!("the panic was not reported as a failure"),
+        }
     }
 }

@@ -253,7 +253,7 @@ pub const BASELINES: [BaselineEntry; 10] = [
         title: "draws from a folder",
         short: "folder",
         distribution: true,
-        in_inspector: false,
+        in_inspector: true,
         on_tensor: false,
     },
 ];

@@ -27,15 +27,36 @@ ours() {
 # "slurmstepd: [JOB.STEP]", so tell them apart by their slurmd parent's spool dir: each stepd
 # keeps a unix socket named SPOOL/HOST_JOB.STEP open, visible in /proc/net/unix.
 stepds() {
-    local p
+    local p fd link inodes
+    # " ino ino ... " of the unix sockets bound under our spool dir (column 7 of /proc/net/unix)
+    inodes=$({ grep -F "$STATE/spool/" /proc/net/unix || true; } | awk '{print $7}' | tr '\n' ' ')
+    [ -n "${inodes// /}" ] || return 0
+    inodes=" $inodes"
     for p in /proc/[0-9]*; do
         [ "$(cat "$p/comm" 2>/dev/null)" = slurmstepd ] || continue
-        # a stepd's open sockets are listed by inode in /proc/PID/fd; match them to our spool.
-        if ls -l "$p/fd" 2>/dev/null | grep -o 'socket:\[[0-9]*\]' | tr -dc '0-9\n' \
-            | grep -qxFf - <(grep -F "$STATE/spool/" /proc/net/unix | awk '{print $7}'); then
-            echo "${p#/proc/}"
-        fi
+        for fd in "$p"/fd/*; do
+            link=$(readlink "$fd" 2>/dev/null) || continue
+            case "$link" in socket:\[*\]) ;; *) continue ;; esac
+            link=${link#socket:[}
+            case "$inodes" in *" ${link%]} "*) echo "${p#/proc/}"; break ;; esac
+        done
     done
+}
+
+# descendants PID...: the given pids and all their descendants (a job's processes hang below its
+# slurmstepd with proctrack/linuxproc; they must go too if the controller could not cancel them).
+descendants() {
+    local all="" next="$*" p kids
+    while [ -n "${next// /}" ]; do
+        all="$all $next"
+        kids=""
+        for p in $next; do
+            kids="$kids $(awk -v pp="$p" '{ sub(/^.*\) /, ""); split($0, f, " "); if (f[2] == pp) print FILENAME }' \
+                /proc/[0-9]*/stat 2>/dev/null | sed 's#^/proc/##; s#/stat$##' | tr '\n' ' ')"
+        done
+        next=$kids
+    done
+    echo "$all"
 }
 
 # running PID: the process exists and is not a zombie. A killed daemon's parent is init
@@ -75,6 +96,8 @@ if [ -n "$ctld" ] && [ -s "$CONF" ]; then
     fi
 fi
 steps=$(stepds | tr '\n' ' ')
+# shellcheck disable=SC2086 # pid lists are space-separated words
+[ -z "${steps// /}" ] || steps=$(descendants $steps)
 
 # 2. SIGTERM is each daemon's documented clean shutdown; escalate to SIGKILL after 10 s.
 for pid in $slurmd $ctld $steps; do kill -TERM "$pid" 2>/dev/null || true; done

@@ -22,8 +22,8 @@ log() { echo "slurm-up: $*" >&2; }
 
 [ $# -eq 1 ] || die "usage: $0 STATE_DIR"
 [ "$(id -u)" -eq 0 ] || die "must run as root (SlurmUser=root, SlurmdUser=root)"
-for tool in munged mungekey slurmctld slurmd sinfo scontrol; do
-    command -v "$tool" >/dev/null || die "$tool not found: apt-get install slurm-wlm munge"
+for tool in munged mungekey slurmctld slurmd sinfo scontrol ss; do
+    command -v "$tool" >/dev/null || die "$tool not found: apt-get install slurm-wlm munge iproute2"
 done
 
 mkdir -p "$1"
@@ -112,7 +112,9 @@ else
         if port_free "$port" && port_free $((port + 1)); then break; fi
         port=$((port + 2))
     done
-    port_free "$port" && port_free $((port + 1)) || die "no free port pair found near ${SLURM_UP_PORT:-26817}"
+    if ! { port_free "$port" && port_free $((port + 1)); }; then
+        die "no free port pair found near ${SLURM_UP_PORT:-26817}"
+    fi
     cpus=$(nproc)
     # RealMemory must not exceed what slurmd detects, or the node is drained as "Low RealMemory".
     mem_mb=$(( $(awk '/^MemTotal:/ {print $2}' /proc/meminfo) / 1024 ))

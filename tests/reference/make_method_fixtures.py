@@ -92,6 +92,53 @@ def nan_model():
     save(g, "nan.onnx")
 
 
+def corner_mean():
+    # Logits [mean of the top-left 4x4 patch, 0]: the answer is known by construction, so painting
+    # a region out must lower logit 0 by exactly what the patch loses, and a region elsewhere by 0.
+    g = helper.make_graph(
+        [
+            helper.make_node("Slice", ["x", "starts", "ends", "axes"], ["patch"]),
+            helper.make_node("ReduceMean", ["patch"], ["m"], axes=[1, 2, 3], keepdims=0),
+            helper.make_node("Unsqueeze", ["m", "uaxes"], ["m1"]),
+            helper.make_node("Mul", ["m1", "zero"], ["z"]),
+            helper.make_node("Concat", ["m1", "z"], ["y"], axis=1),
+        ],
+        "corner_mean",
+        [helper.make_tensor_value_info("x", TensorProto.FLOAT, [1, 1, 16, 16])],
+        [helper.make_tensor_value_info("y", TensorProto.FLOAT, [1, 2])],
+        [
+            numpy_helper.from_array(np.array([0, 0], dtype=np.int64), "starts"),
+            numpy_helper.from_array(np.array([4, 4], dtype=np.int64), "ends"),
+            numpy_helper.from_array(np.array([2, 3], dtype=np.int64), "axes"),
+            numpy_helper.from_array(np.array([1], dtype=np.int64), "uaxes"),
+            init("zero", [0.0]),
+        ],
+    )
+    save(g, "corner_mean.onnx")
+
+
+def dynamic_hw():
+    # A classifier whose input height and width are left open (N, 1, H, W), as many exports are.
+    r = np.random.default_rng(11)
+    g = helper.make_graph(
+        [
+            helper.make_node("Conv", ["x", "w1", "b1"], ["c1"], pads=[1, 1, 1, 1], kernel_shape=[3, 3]),
+            helper.make_node("Relu", ["c1"], ["r1"]),
+            helper.make_node("GlobalAveragePool", ["r1"], ["g"]),
+            helper.make_node("Flatten", ["g"], ["f"], axis=1),
+            helper.make_node("Gemm", ["f", "w2", "b2"], ["logits"], transB=1),
+        ],
+        "dynamic_hw",
+        [helper.make_tensor_value_info("x", TensorProto.FLOAT, ["N", 1, "H", "W"])],
+        [helper.make_tensor_value_info("logits", TensorProto.FLOAT, ["N", 2])],
+        [
+            init("w1", r.normal(scale=0.5, size=(4, 1, 3, 3))), init("b1", r.normal(scale=0.1, size=(4,))),
+            init("w2", r.normal(scale=1.0, size=(2, 4))), init("b2", r.normal(scale=0.1, size=(2,))),
+        ],
+    )
+    save(g, "dynamic_hw.onnx")
+
+
 def main():
     os.makedirs(OUT, exist_ok=True)
     nan_model()
@@ -100,6 +147,8 @@ def main():
     small_cnn(True)
     x = np.random.default_rng(3).random((1, 1, 16, 16), dtype=np.float32)
     np.save(os.path.join(OUT, "x16.npy"), x)
+    corner_mean()
+    dynamic_hw()
     print("wrote", sorted(os.listdir(OUT)))
 
 

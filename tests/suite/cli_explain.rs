@@ -110,3 +110,53 @@ fn a_card_that_disagrees_with_its_model_is_refused_naming_both_shapes() {
     assert_eq!(o.status.code(), Some(1));
     assert!(stderr(&o).contains("[1, 3, 16, 16]"), "{}", stderr(&o));
 }
+
+#[test]
+fn a_model_with_open_height_and_width_takes_its_size_from_the_tensor_or_image() {
+    // dynamic_hw.onnx takes (N, 1, H, W) (tests/reference/make_method_fixtures.py).
+    let dir = tempfile::tempdir().unwrap();
+    let m = fixture("methods/dynamic_hw.onnx");
+    let m = m.to_str().unwrap();
+    let x = dir.path().join("x.npy");
+    spurion::feed::write_tensor(&x, &ndarray::ArrayD::from_shape_fn(ndarray::IxDyn(&[1, 1, 20, 30]), |i| (i[2] * 30 + i[3]) as f32 / 600.0)).unwrap();
+    let o = spurion(&["predict", "--model", m, "--tensor", x.to_str().unwrap(), "--json"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!(v["outputs"].as_array().unwrap().len(), 2);
+    let out = dir.path().join("r");
+    let o = spurion(&["explain", "--model", m, "--tensor", x.to_str().unwrap(), "--baseline", "black", "--quiet", "--out", out.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let map = spurion::feed::read_tensor(&out.join("map.npy")).unwrap();
+    assert_eq!(map.shape(), &[1, 1, 20, 30], "the map has the tensor's shape");
+    // An image (256×256 grey) fixes H and W; the graph fixes the one channel.
+    let img = crate::common::root().join("assets/demo/0005-hillmoor.png");
+    let o = spurion(&["predict", "--model", m, "--image", img.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    // Nothing to fix them: the error says what to pass.
+    let o = spurion(&["info", "--model", m]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(stderr(&o).contains("--input-shape") && stderr(&o).contains("feed card"), "{}", stderr(&o));
+}
+
+#[test]
+fn values_that_cannot_be_right_are_refused_up_front() {
+    let dir = tempfile::tempdir().unwrap();
+    let m = fixture("methods/small_cnn.onnx");
+    let m = m.to_str().unwrap();
+    // A NaN in a tensor: the file and the first bad position are named (the issue this closes
+    // saw such a tensor run 1,728 refinement steps and write a NaN map).
+    let mut t = ndarray::ArrayD::from_elem(ndarray::IxDyn(&[1, 1, 16, 16]), 0.5f32);
+    t[[0, 0, 3, 7]] = f32::NAN;
+    let bad = dir.path().join("bad.npy");
+    spurion::feed::write_tensor(&bad, &t).unwrap();
+    let o = spurion(&["explain", "--model", m, "--tensor", bad.to_str().unwrap(), "--quiet"]);
+    assert_eq!(o.status.code(), Some(1), "{}", stderr(&o));
+    assert!(stderr(&o).contains("bad.npy") && stderr(&o).contains("[0, 0, 3, 7]"), "{}", stderr(&o));
+    // Zero steps or samples are usage errors (exit 2), not silently one.
+    let x = fixture("methods/x16.npy");
+    for args in [["--steps", "0"], ["--samples", "0"], ["--window", "0"]] {
+        let o = spurion(&["explain", "--model", m, "--tensor", x.to_str().unwrap(), args[0], args[1], "--quiet"]);
+        assert_eq!(o.status.code(), Some(2), "{args:?}: {}", stderr(&o));
+        assert!(stderr(&o).contains(args[0]), "{}", stderr(&o));
+    }
+}

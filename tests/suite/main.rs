@@ -12,6 +12,7 @@ mod gui_inspector;
 mod methods_reference;
 mod occlusion_incremental;
 mod regions_clean;
+mod removal;
 mod regions_demo;
 mod regions_e2e;
 mod regions_figures;

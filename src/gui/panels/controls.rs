@@ -2,7 +2,7 @@
 
 use egui::RichText;
 
-use super::fmt_opt;
+use super::{fmt_opt, removal_text};
 use crate::gui::app::Inspector;
 use crate::gui::intents::{ExportWhat, Intent};
 use crate::gui::look;
@@ -101,6 +101,7 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 labelled_drag(ui, "Gaussian noise σ", &mut f.noise_sigma, 0.001..=1.0, 0.002);
                 labelled_drag(ui, "noise seed", &mut f.noise_seed, 0..=u64::MAX, 1.0);
                 path_row(ui, "mean over", &mut f.mean_dir, "folder of the image", Pick::MeanFolder, out);
+                path_row(ui, "draws from", &mut f.draws_dir, "folder of the image", Pick::DrawsFolder, out);
                 path_row(ui, "custom image", &mut f.custom_path, "path to an image", Pick::CustomBaseline, out);
             });
             // Target classes with this image's scores.
@@ -155,6 +156,13 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 ui.add(egui::Slider::new(&mut v.opacity, 0.0..=1.0)).labelled_by(l.id);
             });
             ui.checkbox(&mut v.show_regions, "region outlines");
+            let painted = app.current_prepared().and_then(|p| p.painted.as_ref().map(|(_, f)| f.clone()));
+            ui.add_enabled_ui(painted.is_some(), |ui| {
+                ui.checkbox(&mut app.view.painted_out, "found regions painted out").on_hover_text(format!(
+                    "Shows the image the removal figures ran the model on: every found region painted out ({}).",
+                    painted.as_deref().unwrap_or("no region found")
+                ));
+            });
 
             ui.separator();
             ui.heading("Export");
@@ -208,10 +216,12 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                     ui.label(format!("{:.0} ms", r.elapsed_ms));
                     ui.end_row();
                 });
+                let t = shown.reading.target.index;
                 for rr in &shown.assessment.regions {
+                    let removal = rr.removal.as_ref().map(|x| format!(" · {}", removal_text(x, t))).unwrap_or_default();
                     ui.label(
                         RichText::new(format!(
-                            "{}: mark share {} · lift {}{}",
+                            "{}: mark share {} · lift {}{removal}{}",
                             rr.label,
                             fmt_opt(rr.figures.mark_share, 2),
                             fmt_opt(rr.figures.lift, 1),
@@ -220,6 +230,21 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                         .small(),
                     )
                     .on_hover_text(&rr.reason);
+                }
+                if let Some(x) = &shown.assessment.removal_all {
+                    ui.label(RichText::new(format!("all regions ({}): {}", x.fill, removal_text(x, t))).small());
+                }
+                if !shown.assessment.suspect_evidence.is_empty() {
+                    let names: Vec<&str> = shown
+                        .assessment
+                        .suspect_evidence
+                        .iter()
+                        .map(|e| match e {
+                            crate::regions::Evidence::Attribution => "attribution",
+                            crate::regions::Evidence::Removal => "removal",
+                        })
+                        .collect();
+                    ui.label(RichText::new(format!("evidence: {}", names.join(" and "))).small().strong());
                 }
             }
         });

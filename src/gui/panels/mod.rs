@@ -17,6 +17,13 @@ fn fmt_value(v: f32) -> String {
     crate::render::format_value(v, true)
 }
 
+/// What painting a region out did, as the slide and the figures list say it: the change of the
+/// target's probability, and the top class when it changed.
+fn removal_text(r: &crate::regions::Removal, top_before: usize) -> String {
+    let flip = if r.top != top_before { format!(", top class → {}", r.top) } else { String::new() };
+    format!("painted out: probability {:+.2}{flip}", -r.probability_drop)
+}
+
 fn fmt_opt(v: Option<f64>, digits: usize) -> String {
     v.map_or("—".to_string(), |x| format!("{x:.digits$}"))
 }

@@ -2,7 +2,7 @@
 
 use egui::{Color32, FontId, Pos2, Rect, RichText, Sense, Stroke, pos2, vec2};
 
-use super::{fmt_opt, fmt_value};
+use super::{fmt_opt, fmt_value, removal_text};
 use crate::gui::app::Inspector;
 use crate::gui::textures::LayerKey;
 use crate::gui::look;
@@ -145,7 +145,7 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
         let img_rect = Rect::from_min_max(place.to_screen([0.0, 0.0]), place.to_screen([w, h]));
         let painter = ui.painter_at(rect);
         let uv = Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0));
-        let base = app.base_texture(&path, &prepared);
+        let base = app.slide_texture(&path, &prepared);
         painter.image(base.id(), img_rect, uv, Color32::WHITE);
 
         let mut scale = 0.0;
@@ -177,8 +177,9 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
             let stroke = Stroke::new(1.4, look::REGION);
             for (i, (r, edges)) in prepared.regions.iter().zip(&prepared.region_edges).enumerate() {
                 painter.extend(edges.iter().map(|[a, b]| egui::Shape::line_segment([place.to_screen(*a), place.to_screen(*b)], stroke)));
-                let figures = shown.as_ref().and_then(|s| s.assessment.regions.get(i)).map(|rr| {
-                    format!(" · share {} · lift {}", fmt_opt(rr.figures.mark_share, 2), fmt_opt(rr.figures.lift, 1))
+                let figures = shown.as_ref().and_then(|s| s.assessment.regions.get(i).map(|rr| (s, rr))).map(|(s, rr)| {
+                    let removal = rr.removal.as_ref().map(|x| format!(" · {}", removal_text(x, s.reading.target.index))).unwrap_or_default();
+                    format!(" · share {} · lift {}{removal}", fmt_opt(rr.figures.mark_share, 2), fmt_opt(rr.figures.lift, 1))
                 });
                 let text = format!("{}{}", r.label(), figures.unwrap_or_default());
                 // Label inside the image near the region's corner, clamped to the panel.
