@@ -34,6 +34,10 @@ pub struct ExplainArgs {
     /// No progress bar.
     #[arg(long, short = 'q')]
     pub quiet: bool,
+    /// Write the DICOM file's patient-identifying attributes into reading.json (they are left
+    /// out unless this is given; the file then says it holds them).
+    #[arg(long)]
+    pub with_patient_data: bool,
 }
 
 pub(crate) fn progress_bar(what: &str) -> ProgressBar {
@@ -92,7 +96,7 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     let map2 = reading.map2d();
     let assessment = assess_input(&model, card.as_ref(), &input, &reading)?;
     let suspect = assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
-    write_json(&out.join("reading.json"), &ReadingFile::new(&reading, assessment).to_json()?)?;
+    write_json(&out.join("reading.json"), &ReadingFile::new(&reading, assessment).with_input(&input, a.with_patient_data).to_json()?)?;
     crate::feed::write_tensor(&out.join("map.npy"), &reading.map)?;
     crate::render::write_map_png(&out.join("map.png"), &map2, sign)?;
     let backdrop = backdrop(&input, &map2);

@@ -3,6 +3,7 @@
 //! cancelled with Ctrl-C.
 
 mod explain;
+mod feed;
 mod reading_args;
 mod regions;
 
@@ -42,6 +43,9 @@ pub enum Command {
     Explain(explain::ExplainArgs),
     /// Border bands and burned-in marks of an image, found without any model.
     Regions(RegionsArgs),
+    /// An image exactly as it is decoded and windowed for the model (before resizing and
+    /// normalisation), as a float32 .npy.
+    Feed(feed::FeedArgs),
     /// Writes a demo set of phantom images with ground-truth masks and a manifest.
     Demo(DemoArgs),
     /// Opens the desktop inspector.
@@ -138,12 +142,15 @@ pub struct InfoArgs {
 
 #[derive(Args, Debug)]
 pub struct InputArgs {
-    /// An image (PNG 8/16-bit, JPEG, TIFF, BMP), fed through the feed card.
+    /// An image (PNG 8/16-bit, JPEG, TIFF, BMP, DICOM), fed through the feed card.
     #[arg(long, short = 'i', conflicts_with = "tensor", required_unless_present = "tensor")]
     pub image: Option<PathBuf>,
     /// A NumPy .npy tensor fed exactly as the model input (no feed card).
     #[arg(long)]
     pub tensor: Option<PathBuf>,
+    /// The frame of a multi-frame DICOM file, from 0.
+    #[arg(long, default_value_t = 0)]
+    pub frame: usize,
 }
 
 #[derive(Args, Debug)]
@@ -194,6 +201,10 @@ pub struct DemoArgs {
     /// Skip the ground-truth masks (for large training sets).
     #[arg(long)]
     pub no_masks: bool,
+    /// Also write DICOM copies of the first N images into OUT/dicom (invented patient data,
+    /// a demo UID root; Burned In Annotation YES where Hillmoor's tag is burned in).
+    #[arg(long, default_value_t = 0, value_name = "N")]
+    pub dicom: usize,
 }
 
 #[derive(Args, Debug)]
@@ -215,6 +226,7 @@ pub fn run(command: Command) -> Result<()> {
         Command::Explain(a) => explain::run(&a),
         Command::Regions(a) => regions::run(&a.image, a.out.as_deref(), &Default::default()),
         Command::Demo(a) => demo(&a),
+        Command::Feed(a) => feed::run(&a),
     }
 }
 
@@ -282,7 +294,8 @@ pub(crate) fn load_input(
     }
     let path = input.image.as_ref().context("give --image or --tensor")?;
     let card = margs.card(model)?;
-    let pic = crate::feed::Picture::open(path)?;
+    let opts = crate::feed::OpenOptions { frame: input.frame, window: card.input.window.clone() };
+    let pic = crate::feed::Picture::open_with(path, &opts)?;
     let inp = crate::methods::Input::picture(pic, &card).with_context(|| format!("image {}", path.display()))?;
     Ok((inp, Some(card)))
 }
@@ -321,6 +334,7 @@ fn demo(a: &DemoArgs) -> Result<()> {
         marks: a.marks.parse()?,
         finding_contrast: a.contrast,
         masks: !a.no_masks,
+        dicom: a.dicom,
     };
     let bar = explain::progress_bar("writing demo set");
     let ctl = explain::control_for(&bar);

@@ -12,6 +12,7 @@
 //! masks/0007-hillmoor.tag.png       255 where the tag was drawn, else 0 (also .frame, .finding)
 //! ```
 
+pub mod dicom;
 mod font;
 mod phantom;
 
@@ -99,6 +100,10 @@ pub struct SetSpec {
     pub finding_contrast: f32,
     /// Write the ground-truth masks (large training sets may skip them).
     pub masks: bool,
+    /// Also write DICOM copies of the first this many images, into `dicom/` (see
+    /// [`dicom::write_demo_copy`]).
+    #[serde(default)]
+    pub dicom: usize,
 }
 
 impl Default for SetSpec {
@@ -111,6 +116,7 @@ impl Default for SetSpec {
             marks: Marks::BySite,
             finding_contrast: DEFAULT_CONTRAST,
             masks: true,
+            dicom: 0,
         }
     }
 }
@@ -262,6 +268,10 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
     if spec.masks {
         std::fs::create_dir_all(&masks).with_context(|| format!("cannot create folder {}", masks.display()))?;
     }
+    let dicom_dir = out.join("dicom");
+    if spec.dicom > 0 {
+        std::fs::create_dir_all(&dicom_dir).with_context(|| format!("cannot create folder {}", dicom_dir.display()))?;
+    }
     ctl.begin(spec.count as u64);
     let rows = (0..spec.count)
         .into_par_iter()
@@ -274,6 +284,9 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
                 for (what, m) in [("tag", &p.tag_mask), ("frame", &p.frame_mask), ("finding", &p.finding_mask)] {
                     write_png(&mask_image(m), &masks.join(format!("{stem}.{what}.png")))?;
                 }
+            }
+            if i < spec.dicom {
+                dicom::write_demo_copy(&dicom_dir.join(format!("{stem}.dcm")), &p, i as u32)?;
             }
             ctl.advance(1);
             Ok(ManifestRow { file: format!("{stem}.png"), ..p.row })

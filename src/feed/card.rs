@@ -14,6 +14,7 @@
 //! scale = "unit"             # unit: pixels 0..1 | byte: pixels 0..255
 //! mean = [0.5]               # per channel, subtracted after scaling
 //! std = [0.25]               # per channel, divided after the mean
+//! window = "file"            # DICOM / 16-bit: file | { file = N } | { center = C, width = W } | min-max | full-range
 //!
 //! [output]
 //! kind = "logits"            # logits | probabilities
@@ -25,6 +26,7 @@ use std::path::{Path, PathBuf};
 use anyhow::{Context, Result, bail};
 use serde::{Deserialize, Serialize};
 
+use super::window::Windowing;
 use crate::model::Model;
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -86,6 +88,11 @@ pub struct InputCard {
     pub mean: Vec<f32>,
     #[serde(default)]
     pub std: Vec<f32>,
+    /// How DICOM and 16-bit images become 0..1 (see `feed::window`); absent: the file's first
+    /// window for DICOM (its lowest..highest value if it has none), all values for 16-bit PNG
+    /// and TIFF. 8-bit images are always v / 255.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub window: Option<Windowing>,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -208,6 +215,7 @@ impl FeedCard {
                 scale: Scale::Unit,
                 mean: vec![0.0; c],
                 std: vec![1.0; c],
+                window: None,
             },
             output: OutputCard { kind, labels: (0..model.output_len()).map(|i| format!("class {i}")).collect() },
         })

@@ -1,11 +1,13 @@
 //! Feeding a model: the feed card, pictures, tensors, and the way back from tensor to picture.
 
 mod card;
+pub mod dicom;
 mod picture;
 mod prepare;
+pub mod window;
 
 pub use card::{FeedCard, GreyRule, InputCard, Layout, OutputCard, OutputKind, Resize, Scale};
-pub use picture::{IMAGE_ENDINGS, LUMA, Picture, list_images, luminance};
+pub use picture::{IMAGE_ENDINGS, LUMA, OpenOptions, Picture, default_dicom_window, is_image_file, list_images, luminance};
 pub use prepare::{ChannelRule, Feeder, axis_weights, grid_to_tensor, tensor_to_grid};
 
 use std::path::Path;

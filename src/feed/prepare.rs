@@ -221,6 +221,7 @@ mod tests {
                 scale: Scale::Byte,
                 mean: vec![10.0],
                 std: vec![2.0],
+                window: None,
             },
             output: OutputCard::default(),
         }

@@ -38,7 +38,8 @@ fn short(p: &Path) -> String {
 
 /// Opens an image, scores it and finds its regions.
 pub fn prepare(session: &Session, path: &Path) -> Result<Prepared> {
-    let picture = Picture::open(path)?;
+    let opts = crate::feed::OpenOptions { frame: 0, window: session.card.input.window.clone() };
+    let picture = Picture::open_with(path, &opts)?;
     let feeder = Feeder::for_picture(&session.card, &picture)?;
     let x = feeder.tensor(&picture.pixels)?;
     let scores = session
@@ -46,14 +47,23 @@ pub fn prepare(session: &Session, path: &Path) -> Result<Prepared> {
         .forward(&x, Tap::Output)
         .with_context(|| format!("scoring {}", path.display()))?
         .to_vec();
-    let regions = find_regions(&picture.luminance(), &FinderSettings::default());
+    let finder = FinderSettings::default().for_picture(picture.burned_in_annotation());
+    let regions = find_regions(&picture.luminance(), &finder);
     let region_edges = regions.iter().map(|r| paint::mask_edges(&r.mask)).collect();
     let base_image = paint::picture_image(&picture);
     let painted = (!regions.is_empty()).then(|| {
         let (pixels, fill) = paint_out_all(&picture.pixels, &regions);
-        (paint::picture_image(&Picture { path: None, pixels, bit_depth: picture.bit_depth }), fill)
+        (paint::picture_image(&picture.with_pixels(pixels)), fill)
     });
     Ok(Prepared { picture: Arc::new(picture), scores, regions, region_edges, base_image, painted })
+}
+
+/// A DICOM picture's values through a display window, as a texture image (what is shown, not
+/// what the model reads).
+pub fn display_image(picture: &Picture, window: &crate::feed::window::Windowing) -> Result<egui::ColorImage> {
+    let d = picture.dicom.as_ref().context("only DICOM pictures take a display window")?;
+    let w = crate::feed::window::resolve(d, window)?;
+    Ok(paint::picture_image(&picture.with_pixels(d.values.mapv(|v| w.map(f64::from(v)) as f32))))
 }
 
 /// One reading with its region figures and flag.

@@ -22,7 +22,7 @@ use super::state::{Overlay, Prepared, Shown};
 pub enum ExportJob {
     View { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown>, sign: Sign, overlay: Overlay, opacity: f32, share: f64, regions: bool },
     Strip { path: PathBuf, prepared: Arc<Prepared>, tiles: Vec<(String, Arc<Shown>)>, sign: Sign, per_map: bool },
-    Json { path: PathBuf, shown: Arc<Shown> },
+    Json { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown> },
 }
 
 fn slug(s: &str) -> String {
@@ -51,7 +51,7 @@ pub fn plan(app: &Inspector, what: ExportWhat) -> Result<ExportJob, String> {
             let (key, shown) = app.current_shown().ok_or("the reading is not ready yet")?;
             let tag = slug(&key.request.describe());
             if what == ExportWhat::Json {
-                return Ok(ExportJob::Json { path: dir.join(format!("{stem}-{tag}.reading.json")), shown });
+                return Ok(ExportJob::Json { path: dir.join(format!("{stem}-{tag}.reading.json")), prepared, shown });
             }
             Ok(ExportJob::View {
                 path: dir.join(format!("{stem}-{tag}-{}-{}.png", app.view.overlay.name().replace(' ', "-"), app.view.sign.name())),
@@ -173,8 +173,8 @@ pub fn strip_image(prepared: &Prepared, tiles: &[(String, Arc<Shown>)], sign: Si
 
 /// The reading as JSON: the same file `spurion explain` writes ([`crate::report::ReadingFile`]),
 /// with the regions and flag the inspector already found.
-pub fn reading_json(shown: &Shown) -> Result<serde_json::Value> {
-    ReadingFile::new(&shown.reading, Some(shown.assessment.clone())).to_json()
+pub fn reading_json(prepared: &Prepared, shown: &Shown) -> Result<serde_json::Value> {
+    ReadingFile::new(&shown.reading, Some(shown.assessment.clone())).with_picture(&prepared.picture, false).to_json()
 }
 
 impl ExportJob {
@@ -193,8 +193,8 @@ impl ExportJob {
             ExportJob::Strip { path, prepared, tiles, sign, per_map } => {
                 render::save(&path, &strip_image(&prepared, &tiles, sign, per_map))?;
             }
-            ExportJob::Json { path, shown } => {
-                let text = serde_json::to_string_pretty(&reading_json(&shown)?)? + "\n";
+            ExportJob::Json { path, prepared, shown } => {
+                let text = serde_json::to_string_pretty(&reading_json(&prepared, &shown)?)? + "\n";
                 std::fs::write(&path, text).with_context(|| format!("cannot write {}", path.display()))?;
             }
         }

@@ -169,19 +169,15 @@ impl Inspector {
 /// Whether a file named as an image can be opened as one, judged by its ending (the worker that
 /// opens it reports damaged files); `Err` is the note to show: which file, what is wrong, what to do.
 pub fn openable_image(p: &Path) -> Result<(), String> {
-    let ending = p.extension().map(|e| e.to_string_lossy().to_ascii_lowercase());
-    if ending.as_deref().is_some_and(|e| crate::feed::IMAGE_ENDINGS.contains(&e)) {
+    if crate::feed::is_image_file(p) {
         return Ok(());
     }
-    let what = match ending.as_deref() {
-        None => "it has no file ending".to_string(),
-        Some("dcm" | "dicom") => "DICOM files are not read directly".to_string(),
-        Some(e) => format!("files ending in .{e} are neither images nor models"),
+    let what = match p.extension() {
+        None => "it has no file ending and does not hold DICOM".to_string(),
+        Some(e) => format!("files ending in .{} are neither images nor models", e.to_string_lossy()),
     };
-    let todo = if matches!(ending.as_deref(), Some("dcm" | "dicom")) {
-        "export the pixel data to PNG first (with no patient fields in the picture) and open that"
-    } else {
-        "open an .onnx model, a PNG, JPEG, TIFF or BMP image, or a folder of them"
-    };
-    Err(format!("{} was not opened: {what}; {todo}", p.display()))
+    Err(format!(
+        "{} was not opened: {what}; open an .onnx model, a PNG, JPEG, TIFF, BMP or DICOM image, or a folder of them",
+        p.display()
+    ))
 }

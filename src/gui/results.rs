@@ -83,6 +83,17 @@ impl Inspector {
                     }
                     Err(e) => self.note(NoteKind::Error, e),
                 },
+                Done::Display { path, key, result } => match result {
+                    Ok(img) => {
+                        let t = self.ctx.load_texture(format!("display {}", path.display()), img, egui::TextureOptions::NEAREST);
+                        self.tex.display.insert((path, key), Some(t));
+                    }
+                    Err(e) => {
+                        self.note(NoteKind::Error, format!("display window: {e}"));
+                        self.view.display_window = None;
+                        self.tex.display.remove(&(path, key));
+                    }
+                },
                 Done::Finished => {}
                 Done::Failed(e) => self.note(NoteKind::Error, e),
             }

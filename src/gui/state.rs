@@ -157,6 +157,9 @@ pub struct ViewSettings {
     pub show_regions: bool,
     /// Show the picture with its found regions painted out instead of as it is.
     pub painted_out: bool,
+    /// A window for showing DICOM pictures (`None`: as the model is fed). It changes what is
+    /// shown, never what the model reads.
+    pub display_window: Option<crate::feed::window::Windowing>,
     /// Image pixels per screen point; `None` fits the image to the panel.
     pub zoom: Option<f32>,
     /// Image-pixel position shown at the panel centre (when zoomed).
@@ -172,6 +175,7 @@ impl Default for ViewSettings {
             top_share: 0.10,
             show_regions: true,
             painted_out: false,
+            display_window: None,
             zoom: None,
             centre: [0.0, 0.0],
         }

@@ -12,6 +12,7 @@ use crate::sign::Sign;
 use super::app::Inspector;
 use super::paint;
 use super::state::{Key, Overlay, Prepared, Shown};
+use super::work::Done;
 
 /// Texture caches, keyed by what they show.
 #[derive(Default)]
@@ -19,6 +20,8 @@ pub(crate) struct Textures {
     pub base: HashMap<PathBuf, TextureHandle>,
     /// The pictures with their found regions painted out.
     pub painted: HashMap<PathBuf, TextureHandle>,
+    /// DICOM pictures through display windows, by path and window (`None` while being drawn).
+    pub display: HashMap<(PathBuf, String), Option<TextureHandle>>,
     pub layer: Option<(LayerKey, TextureHandle)>,
     pub contour: Option<(LayerKey, Vec<[[f32; 2]; 2]>)>,
     pub tiles: HashMap<(Key, &'static str, u32), TextureHandle>,
@@ -36,6 +39,11 @@ pub(crate) struct LayerKey {
 }
 
 impl Inspector {
+    /// How many pictures have been drawn through a display window (tests wait on this).
+    pub fn display_windows_drawn(&self) -> usize {
+        self.tex.display.values().filter(|t| t.is_some()).count()
+    }
+
     /// The slide's picture: as it is, or with its found regions painted out when the view asks
     /// for that and there are any.
     pub(crate) fn slide_texture(&mut self, path: &Path, prepared: &Prepared) -> TextureHandle {
@@ -48,8 +56,33 @@ impl Inspector {
                 self.tex.painted.insert(path.to_path_buf(), t.clone());
                 t
             }
-            _ => self.base_texture(path, prepared),
+            _ => match (&self.view.display_window, &prepared.picture.dicom) {
+                (Some(w), Some(_)) => self.display_texture(path, prepared, w.clone()),
+                _ => self.base_texture(path, prepared),
+            },
         }
+    }
+
+    /// The picture through a display window: drawn on a worker the first time (the picture as
+    /// fed is shown until it is in).
+    fn display_texture(&mut self, path: &Path, prepared: &Prepared, w: crate::feed::window::Windowing) -> TextureHandle {
+        let key = (path.to_path_buf(), format!("{w:?}"));
+        match self.tex.display.get(&key) {
+            Some(Some(t)) => return t.clone(),
+            Some(None) => {}
+            None => {
+                self.tex.display.insert(key.clone(), None);
+                let (picture, (p, k)) = (prepared.picture.clone(), key.clone());
+                let (q, k2) = (p.clone(), k.clone());
+                self.workers.spawn(
+                    "display window",
+                    false,
+                    move |_, _| Done::Display { result: super::engine::display_image(&picture, &w).map_err(|e| format!("{e:#}")), path: p, key: k },
+                    move |msg| Done::Display { path: q, key: k2, result: Err(msg) },
+                );
+            }
+        }
+        self.base_texture(path, prepared)
     }
 
     pub(crate) fn base_texture(&mut self, path: &Path, prepared: &Prepared) -> TextureHandle {

@@ -23,6 +23,8 @@ pub enum Done {
     Agreement { key: AgreementKey, result: Agreement },
     Picked { purpose: Pick, paths: Option<Vec<PathBuf>>, took: Duration },
     Exported { result: Result<Vec<PathBuf>, String> },
+    /// A DICOM picture drawn through a display window (`key` names the window).
+    Display { path: PathBuf, key: String, result: Result<egui::ColorImage, String> },
     /// A job that sent its results through its outbox has ended.
     Finished,
     /// A job with nothing of its own to report failed (the text says what failed).

@@ -53,5 +53,9 @@ pub fn removals(model: &Model, card: Option<&FeedCard>, input: &Input, reading: 
 /// of each region, and what painting each out does.
 pub fn assess(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading, regions: &[Region], flag: &FlagSettings) -> Result<Assessment> {
     let removals = removals(model, card, input, reading, regions)?;
-    assess_with_removals(&reading.map2d(), regions, removals.as_ref(), flag)
+    let declared = match input {
+        Input::Picture { picture, .. } => picture.burned_in_annotation(),
+        Input::Tensor { .. } => None,
+    };
+    assess_with_removals(&reading.map2d(), regions, removals.as_ref(), declared, flag)
 }

@@ -115,6 +115,18 @@ pub enum Evidence {
     Attribution,
     /// Painting a region out changes the model's answer.
     Removal,
+    /// The file itself declares burned-in text: DICOM's Burned In Annotation (0028,0301) is YES.
+    BurnedInAnnotation,
+}
+
+impl Evidence {
+    pub fn name(self) -> &'static str {
+        match self {
+            Evidence::Attribution => "attribution",
+            Evidence::Removal => "removal",
+            Evidence::BurnedInAnnotation => "burned-in-annotation",
+        }
+    }
 }
 
 /// The regions of one reading, their figures and the flag.
@@ -154,12 +166,19 @@ fn removal_passes(r: Option<&Removal>, s: &FlagSettings) -> bool {
 /// Figures and flag for a map against given regions (found, drawn, or both), attribution
 /// evidence only.
 pub fn assess_regions(map: &Array2<f32>, regions: &[Region], s: &FlagSettings) -> Result<Assessment> {
-    assess_with_removals(map, regions, None, s)
+    assess_with_removals(map, regions, None, None, s)
 }
 
 /// Figures and flag for a map against given regions, with what painting them out did when
-/// `removals` is given (one per region, in order).
-pub fn assess_with_removals(map: &Array2<f32>, regions: &[Region], removals: Option<&Removals>, s: &FlagSettings) -> Result<Assessment> {
+/// `removals` is given (one per region, in order), and what the file declares about burned-in
+/// text (`declared`, DICOM's Burned In Annotation).
+pub fn assess_with_removals(
+    map: &Array2<f32>,
+    regions: &[Region],
+    removals: Option<&Removals>,
+    declared: Option<bool>,
+    s: &FlagSettings,
+) -> Result<Assessment> {
     if let Some(r) = removals
         && r.each.len() != regions.len()
     {
@@ -206,6 +225,10 @@ pub fn assess_with_removals(map: &Array2<f32>, regions: &[Region], removals: Opt
     if let Some(r) = removal {
         evidence.push(Evidence::Removal);
         said.push(r);
+    }
+    if declared == Some(true) {
+        evidence.push(Evidence::BurnedInAnnotation);
+        said.push("the file itself declares burned-in text (Burned In Annotation YES)".to_string());
     }
     let suspect = !evidence.is_empty();
     let reason = if suspect {

@@ -17,6 +17,23 @@ pub struct FinderSettings {
     pub repeated_patch: RepeatedPatchSettings,
 }
 
+impl FinderSettings {
+    /// The settings for an image whose file declares burned-in text (DICOM's Burned In
+    /// Annotation YES): marks are looked for with a lower confidence bar, since the file says
+    /// they are there. The bar is ours (0.4 instead of 0.6), not a published value.
+    pub fn for_declared_text(&self) -> FinderSettings {
+        let mut s = self.clone();
+        s.mark.min_confidence = s.mark.min_confidence.min(0.4);
+        s
+    }
+
+    /// The settings for one picture: [`FinderSettings::for_declared_text`] when its file says
+    /// it carries burned-in text, else these.
+    pub fn for_picture(&self, declared: Option<bool>) -> FinderSettings {
+        if declared == Some(true) { self.for_declared_text() } else { self.clone() }
+    }
+}
+
 /// Border bands: a margin along a side whose pixels stay within a tolerance of one value, ending
 /// in a sharp straight (possibly tilted) edge.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]

@@ -3,4 +3,4 @@
 
 mod reading;
 
-pub use reading::{ReadingFile, assess_input};
+pub use reading::{PatientData, ReadingFile, SourceFacts, assess_input};

@@ -4,7 +4,9 @@
 use anyhow::Result;
 use serde::Serialize;
 
-use crate::feed::FeedCard;
+use crate::feed::dicom::DicomSummary;
+use crate::feed::window::ResolvedWindow;
+use crate::feed::{FeedCard, Picture};
 use crate::methods::{Input, Reading};
 use crate::model::Model;
 use crate::regions::{Assessment, FinderSettings, FlagSettings, find_regions};
@@ -19,11 +21,92 @@ pub struct ReadingFile<'a> {
     /// Regions, their figures and the flag: pictures only (a tensor has no image to search).
     #[serde(flatten)]
     pub assessment: Option<Assessment>,
+    /// Where a picture's pixels came from: no patient-identifying attribute is ever in it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub source: Option<SourceFacts>,
+    /// The file's patient-identifying attributes, only when the user asked for them.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub patient_data: Option<PatientData>,
+}
+
+/// How a picture's pixels were made from its file.
+#[derive(Clone, Debug, Serialize)]
+pub struct SourceFacts {
+    pub bit_depth: u8,
+    /// The window that turned stored values into 0..1 (DICOM, 16-bit images).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub window: Option<ResolvedWindow>,
+    /// A DICOM file's non-identifying facts (modality, size, bits, transfer syntax, windows).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub dicom: Option<DicomSummary>,
+    /// Burned In Annotation (0028,0301) as the file declares it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub burned_in_annotation: Option<bool>,
+}
+
+impl SourceFacts {
+    /// The facts of a picture, `None` for an 8-bit image from no DICOM file (nothing to say).
+    pub fn of(picture: &Picture) -> Option<SourceFacts> {
+        if picture.window.is_none() && picture.dicom.is_none() {
+            return None;
+        }
+        let dicom = picture.dicom.as_ref().map(|d| DicomSummary { window_used: picture.window.clone(), ..d.safe_summary() });
+        Some(SourceFacts {
+            bit_depth: picture.bit_depth,
+            window: picture.window.clone(),
+            dicom,
+            burned_in_annotation: picture.burned_in_annotation(),
+        })
+    }
+}
+
+/// Patient-identifying attributes written because the user asked, saying so.
+#[derive(Clone, Debug, Serialize)]
+pub struct PatientData {
+    pub note: &'static str,
+    pub attributes: Vec<PatientAttribute>,
+}
+
+#[derive(Clone, Debug, Serialize)]
+pub struct PatientAttribute {
+    pub keyword: String,
+    pub value: String,
+}
+
+impl PatientData {
+    /// The identifying attributes of a picture's DICOM file (DICOM PS3.15 Annex E, Basic
+    /// Profile, as `feed::dicom::BASIC_PROFILE` lists them); `None` for other pictures.
+    pub fn of(picture: &Picture) -> Option<PatientData> {
+        let d = picture.dicom.as_ref()?;
+        Some(PatientData {
+            note: "included because it was asked for (--with-patient-data): this file holds \
+                   patient-identifying values; keep it where such data may be kept",
+            attributes: d.identifying().iter().map(|(k, v)| PatientAttribute { keyword: k.clone(), value: v.clone() }).collect(),
+        })
+    }
 }
 
 impl<'a> ReadingFile<'a> {
     pub fn new(reading: &'a Reading, assessment: Option<Assessment>) -> ReadingFile<'a> {
-        ReadingFile { reading, caution: crate::CAUTION, assessment }
+        ReadingFile { reading, caution: crate::CAUTION, assessment, source: None, patient_data: None }
+    }
+
+    /// With the facts of the picture read (`input` a tensor: none), and its patient data when
+    /// `with_patient_data`.
+    pub fn with_input(self, input: &Input, with_patient_data: bool) -> ReadingFile<'a> {
+        match input {
+            Input::Picture { picture, .. } => self.with_picture(picture, with_patient_data),
+            Input::Tensor { .. } => self,
+        }
+    }
+
+    /// With the facts of `picture`, and its patient data when `with_patient_data`.
+    pub fn with_picture(mut self, picture: &Picture, with_patient_data: bool) -> ReadingFile<'a> {
+        self.source = SourceFacts::of(picture);
+        if with_patient_data {
+            self.patient_data = PatientData::of(picture);
+        }
+        self
     }
 
     /// The file as a JSON value. Fails if two parts would write the same key (a field of the
@@ -32,7 +115,9 @@ impl<'a> ReadingFile<'a> {
         let count = |v: serde_json::Value| v.as_object().map_or(0, |m| m.len());
         let expected = count(serde_json::to_value(self.reading)?)
             + 1
-            + self.assessment.as_ref().map_or(Ok(0), |a| serde_json::to_value(a).map(count))?;
+            + self.assessment.as_ref().map_or(Ok(0), |a| serde_json::to_value(a).map(count))?
+            + self.source.is_some() as usize
+            + self.patient_data.is_some() as usize;
         let v = serde_json::to_value(self)?;
         // A clash shows as fewer keys than the parts hold (the map keeps one of them).
         if count(v.clone()) != expected {
@@ -46,7 +131,8 @@ impl<'a> ReadingFile<'a> {
 /// them with both kinds of evidence and the default flag; `None` for a tensor.
 pub fn assess_input(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading) -> Result<Option<Assessment>> {
     let Input::Picture { picture, .. } = input else { return Ok(None) };
-    let regions = find_regions(&picture.luminance(), &FinderSettings::default());
+    let finder = FinderSettings::default().for_picture(picture.burned_in_annotation());
+    let regions = find_regions(&picture.luminance(), &finder);
     Ok(Some(crate::methods::assess(model, card, input, reading, &regions, &FlagSettings::default())?))
 }
 

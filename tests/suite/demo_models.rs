@@ -124,7 +124,7 @@ fn accuracy(model: &Model, card: &FeedCard, count: usize, marks: Marks) -> f64 {
         .map(|i| {
             let p = demo::render(&set.phantom(i));
             let px = Array3::from_shape_fn((p.image.nrows(), p.image.ncols(), 1), |(y, x, _)| p.image[[y, x]] as f32 / 255.0);
-            let pic = Picture { path: None, pixels: px, bit_depth: 8 };
+            let pic = Picture::new(px, 8);
             let y = model.forward(&tensor_of(card, &pic), Tap::Output).unwrap();
             ((y[1] > y[0]) == p.row.finding) as usize
         })

@@ -258,7 +258,8 @@ fn with_no_arguments_the_first_view_is_a_marked_positive_under_blur_8_and_it_is_
 
     // The command line with every setting at its default reads the same image the same way.
     let cli = crate::regions_e2e::explain_with_defaults(&model_path(), &want, &tmp.path().join("cli"));
-    let gui = spurion::gui::export::reading_json(&shown).unwrap();
+    let prepared = h.state().current_prepared().unwrap();
+    let gui = spurion::gui::export::reading_json(&prepared, &shown).unwrap();
     for k in ["method", "settings", "baseline", "steps", "target", "score_kind", "suspect", "suspect_evidence"] {
         assert_eq!(gui[k], cli[k], "field {k}: inspector {} vs spurion explain {}", gui[k], cli[k]);
     }
@@ -336,6 +337,21 @@ fn the_reading_json_export_has_the_fields_of_spurion_explain() {
     assert_eq!(gui["suspect"].as_bool(), Some(shown.assessment.suspect));
 }
 
+/// Steps the UI until the image at `p` has failed to open, and checks the reason names it.
+fn wait_for_failed(h: &mut Harness<'_, Inspector>, p: &Path) {
+    let start = Instant::now();
+    loop {
+        h.step();
+        let e = h.state().images.iter().find(|e| e.path == p).expect("the image is listed");
+        if let spurion::gui::state::ImageState::Failed(m) = &e.state {
+            assert!(m.contains(&p.display().to_string()), "{m}");
+            return;
+        }
+        assert!(start.elapsed() < Duration::from_secs(60), "timed out waiting for {} to fail", p.display());
+        std::thread::sleep(Duration::from_millis(15));
+    }
+}
+
 // ------------------------------------------------------------------ drag and drop
 
 #[derive(Debug)]
@@ -404,11 +420,36 @@ fn a_dropped_file_that_is_not_an_image_is_refused_with_a_reason() {
     assert!(t.contains(".onnx") && t.contains("PNG"), "{t}");
     assert!(h.query_by_label(t).is_some(), "the note is on the status line");
 
-    // A DICOM file gets its own advice.
+    // A damaged DICOM file joins the list (it is an image by its ending) and says, once opened,
+    // which file and what is wrong.
     let dcm = tmp.path().join("study.dcm");
     std::fs::write(&dcm, b"DICM").unwrap();
     drop_file(&mut h, &dcm);
-    let last = h.state().notes.last().unwrap().text.clone();
-    assert!(last.contains("study.dcm") && last.contains("DICOM") && last.contains("PNG"), "{last}");
-    assert_eq!(h.state().images.len(), 1);
+    assert_eq!(h.state().images.len(), 2);
+    wait_for_failed(&mut h, &dcm);
+}
+
+#[test]
+fn a_dicom_file_opens_says_what_it_declares_and_takes_a_display_window() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dcm = root().join("assets/demo/dicom/0005-hillmoor.dcm");
+    let mut h = harness(vec![dcm.clone()], tmp.path());
+    wait_for(&mut h, "the DICOM image to open", 120, |a| a.current_prepared().is_some());
+    h.run_steps(2);
+    assert!(
+        h.query_by_label_contains("Burned In Annotation: YES").is_some(),
+        "the slide says the file declares burned-in text"
+    );
+    assert!(h.query_by_label_contains("model fed through window C 2040.5 / W 4081").is_some(), "and which window feeds the model");
+    // A display window changes the picture shown, on a worker; never what the model reads.
+    let fed = h.state().current_prepared().unwrap().picture.pixels.clone();
+    h.state_mut().view.display_window = Some(spurion::feed::window::Windowing::MinMax);
+    wait_for(&mut h, "the display window", 60, |a| a.display_windows_drawn() > 0);
+    h.run_steps(1);
+    assert!(h.query_by_label_contains("shown through the display window").is_some());
+    assert_eq!(h.state().current_prepared().unwrap().picture.pixels, fed);
+    // The reading is the shortcut caught, with the file's own declaration as one more piece of evidence.
+    wait_for(&mut h, "the reading", 300, |a| a.current_shown().is_some());
+    let shown = h.state().current_shown().unwrap().1;
+    assert!(shown.assessment.suspect_evidence.contains(&spurion::regions::Evidence::BurnedInAnnotation), "{:?}", shown.assessment.suspect_evidence);
 }

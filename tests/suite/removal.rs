@@ -26,7 +26,7 @@ fn removal_drops_a_known_model_by_exactly_the_painted_patch() {
     let model = Model::load(&fixture("methods/corner_mean.onnx"), &LoadOptions::default()).unwrap();
     let card: FeedCard = toml::from_str("[input]\nheight = 16\nwidth = 16\n").unwrap();
     let pixels = Array3::from_shape_fn((16, 16, 1), |(y, x, _)| if y < 4 && x < 4 { 0.9 } else { 0.3 });
-    let input = Input::picture(Picture { path: None, pixels, bit_depth: 32 }, &card).unwrap();
+    let input = Input::picture(Picture::new(pixels, 32), &card).unwrap();
     let req = Request { method: Method::Gradient, baseline: methods::Baseline::Black, target: TargetSpec::Index(0), score: ScoreKind::Logits };
     let reading = methods::explain(&model, Some(&card), &input, &req, &Control::new()).unwrap();
     assert!((reading.score_input - 0.9).abs() < 1e-6);
@@ -70,7 +70,7 @@ fn painting_the_found_regions_out_costs_the_shortcut_model_what_the_missing_mark
             let pic = picture(&ph.image);
             let regions = find_regions(&pic.luminance(), &FinderSettings::default());
             let (painted, _) = paint_out_all(&pic.pixels, &regions);
-            let removed = Picture { path: None, pixels: painted, bit_depth: 8 };
+            let removed = Picture::new(painted, 8);
             let none = picture(&demo::render(&bare.phantom(i)).image);
             let ok = |p: &Picture| (top(p) == finding) == truth;
             (ok(&pic), ok(&removed), ok(&none), !regions.is_empty())

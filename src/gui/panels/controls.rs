@@ -10,6 +10,8 @@ use crate::gui::state::*;
 use crate::gui::work::Pick;
 use crate::gui::form::{BLACK_BASELINE_CAVEAT, method_menu};
 use crate::methods::defaults::{BASELINE_WHY, BLUR_SIGMA};
+use crate::feed::dicom::DicomImage;
+use crate::feed::window::{VoiFunction, Windowing};
 use crate::methods::{BaselineKind, MethodKind, ScoreKind, TargetSpec};
 use crate::sign::Sign;
 
@@ -31,6 +33,39 @@ fn path_row(ui: &mut egui::Ui, label: &str, path: &mut String, hint: &str, pick:
             out.push(Intent::Pick(pick));
         }
     });
+}
+
+/// The display window of a DICOM picture: what is shown, never what the model is fed.
+fn display_window(ui: &mut egui::Ui, w: &mut Option<Windowing>, d: &DicomImage) {
+    let name = |w: &Option<Windowing>| match w {
+        None => "as the model is fed".to_string(),
+        Some(Windowing::File { index }) => format!("file window {}", index + 1),
+        Some(Windowing::MinMax) => "lowest to highest value".to_string(),
+        Some(Windowing::FullRange) => "every stored value".to_string(),
+        Some(Windowing::Fixed { .. }) => "custom centre and width".to_string(),
+    };
+    let files = d.voi.windows.len().max(d.voi.tables.len());
+    egui::ComboBox::from_label("display window").selected_text(name(w)).width(170.0).show_ui(ui, |ui| {
+        ui.selectable_value(w, None, name(&None));
+        for index in 0..files {
+            let o = Some(Windowing::File { index });
+            ui.selectable_value(w, o.clone(), name(&o));
+        }
+        for o in [Some(Windowing::MinMax), Some(Windowing::FullRange)] {
+            ui.selectable_value(w, o.clone(), name(&o));
+        }
+        let (lo, hi) = d.value_range;
+        let custom = Some(Windowing::Fixed { center: (lo + hi) / 2.0, width: (hi - lo).max(1.0), function: VoiFunction::Linear });
+        if ui.selectable_label(matches!(w, Some(Windowing::Fixed { .. })), name(&custom)).clicked() && !matches!(w, Some(Windowing::Fixed { .. })) {
+            *w = custom;
+        }
+    })
+    .response
+    .on_hover_text("Changes how the DICOM picture is shown on the slide. The model is still fed through the feed card's window.");
+    if let Some(Windowing::Fixed { center, width, .. }) = w {
+        labelled_drag(ui, "centre", center, -1e6..=1e6, 1.0);
+        labelled_drag(ui, "width", width, 1.0..=1e6, 1.0);
+    }
 }
 
 pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
@@ -156,6 +191,9 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 ui.add(egui::Slider::new(&mut v.opacity, 0.0..=1.0)).labelled_by(l.id);
             });
             ui.checkbox(&mut v.show_regions, "region outlines");
+            if let Some(d) = app.current_prepared().and_then(|p| p.picture.dicom.clone()) {
+                display_window(ui, &mut app.view.display_window, &d);
+            }
             let painted = app.current_prepared().and_then(|p| p.painted.as_ref().map(|(_, f)| f.clone()));
             ui.add_enabled_ui(painted.is_some(), |ui| {
                 ui.checkbox(&mut app.view.painted_out, "found regions painted out").on_hover_text(format!(
@@ -239,10 +277,7 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                         .assessment
                         .suspect_evidence
                         .iter()
-                        .map(|e| match e {
-                            crate::regions::Evidence::Attribution => "attribution",
-                            crate::regions::Evidence::Removal => "removal",
-                        })
+                        .map(|e| e.name())
                         .collect();
                     ui.label(RichText::new(format!("evidence: {}", names.join(" and "))).small().strong());
                 }

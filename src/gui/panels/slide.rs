@@ -27,6 +27,41 @@ impl Placement {
     }
 }
 
+/// What a DICOM or 16-bit picture is and how it is fed and shown, in one line (no
+/// patient-identifying attribute: only the file's technical facts).
+fn source_line(p: &crate::feed::Picture, display_window: bool) -> Option<String> {
+    let fed = p.window.as_ref().map(window_text)?;
+    let shown = if display_window { "shown through the display window" } else { "shown as fed" };
+    Some(match &p.dicom {
+        Some(d) => {
+            let burned = match d.burned_in_annotation {
+                Some(true) => " · Burned In Annotation: YES, the file declares burned-in text",
+                Some(false) => " · Burned In Annotation: NO",
+                None => "",
+            };
+            format!(
+                "DICOM {} · {}×{} · {} bits · frame {} of {} · model fed through {fed} · {shown}{burned}",
+                d.modality.as_deref().unwrap_or("(no modality)"),
+                d.columns,
+                d.rows,
+                d.bits_stored,
+                d.frame + 1,
+                d.number_of_frames
+            )
+        }
+        None => format!("{}-bit image · model fed through {fed} · {shown}", p.bit_depth),
+    })
+}
+
+fn window_text(w: &crate::feed::window::ResolvedWindow) -> String {
+    use crate::feed::window::VoiTransform as T;
+    match &w.transform {
+        T::Function { center, width, .. } => format!("window C {center} / W {width}"),
+        T::Table { index, .. } => format!("VOI LUT table {}", index + 1),
+        T::Range { low, high } => format!("the range {low}..{high}"),
+    }
+}
+
 fn flag_banner(ui: &mut egui::Ui, shown: &Shown) {
     let a = &shown.assessment;
     if a.suspect {
@@ -107,6 +142,9 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
                 }
             });
         });
+        if let Some(line) = source_line(&prepared.picture, app.view.display_window.is_some()) {
+            ui.label(RichText::new(line).small().color(look::ASH));
+        }
         if let Some(s) = &shown {
             flag_banner(ui, s);
         }

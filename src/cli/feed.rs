@@ -1,0 +1,43 @@
+//! `spurion feed`: an image exactly as it is decoded and windowed for a model, before resizing
+//! and normalisation, so that users and tests can see what the model gets.
+
+use std::path::PathBuf;
+
+use anyhow::{Context, Result};
+use clap::Args;
+
+use crate::feed::{FeedCard, OpenOptions, Picture, write_tensor};
+use crate::report::SourceFacts;
+
+#[derive(Args, Debug)]
+pub struct FeedArgs {
+    /// The image (PNG 8/16-bit, JPEG, TIFF, BMP, DICOM).
+    #[arg(long, short = 'i')]
+    pub image: PathBuf,
+    /// The feed card whose window to use (default: the file's own window for DICOM, all values
+    /// for 16-bit images).
+    #[arg(long)]
+    pub feed: Option<PathBuf>,
+    /// The frame of a multi-frame DICOM file, from 0.
+    #[arg(long, default_value_t = 0)]
+    pub frame: usize,
+    /// The .npy to write: float32, H×W×C, values 0..1.
+    #[arg(long)]
+    pub out: PathBuf,
+}
+
+pub fn run(a: &FeedArgs) -> Result<()> {
+    let window = match &a.feed {
+        Some(p) => FeedCard::load(p)?.input.window,
+        None => None,
+    };
+    let pic = Picture::open_with(&a.image, &OpenOptions { frame: a.frame, window })?;
+    write_tensor(&a.out, &pic.pixels.clone().into_dyn()).with_context(|| format!("writing {}", a.out.display()))?;
+    let (h, w, c) = pic.pixels.dim();
+    println!("{}: {w}×{h}, {c} channel(s), {} bits → {}", pic.name(), pic.bit_depth, a.out.display());
+    // What the file says about itself, without any patient-identifying attribute.
+    if let Some(facts) = SourceFacts::of(&pic) {
+        println!("{}", serde_json::to_string_pretty(&facts)?);
+    }
+    Ok(())
+}
