@@ -1,20 +1,30 @@
-"""The reference peer for `cargo bench --bench speed` (see benches/speed.rs).
+"""The reference peers for `cargo bench --bench speed` (see benches/speed.rs), each timed at its
+best setting.
 
 usage: peer_speed.py OUT_DIR THREADS REPEATS
 
 Builds a ResNet-18 (torchvision's architecture, random weights from a fixed seed, no download),
 exports it to OUT_DIR/resnet18.onnx (batch 1, opset 17) and OUT_DIR/resnet18-batch.onnx (dynamic
-batch), writes the input OUT_DIR/x.npy, then times on THREADS threads, REPEATS times each:
+batch), writes the input OUT_DIR/x.npy, then times REPEATS runs of each setting:
 
-  - integrated gradients, 64 midpoint steps, black baseline, with PyTorch CPU autograd
-    (interpolants in batches of 16, the usual way to run it);
-  - occlusion, window 16, stride 8, black fill, with onnxruntime forwards, both one image per
-    run and in batches of 32.
+  - integrated gradients, 64 midpoint steps, black baseline, with PyTorch CPU autograd:
+    interpolants in batches of 1, 8 and 16, each in PyTorch's default (contiguous NCHW) and its
+    channels-last memory format (the usual advice for CPU convolutions; common practice);
+  - the time to a 1 % completeness gap: the midpoint rule at 16, 32, 64, ... steps (each count
+    computed afresh: the midpoints of 2n cells are not those of n) until the gap
+    |sum(attribution) - (F(x) - F(0))| / |F(x) - F(0)| is under 1 %, at the fastest IG setting;
+  - occlusion, window 16, stride 8, black fill, with onnxruntime forwards, one image per run and
+    in batches of 32.
 
-Prints one JSON object on stdout: library versions, medians and all times in seconds, and the
-results (IG attribution sum, occlusion map) for the bench to compare with spurion's.
-Needs torch, torchvision, onnx and onnxruntime; run by hand (PyTorch is not part of CI).
+Thread counts: THREADS for both runtimes (torch.set_num_threads, onnxruntime intra-op threads),
+or each count in the environment's SPURION_BENCH_PEER_THREADS (comma-separated) to check
+others. onnxruntime keeps its default graph optimisation (all levels) and one inter-op thread.
+
+Prints one JSON object on stdout: library versions, every setting's times and median, and the
+results (IG attribution sums, occlusion map in OUT_DIR/occlusion-ort.npy) for the bench to compare
+with spurion's. Needs torch, torchvision, onnx and onnxruntime; run by hand (not part of CI).
 """
+import copy
 import json
 import os
 import sys
@@ -36,9 +46,18 @@ def starts(n, w, s):
     return v
 
 
+def timed(fn, repeats):
+    ts, out = [], None
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        out = fn()
+        ts.append(time.perf_counter() - t0)
+    return ts, out
+
+
 def main():
     out, threads, repeats = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
-    torch.set_num_threads(threads)
+    thread_counts = [int(t) for t in os.environ.get("SPURION_BENCH_PEER_THREADS", str(threads)).split(",")]
     torch.manual_seed(18)
     net = torchvision.models.resnet18(weights=None, num_classes=1000).eval()
     rng = np.random.default_rng(18)
@@ -51,35 +70,54 @@ def main():
                           do_constant_folding=True)
     with torch.no_grad():
         logits = net(xt)[0]
-    target = int(torch.argmax(logits))
+        target = int(torch.argmax(logits))
+        f_x = float(logits[target])
+        f_0 = float(net(torch.zeros_like(xt))[0, target])
 
     # Integrated gradients (Sundararajan et al. 2017), midpoint rule, black (zero) baseline.
-    steps, chunk = 64, 16
-    alphas = (torch.arange(steps, dtype=torch.float32) + 0.5) / steps
-    baseline = torch.zeros_like(xt)
+    nets = {False: net, True: copy.deepcopy(net).to(memory_format=torch.channels_last)}
 
-    def ig():
+    def ig(steps, chunk, channels_last):
+        m = nets[channels_last]
+        alphas = (torch.arange(steps, dtype=torch.float32) + 0.5) / steps
         total = torch.zeros_like(xt)
         for a in alphas.split(chunk):
-            pts = (baseline + a.view(-1, 1, 1, 1) * (xt - baseline)).requires_grad_(True)
-            y = net(pts)[:, target].sum()
+            pts = a.view(-1, 1, 1, 1) * xt
+            if channels_last:
+                pts = pts.contiguous(memory_format=torch.channels_last)
+            pts.requires_grad_(True)
+            y = m(pts)[:, target].sum()
             (g,) = torch.autograd.grad(y, pts)
             total += g.sum(0, keepdim=True)
-        return (xt - baseline) * total / steps
+        return xt * total / steps
 
-    ig_times, ig_sum = [], None
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        attr = ig()
-        ig_times.append(time.perf_counter() - t0)
-        ig_sum = float(attr.sum())
+    ig_runs = []
+    for th in thread_counts:
+        torch.set_num_threads(th)
+        for channels_last in (False, True):
+            for chunk in (1, 8, 16):
+                ig(chunk, chunk, channels_last)  # warm-up: one-time allocations and kernel choice
+                ts, attr = timed(lambda: ig(64, chunk, channels_last), repeats)
+                ig_runs.append({"batch": chunk, "channels_last": channels_last, "threads": th,
+                                "seconds": ts, "median": float(np.median(ts)), "sum": float(attr.sum())})
+    best = min(ig_runs, key=lambda r: r["median"])
+    torch.set_num_threads(best["threads"])
+
+    def refine():
+        levels, steps = [], 16
+        while True:
+            t0 = time.perf_counter()
+            attr = ig(steps, best["batch"], best["channels_last"])
+            gap = abs(float(attr.sum()) - (f_x - f_0)) / abs(f_x - f_0)
+            levels.append({"steps": steps, "gap": gap, "seconds": time.perf_counter() - t0})
+            if gap < 0.01 or steps >= 4096:
+                return levels
+            steps *= 2
+
+    refine_runs = [refine() for _ in range(repeats)]
+    refine_totals = [sum(lv["seconds"] for lv in r) for r in refine_runs]
 
     # Occlusion (Zeiler & Fergus 2014) with onnxruntime forwards.
-    so = ort.SessionOptions()
-    so.intra_op_num_threads = threads
-    so.inter_op_num_threads = 1
-    single = ort.InferenceSession(os.path.join(out, "resnet18.onnx"), so, providers=["CPUExecutionProvider"])
-    batch = ort.InferenceSession(os.path.join(out, "resnet18-batch.onnx"), so, providers=["CPUExecutionProvider"])
     win, stride = 16, 8
     wins = [(a, b) for a in starts(224, win, stride) for b in starts(224, win, stride)]
 
@@ -88,41 +126,43 @@ def main():
         o[:, :, y0:y0 + win, x0:x0 + win] = 0.0
         return o
 
-    def occlusion(batched):
-        f0 = float(single.run(None, {"x": x})[0][0, target])
-        scores = []
-        if batched:
-            for i in range(0, len(wins), 32):
-                part = np.concatenate([occluded(*w) for w in wins[i:i + 32]])
-                scores.extend(batch.run(None, {"x": part})[0][:, target].tolist())
-        else:
-            for w in wins:
-                scores.append(float(single.run(None, {"x": occluded(*w)})[0][0, target]))
-        total = np.zeros((224, 224))
-        count = np.zeros((224, 224))
-        for (y0, x0), s in zip(wins, scores):
-            total[y0:y0 + win, x0:x0 + win] += f0 - s
-            count[y0:y0 + win, x0:x0 + win] += 1
-        return total / count
+    occ_runs, occ_map = [], None
+    for th in thread_counts:
+        so = ort.SessionOptions()
+        so.intra_op_num_threads = th
+        so.inter_op_num_threads = 1
+        single = ort.InferenceSession(os.path.join(out, "resnet18.onnx"), so, providers=["CPUExecutionProvider"])
+        batched = ort.InferenceSession(os.path.join(out, "resnet18-batch.onnx"), so, providers=["CPUExecutionProvider"])
 
-    occ = {}
-    for batched in (False, True):
-        ts = []
-        for _ in range(repeats):
-            t0 = time.perf_counter()
-            m = occlusion(batched)
-            ts.append(time.perf_counter() - t0)
-        occ["batched" if batched else "single"] = ts
-    np.save(os.path.join(out, "occlusion-ort.npy"), m.astype(np.float32))
+        def occlusion(batch):
+            f = float(single.run(None, {"x": x})[0][0, target])
+            scores = []
+            if batch > 1:
+                for i in range(0, len(wins), batch):
+                    part = np.concatenate([occluded(*w) for w in wins[i:i + batch]])
+                    scores.extend(batched.run(None, {"x": part})[0][:, target].tolist())
+            else:
+                for w in wins:
+                    scores.append(float(single.run(None, {"x": occluded(*w)})[0][0, target]))
+            total = np.zeros((224, 224))
+            count = np.zeros((224, 224))
+            for (y0, x0), s in zip(wins, scores):
+                total[y0:y0 + win, x0:x0 + win] += f - s
+                count[y0:y0 + win, x0:x0 + win] += 1
+            return total / count
 
-    med = lambda v: float(np.median(v))
+        for batch in (1, 32):
+            ts, occ_map = timed(lambda: occlusion(batch), repeats)
+            occ_runs.append({"batch": batch, "threads": th, "seconds": ts, "median": float(np.median(ts))})
+    np.save(os.path.join(out, "occlusion-ort.npy"), occ_map.astype(np.float32))
+
     print(json.dumps({
         "torch": torch.__version__, "torchvision": torchvision.__version__, "onnxruntime": ort.__version__,
-        "threads": threads, "target": target, "windows": len(wins),
-        "ig_seconds": ig_times, "ig_median": med(ig_times), "ig_sum": ig_sum,
-        "score_x": float(logits[target]),
-        "occlusion_single_seconds": occ["single"], "occlusion_single_median": med(occ["single"]),
-        "occlusion_batched_seconds": occ["batched"], "occlusion_batched_median": med(occ["batched"]),
+        "threads": threads, "target": target, "windows": len(wins), "score_x": f_x, "score_baseline": f_0,
+        "ig": ig_runs,
+        "refine": {"batch": best["batch"], "channels_last": best["channels_last"], "threads": best["threads"],
+                   "runs": refine_runs, "seconds": refine_totals, "median": float(np.median(refine_totals))},
+        "occlusion": occ_runs,
     }))
 
 

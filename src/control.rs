@@ -10,11 +10,12 @@ use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 #[derive(Clone, Default)]
 pub struct Control {
     inner: Arc<Inner>,
+    /// Shared with every control made by [`Control::linked`].
+    cancel: Arc<AtomicBool>,
 }
 
 #[derive(Default)]
 struct Inner {
-    cancel: AtomicBool,
     done: AtomicU64,
     total: AtomicU64,
     on_progress: std::sync::Mutex<Option<Box<dyn Fn(u64, u64) + Send + Sync>>>,
@@ -43,12 +44,18 @@ impl Control {
         c
     }
 
+    /// A control with its own progress that is cancelled whenever this one is (and cancels
+    /// this one when cancelled): one per reading of a sweep, say, under the sweep's own.
+    pub fn linked(&self) -> Control {
+        Control { inner: Arc::default(), cancel: self.cancel.clone() }
+    }
+
     pub fn cancel(&self) {
-        self.inner.cancel.store(true, Ordering::Relaxed);
+        self.cancel.store(true, Ordering::Relaxed);
     }
 
     pub fn is_cancelled(&self) -> bool {
-        self.inner.cancel.load(Ordering::Relaxed)
+        self.cancel.load(Ordering::Relaxed)
     }
 
     /// `Err(Cancelled)` once cancel was asked for; call between units of work.

@@ -23,6 +23,7 @@ pub mod regions;
 pub mod render;
 pub mod report;
 pub mod sign;
+pub mod sweep;
 
 pub mod cli;
 pub mod gui;

@@ -2,5 +2,7 @@
 //! built from the engine's results (so every front end writes the same file).
 
 mod reading;
+mod sweep;
 
 pub use reading::{PatientData, ReadingFile, SourceFacts, assess_input};
+pub use sweep::sweep_html;

@@ -1,0 +1,114 @@
+//! One image of a sweep: opened and fed as `spurion explain` would, read, its regions found,
+//! assessed with both kinds of evidence, and turned into a row and a map on the model grid.
+
+use std::time::Instant;
+
+use anyhow::Result;
+use ndarray::{Array2, ArrayD, Axis};
+use serde_json::json;
+
+use super::cache::Entry;
+use super::plan::Item;
+use super::row::Row;
+use crate::control::Control;
+use crate::feed::{FeedCard, OpenOptions, Picture};
+use crate::methods::{self, Input, Request, top_index};
+use crate::model::Model;
+use crate::regions::{FinderSettings, FlagSettings, find_regions};
+
+/// Everything that decides each image's result besides the image itself.
+pub struct Setup<'a> {
+    pub model: &'a Model,
+    pub card: &'a FeedCard,
+    pub request: &'a Request,
+    pub open: OpenOptions,
+    pub finder: FinderSettings,
+    pub flag: FlagSettings,
+}
+
+impl Setup<'_> {
+    /// The settings as one canonical text: part of every cache key, and what shards of one
+    /// sweep must agree on.
+    pub fn settings_text(&self) -> String {
+        json!({
+            "request": self.request,
+            "frame": self.open.frame,
+            "window": self.open.window,
+            "card": self.card,
+            "finder": self.finder,
+            "flag": self.flag,
+        })
+        .to_string()
+    }
+
+    /// Reads one image.
+    pub fn read(&self, item: &Item, ctl: &Control) -> Result<Entry> {
+        let started = Instant::now();
+        let picture = Picture::open_with(&item.path, &self.open)?;
+        let declared = picture.burned_in_annotation();
+        let luminance = picture.luminance();
+        let input = Input::picture(picture, self.card)?;
+        let reading = methods::explain(self.model, Some(self.card), &input, self.request, ctl)?;
+        let regions = find_regions(&luminance, &self.finder.for_picture(declared));
+        let a = methods::assess(self.model, Some(self.card), &input, &reading, &regions, &self.flag)?;
+        let grid = grid_map(&reading.tensor_map, input.spatial_axes()?);
+        let scores = ndarray::Array1::from(reading.scores.clone());
+        let top = top_index(&scores);
+        let all = a.all_regions.as_ref();
+        let removal = a.removal_all.as_ref();
+        let row = Row {
+            path: item.rel.clone(),
+            group: item.group.clone(),
+            top,
+            top_label: reading.labels.get(top).cloned().unwrap_or_default(),
+            top_score: scores[top],
+            target: reading.target.index,
+            target_label: reading.target.label.clone(),
+            target_score: reading.score_input,
+            mark_share: all.and_then(|f| f.mark_share),
+            lift: all.and_then(|f| f.lift),
+            removal_drop: removal.map(|r| r.drop),
+            removal_probability_drop: removal.map(|r| r.probability_drop),
+            top_after_removal: removal.map(|r| r.top),
+            suspect: a.suspect,
+            evidence: a.suspect_evidence.iter().map(|e| e.name()).collect::<Vec<_>>().join("+"),
+            regions: a.regions.len(),
+            region_labels: a.regions.iter().map(|r| r.label.clone()).collect::<Vec<_>>().join("; "),
+            completeness_gap: reading.completeness_gap,
+            burned_in_annotation: declared,
+            seconds: started.elapsed().as_secs_f64(),
+        };
+        Ok(Entry { row, grid })
+    }
+}
+
+/// The picture on the model's grid and the supporting map tinted over it, as PNG bytes: the
+/// thumbnails of the report's ranked images.
+pub fn thumbnails(card: &FeedCard, open: &OpenOptions, item: &Item, grid: &Array2<f32>) -> Result<(Vec<u8>, Vec<u8>)> {
+    let picture = Picture::open_with(&item.path, open)?;
+    let feeder = crate::feed::Feeder::for_picture(card, &picture)?;
+    let small = feeder.prepare(&picture.pixels)?;
+    let png = |img: &image::RgbImage| -> Result<Vec<u8>> {
+        let mut bytes = vec![];
+        img.write_to(&mut std::io::Cursor::new(&mut bytes), image::ImageFormat::Png)?;
+        Ok(bytes)
+    };
+    let plain = crate::render::picture_rgb(&small);
+    if grid.dim() != (small.shape()[0], small.shape()[1]) {
+        return Ok((png(&plain)?, png(&plain)?));
+    }
+    let scale = crate::render::robust_scale(grid);
+    let tint = crate::render::tint(&small, grid, scale, crate::methods::defaults::SIGN, crate::methods::defaults::OPACITY);
+    Ok((png(&plain)?, png(&tint)?))
+}
+
+/// A map on the model-input tensor summed over every axis but the two spatial ones: the map on
+/// the model's grid (rows × columns).
+pub fn grid_map(tensor_map: &ArrayD<f32>, spatial: [usize; 2]) -> Array2<f32> {
+    let mut m = tensor_map.clone();
+    for a in (0..m.ndim()).rev().filter(|a| !spatial.contains(a)) {
+        m = m.sum_axis(Axis(a));
+    }
+    let m = m.into_dimensionality::<ndarray::Ix2>().expect("two spatial axes remain");
+    if spatial[0] < spatial[1] { m } else { m.reversed_axes() }
+}

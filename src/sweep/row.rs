@@ -1,0 +1,48 @@
+//! One image's line of a sweep: what `sweep.csv` and `sweep.jsonl` hold.
+
+use serde::{Deserialize, Serialize};
+
+/// One row per image. Figures about regions are of all found regions together.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Row {
+    /// Relative to the images folder, `/` between parts.
+    pub path: String,
+    pub group: String,
+    /// The model's top class at the input, its label and its score (the reading's score kind).
+    pub top: usize,
+    pub top_label: String,
+    pub top_score: f32,
+    pub target: usize,
+    pub target_label: String,
+    pub target_score: f32,
+    /// Share of the supporting attribution on all found regions together, and its lift.
+    pub mark_share: Option<f64>,
+    pub lift: Option<f64>,
+    /// Painting all found regions out: the target's score drop, probability drop, top class then.
+    pub removal_drop: Option<f32>,
+    pub removal_probability_drop: Option<f64>,
+    pub top_after_removal: Option<usize>,
+    pub suspect: bool,
+    /// Which evidence fired, joined by `+` (`attribution`, `removal`, `burned-in-annotation`).
+    pub evidence: String,
+    /// How many regions were found, and their labels joined by `; `.
+    pub regions: usize,
+    pub region_labels: String,
+    pub completeness_gap: Option<f64>,
+    /// Burned In Annotation as the file declares it (DICOM only).
+    pub burned_in_annotation: Option<bool>,
+    /// Seconds this image's reading took when it was computed (a cached row keeps them).
+    pub seconds: f64,
+}
+
+impl Row {
+    /// Whether painting the regions out changed the top class.
+    pub fn flipped(&self) -> Option<bool> {
+        self.top_after_removal.map(|t| t != self.top)
+    }
+
+    /// The same row with its seconds set to 0, for comparing runs whose timing differs.
+    pub fn timeless(&self) -> Row {
+        Row { seconds: 0.0, ..self.clone() }
+    }
+}
