@@ -11,7 +11,7 @@ use super::{InputArgs, ModelArgs, load_input};
 use crate::control::Control;
 use super::reading_args::ReadingArgs;
 use crate::methods::{self, Input};
-use crate::report::{ReadingFile, assess_input};
+use crate::report::ReadingFile;
 use crate::sign::Sign;
 
 #[derive(Args, Debug)]
@@ -94,7 +94,7 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     let out = a.out.clone().unwrap_or_else(|| default_out(&input, &reading.method));
     std::fs::create_dir_all(&out).with_context(|| format!("cannot create output folder {}", out.display()))?;
     let map2 = reading.map2d();
-    let assessment = assess_input(&model, card.as_ref(), &input, &reading)?;
+    let assessment = methods::assess_input(&model, card.as_ref(), &input, &reading, vec![], &Default::default(), &Default::default())?;
     let suspect = assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
     write_json(&out.join("reading.json"), &ReadingFile::new(&reading, assessment).with_input(&input, a.with_patient_data).to_json()?)?;
     crate::feed::write_tensor(&out.join("map.npy"), &reading.map)?;

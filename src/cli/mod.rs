@@ -6,6 +6,7 @@ mod explain;
 mod feed;
 mod reading_args;
 mod regions;
+mod sweep;
 
 pub use reading_args::ReadingArgs;
 
@@ -46,6 +47,11 @@ pub enum Command {
     /// An image exactly as it is decoded and windowed for the model (before resizing and
     /// normalisation), as a float32 .npy.
     Feed(feed::FeedArgs),
+    /// One reading per image over a folder: a table, each group's atlas and a self-contained
+    /// report; resumable, and sliced into shards for a cluster's scheduler.
+    Sweep(sweep::SweepArgs),
+    /// Joins the outputs of a sweep's shards into the files an unsharded sweep writes.
+    SweepMerge(sweep::MergeArgs),
     /// Writes a demo set of phantom images with ground-truth masks and a manifest.
     Demo(DemoArgs),
     /// Opens the desktop inspector.
@@ -205,6 +211,10 @@ pub struct DemoArgs {
     /// a demo UID root; Burned In Annotation YES where Hillmoor's tag is burned in).
     #[arg(long, default_value_t = 0, value_name = "N")]
     pub dicom: usize,
+    /// Write the images into one folder per site below OUT/images (images/hillmoor/...), the way
+    /// a sweep groups them; the manifest's `file` column then holds those paths.
+    #[arg(long)]
+    pub by_site: bool,
 }
 
 #[derive(Args, Debug)]
@@ -227,6 +237,8 @@ pub fn run(command: Command) -> Result<()> {
         Command::Regions(a) => regions::run(&a.image, a.out.as_deref(), &Default::default()),
         Command::Demo(a) => demo(&a),
         Command::Feed(a) => feed::run(&a),
+        Command::Sweep(a) => sweep::run(&a),
+        Command::SweepMerge(a) => sweep::merge(&a),
     }
 }
 
@@ -335,6 +347,7 @@ fn demo(a: &DemoArgs) -> Result<()> {
         finding_contrast: a.contrast,
         masks: !a.no_masks,
         dicom: a.dicom,
+        by_site: a.by_site,
     };
     let bar = explain::progress_bar("writing demo set");
     let ctl = explain::control_for(&bar);

@@ -104,6 +104,10 @@ pub struct SetSpec {
     /// [`dicom::write_demo_copy`]).
     #[serde(default)]
     pub dicom: usize,
+    /// Write the images into one folder per site below `images/` (`images/hillmoor/…`), the
+    /// way the cooperative keeps them and a sweep groups them, instead of all in the top folder.
+    #[serde(default)]
+    pub by_site: bool,
 }
 
 impl Default for SetSpec {
@@ -117,6 +121,7 @@ impl Default for SetSpec {
             finding_contrast: DEFAULT_CONTRAST,
             masks: true,
             dicom: 0,
+            by_site: false,
         }
     }
 }
@@ -279,7 +284,12 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
             ctl.check()?;
             let p = render(&spec.phantom(i));
             let stem = spec.stem(i, p.row.site);
-            write_png(&to_gray_image(&p.image), &out.join(format!("{stem}.png")))?;
+            let file = if spec.by_site { format!("images/{}/{stem}.png", p.row.site.name()) } else { format!("{stem}.png") };
+            let image_path = out.join(&file);
+            if let Some(dir) = image_path.parent() {
+                std::fs::create_dir_all(dir).with_context(|| format!("cannot create folder {}", dir.display()))?;
+            }
+            write_png(&to_gray_image(&p.image), &image_path)?;
             if spec.masks {
                 for (what, m) in [("tag", &p.tag_mask), ("frame", &p.frame_mask), ("finding", &p.finding_mask)] {
                     write_png(&mask_image(m), &masks.join(format!("{stem}.{what}.png")))?;
@@ -289,7 +299,7 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
                 dicom::write_demo_copy(&dicom_dir.join(format!("{stem}.dcm")), &p, i as u32)?;
             }
             ctl.advance(1);
-            Ok(ManifestRow { file: format!("{stem}.png"), ..p.row })
+            Ok(ManifestRow { file, ..p.row })
         })
         .collect::<Result<Vec<_>>>()?;
     let mut csv = String::from(MANIFEST_HEADER);

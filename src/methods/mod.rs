@@ -32,7 +32,7 @@ pub use integrated::MAX_REFINED_STEPS;
 pub use occlusion::window_starts;
 pub use quadrature::{Rule, gauss_legendre};
 pub use reading::{Reading, Target};
-pub use removal::{assess, removals};
+pub use removal::{assess, assess_input, removals};
 pub use request::{Method, Request, ScoreKind, TargetSpec};
 pub use score::{Scorer, resolve_target, softmax, top_index};
 

@@ -10,7 +10,9 @@ use super::{Input, Reading, Scorer, top_index};
 use crate::control::Control;
 use crate::feed::FeedCard;
 use crate::model::Model;
-use crate::regions::{Assessment, Fill, FlagSettings, Region, Removal, Removals, assess_with_removals, paint_out, paint_out_all};
+use crate::regions::{
+    Assessment, Fill, FinderSettings, FlagSettings, Region, Removal, Removals, assess_with_removals, find_regions, paint_out, paint_out_all,
+};
 
 /// Paints each of `regions` out of the picture `input`, then all of them together, and scores
 /// the results for the reading's target and score kind. `None` for a tensor input (no picture
@@ -58,4 +60,23 @@ pub fn assess(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &R
         Input::Tensor { .. } => None,
     };
     assess_with_removals(&reading.map2d(), regions, removals.as_ref(), declared, flag)
+}
+
+/// For a picture: its regions (the finders', told of the file's own Burned In Annotation, then
+/// `drawn`, the ones a person drew) and the reading assessed against them with both kinds of
+/// evidence. `None` for a tensor (no image to search). `spurion explain`, the sweep and the
+/// inspector all come here, so the same image gets the same verdict from each.
+pub fn assess_input(
+    model: &Model,
+    card: Option<&FeedCard>,
+    input: &Input,
+    reading: &Reading,
+    drawn: Vec<Region>,
+    finder: &FinderSettings,
+    flag: &FlagSettings,
+) -> Result<Option<Assessment>> {
+    let Input::Picture { picture, .. } = input else { return Ok(None) };
+    let mut regions = find_regions(&picture.luminance(), &finder.for_picture(picture.burned_in_annotation()));
+    regions.extend(drawn);
+    Ok(Some(assess(model, card, input, reading, &regions, flag)?))
 }

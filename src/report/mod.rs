@@ -1,8 +1,8 @@
 //! The files spurion writes for other tools and people to read, as typed, serialisable values
-//! built from the engine's results (so every front end writes the same file).
+//! built from the engine's results (so every front end writes the same file): a reading's
+//! `reading.json`, and a sweep's tables, pictures and report.
 
 mod reading;
-mod sweep;
+pub mod sweep;
 
-pub use reading::{PatientData, ReadingFile, SourceFacts, assess_input};
-pub use sweep::sweep_html;
+pub use reading::{PatientData, ReadingFile, SourceFacts};

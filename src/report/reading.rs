@@ -6,10 +6,9 @@ use serde::Serialize;
 
 use crate::feed::dicom::DicomSummary;
 use crate::feed::window::ResolvedWindow;
-use crate::feed::{FeedCard, Picture};
+use crate::feed::Picture;
 use crate::methods::{Input, Reading};
-use crate::model::Model;
-use crate::regions::{Assessment, FinderSettings, FlagSettings, find_regions};
+use crate::regions::Assessment;
 
 /// The content of `reading.json`. `spurion explain` writes it, the inspector's JSON export
 /// writes it too (with the regions it already found).
@@ -127,15 +126,6 @@ impl<'a> ReadingFile<'a> {
     }
 }
 
-/// For a picture, finds its regions (default finder settings) and assesses the reading against
-/// them with both kinds of evidence and the default flag; `None` for a tensor.
-pub fn assess_input(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading) -> Result<Option<Assessment>> {
-    let Input::Picture { picture, .. } = input else { return Ok(None) };
-    let finder = FinderSettings::default().for_picture(picture.burned_in_annotation());
-    let regions = find_regions(&picture.luminance(), &finder);
-    Ok(Some(crate::methods::assess(model, card, input, reading, &regions, &FlagSettings::default())?))
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -167,7 +157,7 @@ mod tests {
             channel_axis: None,
         };
         let map = ndarray::Array2::<f32>::zeros((2, 2));
-        let a = crate::regions::assess_regions(&map, &[], &FlagSettings::default()).unwrap();
+        let a = crate::regions::assess_regions(&map, &[], &crate::regions::FlagSettings::default()).unwrap();
         let v = ReadingFile::new(&reading, Some(a)).to_json().unwrap();
         assert!(v.get("suspect_reason").is_some() && v.get("method").is_some() && v.get("caution").is_some());
     }

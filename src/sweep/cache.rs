@@ -30,10 +30,11 @@ pub struct Cache {
     dir: PathBuf,
 }
 
-/// The key of one image's result.
-pub fn key(model_sha256: &str, content_sha256: &str, settings: &str) -> String {
+/// The key of one image's result: the model, the image's content, the sweep's settings, what
+/// else decides this image's result (regions drawn on it), and spurion's version.
+pub fn key(model_sha256: &str, content_sha256: &str, settings: &str, image_extra: &str) -> String {
     let mut h = Sha256::new();
-    for part in [model_sha256, content_sha256, settings, env!("CARGO_PKG_VERSION")] {
+    for part in [model_sha256, content_sha256, settings, image_extra, env!("CARGO_PKG_VERSION")] {
         h.update(part.as_bytes());
         h.update([0u8]);
     }

@@ -1,13 +1,14 @@
 //! Sweeps: one reading per image over a whole folder, resumable through a content-addressed
 //! cache, sliced into shards for a cluster's scheduler, with dataset-level evidence per group
-//! (atlas, flip rate, repeated patches, rates with intervals) and a self-contained report.
+//! (atlas, flip rate, repeated patches, rates with intervals).
 //!
 //! The pieces: which images and groups ([`plan`]), one image ([`read`]), the cache
-//! ([`cache`]), one shard ([`run`]), the groups' figures ([`summary`], [`stats`]) and the files
-//! ([`output`]).
+//! ([`cache`]), one shard ([`run`]), joining shards ([`merge`]) and the groups' figures
+//! ([`summary`], [`stats`]). The files a sweep writes (tables, atlas pictures, the report) are
+//! `report::sweep`'s.
 
 pub mod cache;
-pub mod output;
+pub mod merge;
 pub mod plan;
 pub mod read;
 pub mod row;
@@ -16,9 +17,9 @@ pub mod stats;
 pub mod summary;
 
 pub use cache::Cache;
-pub use output::{RunFacts, merge, read as read_output, write as write_output};
-pub use plan::{Groups, Item, Shard, plan};
+pub use merge::merge;
+pub use plan::{Exclude, Groups, Item, Shard, plan};
 pub use read::Setup;
 pub use row::Row;
-pub use run::{ShardResult, Skipped, run_shard};
-pub use summary::{AtlasSum, GroupSummary, HotBox};
+pub use run::{RANKED, ShardResult, Skipped, ranking, run_shard};
+pub use summary::{AtlasSum, GroupSummary, HotBox, summarise};

@@ -100,25 +100,77 @@ pub struct Item {
     pub group: String,
 }
 
-/// Every image below `root`, sorted by relative path, with its group, and the slice `shard` of
-/// them: image i (in that order) belongs to shard (i mod N) + 1.
-pub fn plan(root: &Path, groups: &Groups, shard: Shard) -> Result<Vec<Item>> {
+/// Paths left out of a sweep, as `--exclude` patterns: `*` stands for any run of characters
+/// within one part of a path, `?` for one character, `**` for any number of parts. A pattern
+/// with no `/` is matched against every part (a folder or file name anywhere: `masks`,
+/// `*.seg.png`); one with a `/` against the whole path relative to the images folder
+/// (`hillmoor/old/**`). Common practice in the ignore files of version control and build tools.
+#[derive(Clone, Debug, Default)]
+pub struct Exclude {
+    patterns: Vec<String>,
+}
+
+impl Exclude {
+    pub fn new(patterns: &[String]) -> Result<Exclude> {
+        for p in patterns {
+            if p.trim().is_empty() {
+                bail!("--exclude needs a pattern (a name like masks or *.seg.png, or a path like site/old/**)");
+            }
+        }
+        Ok(Exclude { patterns: patterns.iter().map(|p| p.trim().trim_start_matches("./").trim_end_matches('/').to_string()).collect() })
+    }
+
+    /// Whether the relative path `rel` (`/` between parts) is left out.
+    pub fn excludes(&self, rel: &str) -> bool {
+        let parts: Vec<&str> = rel.split('/').collect();
+        self.patterns.iter().any(|p| {
+            if p.contains('/') {
+                let pat: Vec<&str> = p.split('/').collect();
+                // A folder pattern leaves out everything below the folder too.
+                (1..=parts.len()).any(|n| glob_parts(&pat, &parts[..n]))
+            } else {
+                parts.iter().any(|part| glob_part(p.as_bytes(), part.as_bytes()))
+            }
+        })
+    }
+}
+
+fn glob_parts(pat: &[&str], parts: &[&str]) -> bool {
+    match pat.split_first() {
+        None => parts.is_empty(),
+        Some((&"**", rest)) => (0..=parts.len()).any(|k| glob_parts(rest, &parts[k..])),
+        Some((p, rest)) => !parts.is_empty() && glob_part(p.as_bytes(), parts[0].as_bytes()) && glob_parts(rest, &parts[1..]),
+    }
+}
+
+fn glob_part(p: &[u8], s: &[u8]) -> bool {
+    match p.split_first() {
+        None => s.is_empty(),
+        Some((b'*', rest)) => (0..=s.len()).any(|k| glob_part(rest, &s[k..])),
+        Some((b'?', rest)) => !s.is_empty() && glob_part(rest, &s[1..]),
+        Some((c, rest)) => s.first() == Some(c) && glob_part(rest, &s[1..]),
+    }
+}
+
+/// A path below `root` as the sweep names it: relative, `/` between parts.
+fn relative(root: &Path, p: &Path) -> String {
+    p.strip_prefix(root).unwrap_or(p).components().map(|c| c.as_os_str().to_string_lossy().into_owned()).collect::<Vec<_>>().join("/")
+}
+
+/// Every image below `root` that `exclude` keeps, sorted by relative path, with its group, and
+/// the slice `shard` of them: image i (in that order) belongs to shard (i mod N) + 1.
+pub fn plan(root: &Path, groups: &Groups, exclude: &Exclude, shard: Shard) -> Result<Vec<Item>> {
     if !root.is_dir() {
         bail!("the images folder {} does not exist or is not a folder", root.display());
     }
     let mut files = vec![];
     walk(root, &mut files)?;
-    let mut rels: Vec<(String, PathBuf)> = files
-        .into_iter()
-        .map(|p| {
-            let rel = p.strip_prefix(root).unwrap_or(&p).components().map(|c| c.as_os_str().to_string_lossy().into_owned()).collect::<Vec<_>>().join("/");
-            (rel, p)
-        })
-        .collect();
+    let mut rels: Vec<(String, PathBuf)> =
+        files.into_iter().map(|p| (relative(root, &p), p)).filter(|(rel, _)| !exclude.excludes(rel)).collect();
     rels.sort();
     let lookup = match groups {
         Groups::Folders => None,
-        Groups::Manifest { file, column } => Some(read_groups(file, column)?),
+        Groups::Manifest { file, column } => Some(read_groups(file, column, root)?),
     };
     let mut items = vec![];
     for (i, (rel, path)) in rels.into_iter().enumerate() {
@@ -151,8 +203,11 @@ fn walk(dir: &Path, out: &mut Vec<PathBuf>) -> Result<()> {
     Ok(())
 }
 
-/// Relative path → group, from a CSV manifest.
-fn read_groups(file: &Path, column: &str) -> Result<HashMap<String, String>> {
+/// Relative path (to the images folder) → group, from a CSV manifest whose paths are relative
+/// to the manifest's own folder or to the images folder.
+fn read_groups(file: &Path, column: &str, root: &Path) -> Result<HashMap<String, String>> {
+    let here = file.parent().unwrap_or(Path::new("."));
+    let (here_abs, root_abs) = (std::path::absolute(here)?, std::path::absolute(root)?);
     let mut r = csv::Reader::from_path(file).with_context(|| format!("cannot read the groups manifest {}", file.display()))?;
     let headers = r.headers().with_context(|| format!("the groups manifest {} has no header row", file.display()))?.clone();
     let find = |name: &str| headers.iter().position(|h| h.trim() == name);
@@ -166,9 +221,29 @@ fn read_groups(file: &Path, column: &str) -> Result<HashMap<String, String>> {
     for (i, rec) in r.records().enumerate() {
         let rec = rec.with_context(|| format!("line {} of the groups manifest {} is not valid CSV", i + 2, file.display()))?;
         let (Some(p), Some(g)) = (rec.get(path_col), rec.get(group_col)) else { continue };
-        m.insert(p.trim().trim_start_matches("./").replace('\\', "/"), g.trim().to_string());
+        let p = p.trim().trim_start_matches("./").replace('\\', "/");
+        // Relative to the manifest's folder, when that lands inside the images folder.
+        if let Ok(rel) = normalise(&here_abs.join(&p)).strip_prefix(&root_abs) {
+            m.insert(relative(Path::new(""), rel), g.trim().to_string());
+        }
+        m.entry(p).or_insert_with(|| g.trim().to_string());
     }
     Ok(m)
+}
+
+/// `a/b/../c` → `a/c`, without touching the file system.
+fn normalise(p: &Path) -> PathBuf {
+    let mut out = PathBuf::new();
+    for c in p.components() {
+        match c {
+            std::path::Component::ParentDir => {
+                out.pop();
+            }
+            std::path::Component::CurDir => {}
+            c => out.push(c),
+        }
+    }
+    out
 }
 
 #[cfg(test)]
@@ -205,13 +280,33 @@ mod tests {
         }
         std::fs::write(dir.path().join("top.png"), b"x").unwrap();
         std::fs::write(dir.path().join("notes.txt"), b"x").unwrap();
-        let all = plan(dir.path(), &Groups::Folders, Shard::ALL).unwrap();
+        let all = plan(dir.path(), &Groups::Folders, &Exclude::default(), Shard::ALL).unwrap();
         assert_eq!(all.len(), 9);
         assert_eq!(all[0].rel, "a/0.png");
         assert_eq!(all[0].group, "a");
         assert_eq!(all.last().unwrap().group, ".");
-        let mut joined: Vec<String> = (1..=3).flat_map(|k| plan(dir.path(), &Groups::Folders, Shard { index: k, count: 3 }).unwrap()).map(|i| i.rel).collect();
+        let mut joined: Vec<String> = (1..=3).flat_map(|k| plan(dir.path(), &Groups::Folders, &Exclude::default(), Shard { index: k, count: 3 }).unwrap()).map(|i| i.rel).collect();
         joined.sort();
         assert_eq!(joined, all.iter().map(|i| i.rel.clone()).collect::<Vec<_>>());
+    }
+}
+
+#[cfg(test)]
+mod exclude_tests {
+    use super::*;
+
+    #[test]
+    fn patterns_leave_out_names_anywhere_and_paths_from_the_top() {
+        let x = Exclude::new(&["masks".into(), "*.seg.png".into(), "hillmoor/old/**".into(), "a?c/x.png".into()]).unwrap();
+        assert!(x.excludes("masks/0001.tag.png"));
+        assert!(x.excludes("hillmoor/masks/0001.png"));
+        assert!(x.excludes("north-quay/0003.seg.png"));
+        assert!(x.excludes("hillmoor/old/2019/a.png"));
+        assert!(x.excludes("abc/x.png"));
+        assert!(!x.excludes("hillmoor/0005.png"));
+        assert!(!x.excludes("saltmarsh/old/a.png"), "a pattern with a / is anchored at the top");
+        assert!(!x.excludes("masksx/0001.png"), "a name matches a whole part");
+        assert!(!x.excludes("abbc/x.png"));
+        assert!(Exclude::new(&[" ".into()]).is_err());
     }
 }

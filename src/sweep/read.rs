@@ -1,9 +1,11 @@
-//! One image of a sweep: opened and fed as `spurion explain` would, read, its regions found,
-//! assessed with both kinds of evidence, and turned into a row and a map on the model grid.
+//! One image of a sweep: opened and fed as `spurion explain` would, read, its regions found (and
+//! any drawn ones added), assessed with both kinds of evidence, and turned into a row and a map
+//! on the model grid.
 
+use std::collections::BTreeMap;
 use std::time::Instant;
 
-use anyhow::Result;
+use anyhow::{Context, Result};
 use ndarray::{Array2, ArrayD, Axis};
 use serde_json::json;
 
@@ -14,7 +16,8 @@ use crate::control::Control;
 use crate::feed::{FeedCard, OpenOptions, Picture};
 use crate::methods::{self, Input, Request, top_index};
 use crate::model::Model;
-use crate::regions::{FinderSettings, FlagSettings, find_regions};
+use crate::regions::drawn::drawn_region;
+use crate::regions::{DrawnShape, FinderSettings, FlagSettings};
 
 /// Everything that decides each image's result besides the image itself.
 pub struct Setup<'a> {
@@ -24,6 +27,8 @@ pub struct Setup<'a> {
     pub open: OpenOptions,
     pub finder: FinderSettings,
     pub flag: FlagSettings,
+    /// Regions a person drew, by image path relative to the images folder (from a ledger).
+    pub drawn: BTreeMap<String, Vec<DrawnShape>>,
 }
 
 impl Setup<'_> {
@@ -41,16 +46,33 @@ impl Setup<'_> {
         .to_string()
     }
 
+    /// What besides the settings and the image's content decides one image's result: the
+    /// regions drawn on it (empty text when none).
+    pub fn image_extra(&self, item: &Item) -> String {
+        self.drawn.get(&item.rel).filter(|d| !d.is_empty()).map(|d| json!(d).to_string()).unwrap_or_default()
+    }
+
     /// Reads one image.
     pub fn read(&self, item: &Item, ctl: &Control) -> Result<Entry> {
         let started = Instant::now();
         let picture = Picture::open_with(&item.path, &self.open)?;
         let declared = picture.burned_in_annotation();
-        let luminance = picture.luminance();
+        let (h, w) = (picture.height(), picture.width());
+        let drawn = self
+            .drawn
+            .get(&item.rel)
+            .map(|shapes| {
+                shapes
+                    .iter()
+                    .map(|s| drawn_region(s, h, w).with_context(|| format!("drawn region \"{}\" of {}", s.label, item.rel)))
+                    .collect::<Result<Vec<_>>>()
+            })
+            .transpose()?
+            .unwrap_or_default();
         let input = Input::picture(picture, self.card)?;
         let reading = methods::explain(self.model, Some(self.card), &input, self.request, ctl)?;
-        let regions = find_regions(&luminance, &self.finder.for_picture(declared));
-        let a = methods::assess(self.model, Some(self.card), &input, &reading, &regions, &self.flag)?;
+        let a = methods::assess_input(self.model, Some(self.card), &input, &reading, drawn, &self.finder, &self.flag)?
+            .context("a picture always has an assessment")?;
         let grid = grid_map(&reading.tensor_map, input.spatial_axes()?);
         let scores = ndarray::Array1::from(reading.scores.clone());
         let top = top_index(&scores);
@@ -76,30 +98,11 @@ impl Setup<'_> {
             region_labels: a.regions.iter().map(|r| r.label.clone()).collect::<Vec<_>>().join("; "),
             completeness_gap: reading.completeness_gap,
             burned_in_annotation: declared,
+            verdict: None,
             seconds: started.elapsed().as_secs_f64(),
         };
         Ok(Entry { row, grid })
     }
-}
-
-/// The picture on the model's grid and the supporting map tinted over it, as PNG bytes: the
-/// thumbnails of the report's ranked images.
-pub fn thumbnails(card: &FeedCard, open: &OpenOptions, item: &Item, grid: &Array2<f32>) -> Result<(Vec<u8>, Vec<u8>)> {
-    let picture = Picture::open_with(&item.path, open)?;
-    let feeder = crate::feed::Feeder::for_picture(card, &picture)?;
-    let small = feeder.prepare(&picture.pixels)?;
-    let png = |img: &image::RgbImage| -> Result<Vec<u8>> {
-        let mut bytes = vec![];
-        img.write_to(&mut std::io::Cursor::new(&mut bytes), image::ImageFormat::Png)?;
-        Ok(bytes)
-    };
-    let plain = crate::render::picture_rgb(&small);
-    if grid.dim() != (small.shape()[0], small.shape()[1]) {
-        return Ok((png(&plain)?, png(&plain)?));
-    }
-    let scale = crate::render::robust_scale(grid);
-    let tint = crate::render::tint(&small, grid, scale, crate::methods::defaults::SIGN, crate::methods::defaults::OPACITY);
-    Ok((png(&plain)?, png(&tint)?))
 }
 
 /// A map on the model-input tensor summed over every axis but the two spatial ones: the map on

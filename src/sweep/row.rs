@@ -31,6 +31,10 @@ pub struct Row {
     pub completeness_gap: Option<f64>,
     /// Burned In Annotation as the file declares it (DICOM only).
     pub burned_in_annotation: Option<bool>,
+    /// The curator's verdict on the image in the ledger given to the sweep (clean, marked,
+    /// unsure, exclude), as it stood when the files were written; empty without a ledger.
+    #[serde(default)]
+    pub verdict: Option<String>,
     /// Seconds this image's reading took when it was computed (a cached row keeps them).
     pub seconds: f64,
 }

@@ -6,6 +6,7 @@ use std::path::PathBuf;
 use std::sync::atomic::{AtomicUsize, Ordering};
 
 use anyhow::Result;
+use ndarray::Array2;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
@@ -23,7 +24,7 @@ pub struct Skipped {
     pub reason: String,
 }
 
-/// What one shard found.
+/// What one shard found (or, merged, a whole sweep).
 pub struct ShardResult {
     /// The settings every shard of one sweep must share.
     pub settings: String,
@@ -36,8 +37,11 @@ pub struct ShardResult {
     /// Images read in this run, and taken from the cache.
     pub computed: usize,
     pub cached: usize,
-    /// The report's thumbnails (the picture and its tinted map, PNG bytes) of this shard's
-    /// [`RANKED`] images with the largest mark share: merged shards hold those of the whole sweep.
+    /// The maps on the model grid of the [`RANKED`] images with the largest mark share, for the
+    /// report's thumbnails.
+    pub ranked_maps: BTreeMap<String, Array2<f32>>,
+    /// Thumbnails already drawn (the picture and its tinted map, PNG bytes), by image path:
+    /// those of shards read back from their folders for merging.
     pub thumbs: BTreeMap<String, (Vec<u8>, Vec<u8>)>,
 }
 
@@ -62,7 +66,7 @@ pub fn run_shard(setup: &Setup<'_>, items: &[Item], cache: &Cache, shard: Shard,
         .map(|item| -> Result<std::result::Result<Entry, String>> {
             ctl.check()?;
             let got = (|| -> Result<Entry> {
-                let k = key(&model_sha, &content_sha256(&item.path)?, &settings);
+                let k = key(&model_sha, &content_sha256(&item.path)?, &settings, &setup.image_extra(item));
                 if let Some(mut e) = cache.get(&k) {
                     cached.fetch_add(1, Ordering::Relaxed);
                     e.row.path = item.rel.clone();
@@ -96,20 +100,14 @@ pub fn run_shard(setup: &Setup<'_>, items: &[Item], cache: &Cache, shard: Shard,
                 if a.sum.dim() == e.grid.dim() {
                     a.add(&e.grid);
                 }
-                read.push((item, e));
+                read.push(e);
             }
             Err(reason) => skipped.push(Skipped { path: item.rel.clone(), reason }),
         }
     }
-    read.sort_by(|a, b| ranking(&a.1.row, &b.1.row));
-    let mut thumbs = BTreeMap::new();
-    for (item, e) in read.iter().take(RANKED) {
-        // An image that opened a moment ago and does not now gets no thumbnail, not an error.
-        if let Ok(t) = super::read::thumbnails(setup.card, &setup.open, item, &e.grid) {
-            thumbs.insert(item.rel.clone(), t);
-        }
-    }
-    let mut rows: Vec<Row> = read.into_iter().map(|(_, e)| e.row).collect();
+    read.sort_by(|a, b| ranking(&a.row, &b.row));
+    let ranked_maps = read.iter().take(RANKED).map(|e| (e.row.path.clone(), e.grid.clone())).collect();
+    let mut rows: Vec<Row> = read.into_iter().map(|e| e.row).collect();
     rows.sort_by(|a, b| a.path.cmp(&b.path));
     Ok(ShardResult {
         settings,
@@ -120,6 +118,7 @@ pub fn run_shard(setup: &Setup<'_>, items: &[Item], cache: &Cache, shard: Shard,
         atlas,
         computed: computed.into_inner(),
         cached: cached.into_inner(),
-        thumbs,
+        ranked_maps,
+        thumbs: BTreeMap::new(),
     })
 }

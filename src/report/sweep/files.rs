@@ -14,14 +14,12 @@
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
-use anyhow::{Context, Result, bail};
+use anyhow::{Context, Result};
 use ndarray::{Array2, ArrayD};
 use serde::{Deserialize, Serialize};
 
-use super::plan::Shard;
-use super::row::Row;
-use super::run::{ShardResult, Skipped};
-use super::summary::{AtlasSum, GroupSummary, summarise};
+use super::pictures::{ThumbSource, atlas_picture, thumbnails};
+use crate::sweep::{AtlasSum, GroupSummary, Row, Shard, ShardResult, Skipped, summarise};
 
 #[derive(Serialize, Deserialize)]
 struct Partial {
@@ -65,8 +63,9 @@ fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
 }
 
 /// Writes every file of a finished shard (or whole sweep) into `out`, and returns the groups'
-/// figures.
-pub fn write(result: &ShardResult, out: &Path, seconds: f64) -> Result<Vec<GroupSummary>> {
+/// figures. Thumbnails the result does not hold yet are drawn from its ranked maps, opening the
+/// images again through `thumbs` (an image that no longer opens gets none, not an error).
+pub fn write(result: &ShardResult, out: &Path, seconds: f64, thumbs: Option<&ThumbSource<'_>>) -> Result<Vec<GroupSummary>> {
     std::fs::create_dir_all(out.join("atlas")).with_context(|| format!("cannot create the output folder {} (check permissions or choose another --out)", out.display()))?;
     let groups = summarise(&result.rows, &result.atlas, &result.images_root)?;
     let mut csv = csv::Writer::from_writer(vec![]);
@@ -95,8 +94,18 @@ pub fn write(result: &ShardResult, out: &Path, seconds: f64) -> Result<Vec<Group
         atlas_files.insert(g.clone(), (st, a.count));
     }
     std::fs::create_dir_all(out.join("thumbs")).with_context(|| format!("cannot create {}", out.join("thumbs").display()))?;
+    let mut drawn = result.thumbs.clone();
+    if let Some(src) = thumbs {
+        for (path, grid) in &result.ranked_maps {
+            if !drawn.contains_key(path)
+                && let Ok(t) = thumbnails(src, &result.images_root.join(path), grid)
+            {
+                drawn.insert(path.clone(), t);
+            }
+        }
+    }
     let mut thumb_files = BTreeMap::new();
-    for (path, (plain, tint)) in &result.thumbs {
+    for (path, (plain, tint)) in &drawn {
         let st = stem(path);
         write_atomic(&out.join("thumbs").join(format!("{st}.png")), plain)?;
         write_atomic(&out.join("thumbs").join(format!("{st}.tint.png")), tint)?;
@@ -110,7 +119,7 @@ pub fn write(result: &ShardResult, out: &Path, seconds: f64) -> Result<Vec<Group
         thumbs: thumb_files,
     };
     write_atomic(&out.join("partial.json"), (serde_json::to_string_pretty(&partial)? + "\n").as_bytes())?;
-    let html = crate::report::sweep_html(result, &groups)?;
+    let html = super::html::sweep_html(result, &groups, &drawn)?;
     write_atomic(&out.join("report.html"), html.as_bytes())?;
     let facts = RunFacts {
         version: env!("CARGO_PKG_VERSION").into(),
@@ -123,17 +132,6 @@ pub fn write(result: &ShardResult, out: &Path, seconds: f64) -> Result<Vec<Group
     };
     write_atomic(&out.join("run.json"), (serde_json::to_string_pretty(&facts)? + "\n").as_bytes())?;
     Ok(groups)
-}
-
-/// An atlas as a picture: the sequential colour map from 0 to the atlas's largest value,
-/// scaled up (nearest) to at least 256 pixels across.
-pub fn atlas_picture(atlas: &Array2<f64>) -> image::RgbImage {
-    let (h, w) = atlas.dim();
-    let top = atlas.iter().cloned().fold(0.0, f64::max).max(f64::MIN_POSITIVE);
-    let up = (256 / w.max(1)).max(1) as u32;
-    image::RgbImage::from_fn(w as u32 * up, h as u32 * up, |x, y| {
-        image::Rgb(crate::render::sequential((atlas[[(y / up) as usize, (x / up) as usize]] / top) as f32))
-    })
 }
 
 fn write_i64(path: &Path, a: &Array2<i64>) -> Result<()> {
@@ -187,67 +185,7 @@ pub fn read(dir: &Path) -> Result<ShardResult> {
         atlas,
         computed: run.as_ref().map_or(0, |r| r.computed),
         cached: run.as_ref().map_or(0, |r| r.cached),
+        ranked_maps: BTreeMap::new(),
         thumbs,
     })
-}
-
-/// Joins the shards of one sweep (each 1..N exactly once, all with the same settings and images
-/// folder) into the result an unsharded run gives.
-pub fn merge(parts: Vec<ShardResult>, dirs: &[PathBuf]) -> Result<ShardResult> {
-    let Some(first) = parts.first() else { bail!("give the output folders of the shards to merge") };
-    let n = first.shard.count;
-    let mut seen = vec![false; n];
-    for (p, d) in parts.iter().zip(dirs) {
-        if p.settings != first.settings || p.images_root != first.images_root {
-            bail!(
-                "{} is a shard of another sweep than {} (other settings or images folder); merge the shards of one sweep",
-                d.display(),
-                dirs[0].display()
-            );
-        }
-        if p.shard.count != n {
-            bail!("{} is shard {}/{}, but {} is of {n} shards", d.display(), p.shard.index, p.shard.count, dirs[0].display());
-        }
-        if std::mem::replace(&mut seen[p.shard.index - 1], true) {
-            bail!("shard {}/{n} is given twice (again as {})", p.shard.index, d.display());
-        }
-    }
-    let missing: Vec<String> = (1..=n).filter(|k| !seen[k - 1]).map(|k| format!("{k}/{n}")).collect();
-    if !missing.is_empty() {
-        bail!("shard(s) {} are missing; run them (or give their folders) before merging", missing.join(", "));
-    }
-    let mut out = ShardResult {
-        settings: first.settings.clone(),
-        images_root: first.images_root.clone(),
-        shard: Shard::ALL,
-        rows: vec![],
-        skipped: vec![],
-        atlas: BTreeMap::new(),
-        computed: 0,
-        cached: 0,
-        thumbs: BTreeMap::new(),
-    };
-    for p in parts {
-        out.thumbs.extend(p.thumbs);
-        out.rows.extend(p.rows);
-        out.skipped.extend(p.skipped);
-        out.computed += p.computed;
-        out.cached += p.cached;
-        for (g, a) in p.atlas {
-            match out.atlas.get_mut(&g) {
-                Some(s) => s.merge(&a),
-                None => {
-                    out.atlas.insert(g, a);
-                }
-            }
-        }
-    }
-    out.rows.sort_by(|a, b| a.path.cmp(&b.path));
-    out.skipped.sort_by(|a, b| a.path.cmp(&b.path));
-    // The sweep's ranked images are among the shards' own (each keeps its top ones).
-    let mut ranked: Vec<&Row> = out.rows.iter().collect();
-    ranked.sort_by(|a, b| super::run::ranking(a, b));
-    let keep: std::collections::BTreeSet<String> = ranked.iter().take(super::run::RANKED).map(|r| r.path.clone()).collect();
-    out.thumbs.retain(|p, _| keep.contains(p));
-    Ok(out)
 }

@@ -8,10 +8,12 @@ use anyhow::Result;
 use base64::Engine;
 use plotters::prelude::*;
 
-use crate::sweep::output::atlas_picture;
-use crate::sweep::run::{RANKED, ranking};
+use super::pictures::{atlas_picture, png_bytes};
 use crate::sweep::stats::Interval;
-use crate::sweep::{GroupSummary, Row, ShardResult};
+use crate::sweep::{GroupSummary, RANKED, Row, ShardResult, ranking};
+
+/// Thumbnails by image path: the picture and its tinted map, PNG bytes.
+type Thumbs = std::collections::BTreeMap<String, (Vec<u8>, Vec<u8>)>;
 
 fn esc(s: &str) -> String {
     s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('"', "&quot;")
@@ -19,12 +21,6 @@ fn esc(s: &str) -> String {
 
 fn data_uri(png: &[u8]) -> String {
     format!("data:image/png;base64,{}", base64::engine::general_purpose::STANDARD.encode(png))
-}
-
-fn png_bytes(img: &image::RgbImage) -> Result<Vec<u8>> {
-    let mut bytes = vec![];
-    img.write_to(&mut std::io::Cursor::new(&mut bytes), image::ImageFormat::Png)?;
-    Ok(bytes)
 }
 
 fn pct(i: &Option<Interval>) -> String {
@@ -51,7 +47,7 @@ small{color:#667}.caution{border-left:4px solid #a998e6;padding:6px 10px;backgro
 .atlases figure{margin:0}img.pix{image-rendering:pixelated}figcaption{font-size:12px;max-width:300px}";
 
 /// The report of a finished sweep (or shard).
-pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary]) -> Result<String> {
+pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary], thumbs: &Thumbs) -> Result<String> {
     let rows = &result.rows;
     let mut h = String::new();
     let suspect = rows.iter().filter(|r| r.suspect).count();
@@ -75,7 +71,7 @@ pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary]) -> Result<Strin
     atlases(&mut h, result, groups)?;
     writeln!(h, "<h2>Mark share by group</h2><p><small>Share of each image's supporting attribution on its found regions together.</small></p>")?;
     h.push_str(&histograms(rows, groups)?);
-    ranked(&mut h, result)?;
+    ranked(&mut h, result, thumbs)?;
     if !result.skipped.is_empty() {
         writeln!(h, "<h2>Images that could not be read</h2><table><tr><th>image</th><th>why</th></tr>")?;
         for s in &result.skipped {
@@ -216,7 +212,7 @@ fn histograms(rows: &[Row], groups: &[GroupSummary]) -> Result<String> {
     Ok(svg)
 }
 
-fn ranked(h: &mut String, result: &ShardResult) -> Result<()> {
+fn ranked(h: &mut String, result: &ShardResult, thumbs: &Thumbs) -> Result<()> {
     let mut rows: Vec<&Row> = result.rows.iter().collect();
     rows.sort_by(|a, b| ranking(a, b));
     writeln!(
@@ -226,7 +222,7 @@ fn ranked(h: &mut String, result: &ShardResult) -> Result<()> {
         RANKED.min(rows.len())
     )?;
     for (i, r) in rows.iter().take(RANKED).enumerate() {
-        let (plain, tint) = match result.thumbs.get(&r.path) {
+        let (plain, tint) = match thumbs.get(&r.path) {
             Some((p, t)) => (
                 format!("<img class=\"pix\" width=\"96\" src=\"{}\" alt=\"{}\">", data_uri(p), esc(&r.path)),
                 format!("<img class=\"pix\" width=\"96\" src=\"{}\" alt=\"map of {}\">", data_uri(t), esc(&r.path)),
