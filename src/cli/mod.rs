@@ -4,6 +4,7 @@
 
 mod explain;
 mod feed;
+mod ledger;
 mod reading_args;
 mod regions;
 
@@ -46,6 +47,8 @@ pub enum Command {
     /// An image exactly as it is decoded and windowed for the model (before resizing and
     /// normalisation), as a float32 .npy.
     Feed(feed::FeedArgs),
+    /// The curator's ledger: verdicts, notes and drawn regions per image, saved at once.
+    Ledger(ledger::LedgerArgs),
     /// Writes a demo set of phantom images with ground-truth masks and a manifest.
     Demo(DemoArgs),
     /// Opens the desktop inspector.
@@ -227,6 +230,7 @@ pub fn run(command: Command) -> Result<()> {
         Command::Regions(a) => regions::run(&a.image, a.out.as_deref(), &Default::default()),
         Command::Demo(a) => demo(&a),
         Command::Feed(a) => feed::run(&a),
+        Command::Ledger(a) => ledger::run(&a),
     }
 }
 

@@ -9,7 +9,7 @@ use crate::feed::window::ResolvedWindow;
 use crate::feed::{FeedCard, Picture};
 use crate::methods::{Input, Reading};
 use crate::model::Model;
-use crate::regions::{Assessment, FinderSettings, FlagSettings, find_regions};
+use crate::regions::{Assessment, FinderSettings, FlagSettings, Region, find_regions};
 
 /// The content of `reading.json`. `spurion explain` writes it, the inspector's JSON export
 /// writes it too (with the regions it already found).
@@ -127,12 +127,14 @@ impl<'a> ReadingFile<'a> {
     }
 }
 
-/// For a picture, finds its regions (default finder settings) and assesses the reading against
-/// them with both kinds of evidence and the default flag; `None` for a tensor.
-pub fn assess_input(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading) -> Result<Option<Assessment>> {
+/// For a picture, finds its regions (default finder settings), adds the `drawn` ones (a
+/// person's, on the picture's grid), and assesses the reading against them all with both kinds
+/// of evidence and the default flag; `None` for a tensor.
+pub fn assess_input(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading, drawn: &[Region]) -> Result<Option<Assessment>> {
     let Input::Picture { picture, .. } = input else { return Ok(None) };
     let finder = FinderSettings::default().for_picture(picture.burned_in_annotation());
-    let regions = find_regions(&picture.luminance(), &finder);
+    let mut regions = find_regions(&picture.luminance(), &finder);
+    regions.extend(drawn.iter().cloned());
     Ok(Some(crate::methods::assess(model, card, input, reading, &regions, &FlagSettings::default())?))
 }
 
