@@ -143,7 +143,11 @@ pub fn parse(path: &Path, text: &str) -> Result<Ledger> {
     let v: serde_json::Value = serde_json::from_str(text).map_err(|e| damaged(path, e))?;
     match v.get("format").and_then(|f| f.as_str()) {
         Some(FORMAT) => {}
-        Some(other) => return Err(damaged(path, format!("its \"format\" is \"{other}\", not \"{FORMAT}\""))),
+        Some(other) => bail!(
+            "{} is not a spurion ledger: its \"format\" is \"{other}\", not \"{FORMAT}\". It was left as it is: \
+             give the ledger another file name",
+            path.display()
+        ),
         None => return Err(damaged(path, format!("it has no \"format\": \"{FORMAT}\""))),
     }
     match v.get("version").and_then(|x| x.as_u64()) {
@@ -187,7 +191,7 @@ fn lock(path: &Path) -> Result<Lock, SaveError> {
         .truncate(false)
         .write(true)
         .open(&lp)
-        .map_err(|e| SaveError::io(path, format!("create its lock file {}", lp.display()), &e))?;
+        .map_err(|e| SaveError::io(path, format!("open its lock file {}", lp.display()), &e))?;
     let deadline = Instant::now() + LOCK_WAIT;
     loop {
         match file.try_lock() {

@@ -33,6 +33,17 @@
 //! A newer `version` or a file that does not parse is refused with an error naming it and is
 //! never written over. Writing is in [`file`]: under a lock, re-read, change, write a temporary
 //! file in the same folder, sync it, rename it over the ledger, sync the folder.
+//!
+//! # Use
+//!
+//! - Reading (a sweep, `explain --ledger`): [`Ledger::open`] (no lock needed: a reader sees
+//!   one whole version of the file), [`Ledger::key_for`] for an image's path, then
+//!   [`Ledger::verdict`], [`Ledger::is_excluded`] and [`Ledger::drawn_regions_for`] (regions of
+//!   kind drawn region on the image's grid, to add to the found ones).
+//! - One change from a command: [`commit`] with a closure that applies [`Change`]s.
+//! - A window: [`BackgroundStore::spawn`] over a [`Store`]; [`BackgroundStore::change`] shows
+//!   at once and never waits on the disk, [`BackgroundStore::poll`] each frame,
+//!   [`BackgroundStore::status`] for what is unsaved and why, [`BackgroundStore::close`] on exit.
 
 mod change;
 mod export;
