@@ -311,7 +311,7 @@ fn import(a: &ImportArgs) -> Result<()> {
     }
     let missing: Vec<String> = rows.iter().map(|r| r.image.clone()).filter(|k| !saved.image_path(k).is_file()).collect();
     if !missing.is_empty() {
-        eprintln!("note: {} of these images are not in {}: {}", missing.len(), saved.root_dir().display(), list(&missing));
+        eprintln!("note: images of the CSV not found in {} ({}): {}", saved.root_dir().display(), missing.len(), list(&missing));
     }
     Ok(())
 }

@@ -5,7 +5,7 @@
 //! read the file's latest content, apply the change, write the whole ledger to a temporary
 //! file in the same folder, `sync_all` it, rename it over the ledger, and sync the folder so
 //! the rename itself is on disk. A reader sees the old file or the new one, never a part; a
-//! kill at any moment leaves at worst a stray temporary file, which the next writer removes.
+//! kill at any moment leaves at worst the temporary file, which the next writer replaces.
 
 use std::fs::{File, OpenOptions};
 use std::io::{self, Write};
@@ -27,13 +27,13 @@ pub trait Writer: Send {
     fn replace(&mut self, path: &Path, bytes: &[u8]) -> io::Result<()>;
 }
 
-/// The writer to the disk: [`write_durably`].
+/// The writer to the disk: [`replace_locked`].
 #[derive(Clone, Copy, Debug, Default)]
 pub struct DiskWriter;
 
 impl Writer for DiskWriter {
     fn replace(&mut self, path: &Path, bytes: &[u8]) -> io::Result<()> {
-        write_durably(path, bytes)
+        replace_locked(path, bytes)
     }
 }
 
@@ -43,32 +43,63 @@ impl<F: FnMut(&Path, &[u8]) -> io::Result<()> + Send> Writer for F {
     }
 }
 
-/// Temporary files of `path` start with this (hidden, named after the file).
-fn temp_prefix(path: &Path) -> String {
-    format!(".{}.", path.file_name().map(|n| n.to_string_lossy()).unwrap_or_default())
+/// A ledger's one temporary file, `.NAME.tmp` beside it. Only the holder of the lock writes
+/// it, so one name is enough, and what a killed writer left there is simply replaced by the
+/// next (no listing of a folder that may hold a whole dataset).
+pub fn temp_path(path: &Path) -> PathBuf {
+    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    path.with_file_name(format!(".{name}.tmp"))
 }
 
-const TEMP_SUFFIX: &str = ".tmp";
+/// The permission bits a replacement of `path` is made with: the old file's, or the usual.
+#[cfg(unix)]
+fn mode_of(path: &Path) -> u32 {
+    use std::os::unix::fs::PermissionsExt;
+    std::fs::metadata(path).map(|m| m.permissions().mode() & 0o7777).unwrap_or(0o666)
+}
 
-/// Replaces `path` with `bytes`: a temporary file in the same folder, written and synced,
-/// renamed over `path`, then the folder synced. The file keeps its permissions.
+/// Replaces `path` with `bytes` through its temporary file ([`temp_path`]): written, synced,
+/// renamed over `path`, then the folder synced. Call it under the ledger's lock. A failed write
+/// removes the temporary file again (on a full disk it would hold on to space).
+pub fn replace_locked(path: &Path, bytes: &[u8]) -> io::Result<()> {
+    let tmp = temp_path(path);
+    match std::fs::remove_file(&tmp) {
+        Err(e) if e.kind() != io::ErrorKind::NotFound => return Err(e),
+        _ => {}
+    }
+    let mut o = OpenOptions::new();
+    o.write(true).create_new(true);
+    #[cfg(unix)]
+    std::os::unix::fs::OpenOptionsExt::mode(&mut o, mode_of(path));
+    let mut f = o.open(&tmp)?;
+    let written = f.write_all(bytes).and_then(|()| f.sync_all());
+    drop(f);
+    if let Err(e) = written.and_then(|()| std::fs::rename(&tmp, path)) {
+        std::fs::remove_file(&tmp).ok();
+        return Err(e);
+    }
+    sync_folder(path)
+}
+
+/// Syncs the folder of `path`, so a rename into it is on disk.
+fn sync_folder(path: &Path) -> io::Result<()> {
+    File::open(folder_of(path))?.sync_all()
+}
+
+/// Replaces `path` with `bytes` without a lock (an export): a temporary file of its own in the
+/// same folder, written and synced, renamed over `path`, then the folder synced.
 pub fn write_durably(path: &Path, bytes: &[u8]) -> io::Result<()> {
-    let dir = folder_of(path);
+    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
     let mut b = tempfile::Builder::new();
-    let prefix = temp_prefix(path);
-    b.prefix(&prefix).suffix(TEMP_SUFFIX);
+    let prefix = format!(".{name}.");
+    b.prefix(&prefix).suffix(".tmp");
     #[cfg(unix)]
-    let perms = {
-        use std::os::unix::fs::PermissionsExt;
-        std::fs::metadata(path).map(|m| m.permissions()).unwrap_or_else(|_| std::fs::Permissions::from_mode(0o666))
-    };
-    #[cfg(unix)]
-    b.permissions(perms);
-    let mut tmp = b.tempfile_in(&dir)?;
+    b.permissions(std::os::unix::fs::PermissionsExt::from_mode(mode_of(path)));
+    let mut tmp = b.tempfile_in(folder_of(path))?;
     tmp.write_all(bytes)?;
     tmp.as_file().sync_all()?;
     tmp.persist(path).map_err(|e| e.error)?;
-    File::open(&dir)?.sync_all()
+    sync_folder(path)
 }
 
 /// Why a ledger could not be saved, with what to do.
@@ -206,20 +237,6 @@ fn lock(path: &Path) -> Result<Lock, SaveError> {
     }
 }
 
-/// Removes temporary files a killed writer left (only called under the lock: no live writer
-/// has one then).
-fn remove_stray_temporaries(path: &Path) {
-    let prefix = temp_prefix(path);
-    let Ok(rd) = std::fs::read_dir(folder_of(path)) else { return };
-    for e in rd.flatten() {
-        let name = e.file_name();
-        let name = name.to_string_lossy();
-        if name.starts_with(&prefix) && name.ends_with(TEMP_SUFFIX) {
-            std::fs::remove_file(e.path()).ok();
-        }
-    }
-}
-
 /// Changes the ledger at `path` durably: under its lock, reads its latest content (a new
 /// ledger rooted at `root` when there is none), lets `change` edit it, and writes it with
 /// `writer`. Returns the ledger as saved and what `change` returned. On an error nothing on
@@ -243,7 +260,6 @@ pub fn commit<T>(
             return Err(read_error(e));
         }
     };
-    remove_stray_temporaries(path);
     let out = change(&mut ledger);
     let text = ledger.to_json().map_err(|e| SaveError { file: path.to_path_buf(), step: "serialise it".into(), kind: None, cause: e.to_string() })?;
     writer.replace(path, text.as_bytes()).map_err(|e| SaveError::io(path, "write it", &e))?;

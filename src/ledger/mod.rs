@@ -64,7 +64,7 @@ use crate::regions::Region;
 
 pub use change::{Change, Edit};
 pub use export::{CsvRow, Import, Prefer, import_rows, read_csv, write_csv};
-pub use file::{DiskWriter, SaveError, Writer, commit, load, write_durably};
+pub use file::{DiskWriter, SaveError, Writer, commit, load, replace_locked, write_durably};
 pub use stamp::Stamp;
 pub use store::{Store, Unsaved};
 pub use worker::{BackgroundStore, Status};

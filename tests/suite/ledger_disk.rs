@@ -91,6 +91,7 @@ fn a_full_disk_is_told_loses_no_verdict_and_saving_resumes_when_there_is_room() 
     }
     let disk = Ledger::open(&ledger).unwrap();
     assert_eq!((disk.verdict("a.png"), disk.verdict("b.png")), (Some(Verdict::Marked), None));
+    assert!(!spurion::ledger::file::temp_path(&ledger).exists(), "a failed write leaves no temporary file holding space");
 
     // A front end's store: the verdict is kept in memory with the reason, saved once there is room.
     let mut store = Store::open(&ledger).unwrap();
