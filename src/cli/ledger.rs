@@ -256,8 +256,8 @@ fn show(a: &ShowArgs) -> Result<()> {
     }
     let c = ledger.counts();
     println!(
-        "{} images: {} clean, {} marked, {} unsure, {} exclude, {} without a verdict; {} with drawn regions (root {})",
-        c.images, c.clean, c.marked, c.unsure, c.exclude, c.no_verdict, c.with_drawn_regions, ledger.root_dir().display()
+        "{}: {} clean, {} marked, {} unsure, {} exclude, {} without a verdict; {} with drawn regions (root {})",
+        count(c.images, "image"), c.clean, c.marked, c.unsure, c.exclude, c.no_verdict, c.with_drawn_regions, ledger.root_dir().display()
     );
     Ok(())
 }
@@ -281,7 +281,7 @@ fn export(a: &ExportArgs) -> Result<()> {
         return Ok(());
     }
     ledger::write_durably(&a.csv, &bytes).with_context(|| format!("cannot write the CSV {}", a.csv.display()))?;
-    eprintln!("wrote {} images of {} to {}", ledger.len(), path.display(), a.csv.display());
+    eprintln!("wrote {} of {} to {}", count(ledger.len(), "image"), path.display(), a.csv.display());
     Ok(())
 }
 
@@ -291,8 +291,8 @@ fn import(a: &ImportArgs) -> Result<()> {
     let prefer = Prefer::parse(&a.prefer)?;
     let (saved, r) = commit(&path, a.ledger.root.as_deref(), "import", |l| ledger::import_rows(l, &rows, prefer, Stamp::now()))?;
     println!(
-        "imported {} rows of {} into {}: {} added, {} replaced, {} removed, {} unchanged, {} kept as the ledger had them",
-        rows.len(),
+        "imported {} of {} into {}: {} added, {} replaced, {} removed, {} unchanged, {} kept as the ledger had them",
+        count(rows.len(), "row"),
         a.csv.display(),
         path.display(),
         r.added.len(),
@@ -314,6 +314,11 @@ fn import(a: &ImportArgs) -> Result<()> {
         eprintln!("note: images of the CSV not found in {} ({}): {}", saved.root_dir().display(), missing.len(), list(&missing));
     }
     Ok(())
+}
+
+/// "1 image", "2 images".
+fn count(n: usize, what: &str) -> String {
+    if n == 1 { format!("1 {what}") } else { format!("{n} {what}s") }
 }
 
 /// Up to five names, then how many more.
@@ -340,7 +345,7 @@ fn draw(a: &DrawArgs) -> Result<()> {
         let e = ledger.entry(&key).filter(|e| !e.drawn.is_empty());
         let Some(e) = e else { bail!("the ledger {} has no drawn region on {key}", path.display()) };
         save_drawn(to, &DrawnFile::new(e.image_size, e.drawn.clone()))?;
-        eprintln!("wrote {} drawn regions of {key} to {}", e.drawn.len(), to.display());
+        eprintln!("wrote {} of {key} to {}", count(e.drawn.len(), "drawn region"), to.display());
         return Ok(());
     }
     let at = Stamp::now();
@@ -387,6 +392,6 @@ fn draw(a: &DrawArgs) -> Result<()> {
     change.check()?;
     let (saved, ()) = commit(&path, a.ledger.root.as_deref(), "drawing", |l| l.apply(&change))?;
     let n = saved.entry(&key).map_or(0, |e| e.drawn.len());
-    println!("{key}: {n} drawn region{} (saved in {})", if n == 1 { "" } else { "s" }, path.display());
+    println!("{key}: {} (saved in {})", count(n, "drawn region"), path.display());
     Ok(())
 }
