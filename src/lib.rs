@@ -6,6 +6,7 @@
 //! and window geometry) → [`methods`] (attribution methods and baselines, producing a
 //! [`methods::Reading`]) → [`regions`] (border bands, burned-in marks and the figures over them)
 //! → [`report`] (the files written) → presentation ([`render`] for pictures, [`cli`], [`gui`]).
+//! [`ledger`] keeps the curator's verdicts, notes and drawn regions (it uses [`regions`]).
 //! [`sign`] and [`control`] sit below everything. Imports point one way: the engine (feed,
 //! model, grad, methods, regions) never imports render, report, cli or gui, and neither front
 //! end imports the other; the binary picks the front end.
@@ -17,6 +18,7 @@ pub mod demo;
 pub mod feed;
 pub mod grad;
 pub mod graph;
+pub mod ledger;
 pub mod methods;
 pub mod model;
 pub mod regions;

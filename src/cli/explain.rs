@@ -10,7 +10,9 @@ use ndarray::{Array2, Array3, Axis};
 use super::{InputArgs, ModelArgs, load_input};
 use crate::control::Control;
 use super::reading_args::ReadingArgs;
+use crate::ledger::Ledger;
 use crate::methods::{self, Input};
+use crate::regions::Region;
 use crate::report::ReadingFile;
 use crate::sign::Sign;
 
@@ -34,6 +36,10 @@ pub struct ExplainArgs {
     /// No progress bar.
     #[arg(long, short = 'q')]
     pub quiet: bool,
+    /// A ledger whose drawn regions for this image join the found regions: figures, removal
+    /// and the suspect flag.
+    #[arg(long, value_name = "LEDGER")]
+    pub ledger: Option<PathBuf>,
     /// Write the DICOM file's patient-identifying attributes into reading.json (they are left
     /// out unless this is given; the file then says it holds them).
     #[arg(long)]
@@ -86,6 +92,10 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     }
     let model = a.model.load_for(&a.input)?;
     let (input, card) = load_input(&model, &a.model, &a.input)?;
+    let drawn = match &a.ledger {
+        Some(l) => drawn_from_ledger(l, &a.input, &input)?,
+        None => Vec::new(),
+    };
     let bar = if a.quiet { ProgressBar::hidden() } else { progress_bar(req.method.name()) };
     let ctl = control_for(&bar);
     let reading = methods::explain(&model, card.as_ref(), &input, &req, &ctl)?;
@@ -94,7 +104,7 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     let out = a.out.clone().unwrap_or_else(|| default_out(&input, &reading.method));
     std::fs::create_dir_all(&out).with_context(|| format!("cannot create output folder {}", out.display()))?;
     let map2 = reading.map2d();
-    let assessment = methods::assess_input(&model, card.as_ref(), &input, &reading, vec![], &Default::default(), &Default::default())?;
+    let assessment = methods::assess_input(&model, card.as_ref(), &input, &reading, drawn, &Default::default(), &Default::default())?;
     let suspect = assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
     write_json(&out.join("reading.json"), &ReadingFile::new(&reading, assessment).with_input(&input, a.with_patient_data).to_json()?)?;
     crate::feed::write_tensor(&out.join("map.npy"), &reading.map)?;
@@ -132,6 +142,19 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     }
     println!("wrote {} (reading.json, map.npy, map.png, overlay.png) in {:.0} ms", out.display(), reading.elapsed_ms);
     Ok(())
+}
+
+/// The drawn regions a ledger keeps for the image being read, on its grid.
+fn drawn_from_ledger(path: &Path, args: &InputArgs, input: &Input) -> Result<Vec<Region>> {
+    let (Some(image), Input::Picture { picture, .. }) = (&args.image, input) else {
+        bail!("--ledger gives drawn regions on an image; a --tensor has none (give --image instead)");
+    };
+    let ledger = Ledger::open(&Ledger::file_for(path))?;
+    let key = ledger.key_for(image)?;
+    let regions = ledger.drawn_regions_for(&key, picture.height(), picture.width())?;
+    let verdict = ledger.verdict(&key).map_or("no verdict".to_string(), |v| format!("verdict {v}"));
+    eprintln!("ledger {}: {key} has {} drawn region{} and {verdict}", ledger.path().display(), regions.len(), if regions.len() == 1 { "" } else { "s" });
+    Ok(regions)
 }
 
 fn default_out(input: &Input, method: &str) -> PathBuf {

@@ -4,6 +4,7 @@
 
 mod explain;
 mod feed;
+mod ledger;
 mod reading_args;
 mod regions;
 mod sweep;
@@ -52,6 +53,8 @@ pub enum Command {
     Sweep(sweep::SweepArgs),
     /// Joins the outputs of a sweep's shards into the files an unsharded sweep writes.
     SweepMerge(sweep::MergeArgs),
+    /// The curator's ledger: verdicts, notes and drawn regions per image, saved at once.
+    Ledger(ledger::LedgerArgs),
     /// Writes a demo set of phantom images with ground-truth masks and a manifest.
     Demo(DemoArgs),
     /// Opens the desktop inspector.
@@ -239,6 +242,7 @@ pub fn run(command: Command) -> Result<()> {
         Command::Feed(a) => feed::run(&a),
         Command::Sweep(a) => sweep::run(&a),
         Command::SweepMerge(a) => sweep::merge(&a),
+        Command::Ledger(a) => ledger::run(&a),
     }
 }
 

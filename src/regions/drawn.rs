@@ -1,7 +1,9 @@
 //! Drawn regions: rectangles and polygons a person draws, or loads from a file.
 //!
-//! No front end calls this yet: the ledger (issue 14) keeps drawn regions per image and the
-//! inspector draws them.
+//! The ledger ([`crate::ledger`]) keeps drawn regions per image in these shapes; `spurion ledger
+//! draw` adds them from the command line, and `spurion explain --ledger` reads them alongside
+//! the found regions (figures, removal, flag). This file form stays as a way to bring shapes in
+//! and out (`spurion ledger draw --from` / `--to`). The inspector does not draw them yet.
 //!
 //! # File format (`*.drawn.json`, spurion's own; not `spurion regions`' `regions.json`)
 //!
@@ -141,14 +143,40 @@ pub fn drawn_region(shape: &DrawnShape, height: usize, width: usize) -> Result<R
     Ok(r)
 }
 
-/// Pixels whose centres lie in [x0, x1) × [y0, y1).
-pub fn rect_mask(b: [f64; 4], height: usize, width: usize) -> Result<Array2<bool>> {
+impl Shape {
+    /// Whether the shape is well formed (finite numbers, a box with x0 ≤ x1 and y0 ≤ y1, a
+    /// polygon of three points or more), whatever image it goes on.
+    pub fn check(&self) -> Result<()> {
+        match self {
+            Shape::Rect { bbox } => check_box(*bbox),
+            Shape::Polygon { points } => check_points(points),
+        }
+    }
+}
+
+fn check_box(b: [f64; 4]) -> Result<()> {
     if b.iter().any(|v| !v.is_finite()) {
         bail!("rectangle box {b:?} has a value that is not a finite number");
     }
     if b[2] < b[0] || b[3] < b[1] {
         bail!("rectangle box {b:?} has x1 < x0 or y1 < y0 (expected [x0, y0, x1, y1])");
     }
+    Ok(())
+}
+
+fn check_points(points: &[[f64; 2]]) -> Result<()> {
+    if points.len() < 3 {
+        bail!("a polygon needs at least 3 points, got {}", points.len());
+    }
+    if points.iter().flatten().any(|v| !v.is_finite()) {
+        bail!("a polygon point is not a finite number");
+    }
+    Ok(())
+}
+
+/// Pixels whose centres lie in [x0, x1) × [y0, y1).
+pub fn rect_mask(b: [f64; 4], height: usize, width: usize) -> Result<Array2<bool>> {
+    check_box(b)?;
     Ok(Array2::from_shape_fn((height, width), |(r, c)| {
         let (cx, cy) = (c as f64 + 0.5, r as f64 + 0.5);
         cx >= b[0] && cx < b[2] && cy >= b[1] && cy < b[3]
@@ -157,12 +185,7 @@ pub fn rect_mask(b: [f64; 4], height: usize, width: usize) -> Result<Array2<bool
 
 /// Pixels whose centres lie inside the polygon by the even–odd rule.
 pub fn polygon_mask(points: &[[f64; 2]], height: usize, width: usize) -> Result<Array2<bool>> {
-    if points.len() < 3 {
-        bail!("a polygon needs at least 3 points, got {}", points.len());
-    }
-    if points.iter().flatten().any(|v| !v.is_finite()) {
-        bail!("a polygon point is not a finite number");
-    }
+    check_points(points)?;
     let mut mask = Array2::from_elem((height, width), false);
     let n = points.len();
     let mut xs: Vec<f64> = Vec::new();

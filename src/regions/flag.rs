@@ -271,7 +271,7 @@ fn attribution_reason(reports: &[&RegionReport], union: Option<&Figures>, eligib
     }
     union.filter(|f| passes(f, s)).map(|f| {
         format!(
-            "the {part} attribution sits on the {eligible} found regions together: mark share {} (at least {}) and lift {} (at least {})",
+            "the {part} attribution sits on the {eligible} regions together: mark share {} (at least {}) and lift {} (at least {})",
             fmt(f.mark_share),
             s.min_mark_share,
             fmt(f.lift),
@@ -296,7 +296,7 @@ fn removal_reason(reports: &[&RegionReport], all: Option<&Removal>, eligible: us
     if let Some((r, x)) = best {
         return Some(says(&format!("the {} at {:?}", r.label, r.bbox), x));
     }
-    all.filter(|x| eligible > 1 && removal_passes(Some(x), s)).map(|x| says(&format!("the {eligible} found regions together"), x))
+    all.filter(|x| eligible > 1 && removal_passes(Some(x), s)).map(|x| says(&format!("the {eligible} regions together"), x))
 }
 
 fn not_suspect_reason(reports: &[RegionReport], removal: bool, s: &FlagSettings) -> String {

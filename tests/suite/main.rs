@@ -14,6 +14,8 @@ mod engine_ops;
 mod engine_torch;
 mod engine_whole;
 mod gui_inspector;
+mod ledger;
+mod ledger_disk;
 mod methods_reference;
 mod occlusion_incremental;
 mod regions_clean;
