@@ -129,6 +129,17 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
             .map(|g| format!(", completeness gap {:.3}% ({} steps)", g * 100.0, reading.steps.unwrap_or(0)))
             .unwrap_or_default()
     );
+    if let (Some(_), Some(fb)) = (reading.completeness_gap, reading.score_baseline) {
+        let diff = (reading.score_input - fb) as f64;
+        let mass: f64 = reading.tensor_map.iter().map(|v| v.abs() as f64).sum();
+        if diff.abs() < methods::defaults::IG_GAP_FLOOR * mass {
+            println!(
+                "note: F(x) − F(x′) = {diff:.6} is small beside the map's total absolute attribution {mass:.4}, so the \
+                 relative gap is ill-conditioned; the refinement held the error under 1% of {:.6} instead",
+                methods::defaults::IG_GAP_FLOOR * mass
+            );
+        }
+    }
     // The IG paper's advice is a gap within 5% (Sundararajan et al. 2017, section 3).
     if let Some(g) = reading.completeness_gap.filter(|g| *g > 0.05) {
         println!(

@@ -2,6 +2,7 @@
 //! written as tables, atlas pictures and a self-contained report; `spurion sweep-merge` joins
 //! the shards of a sweep run on a cluster.
 
+use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
@@ -12,6 +13,8 @@ use indicatif::{ProgressBar, ProgressStyle};
 use super::ModelArgs;
 use super::reading_args::ReadingArgs;
 use crate::feed::OpenOptions;
+use crate::ledger::Ledger;
+use crate::regions::DrawnFile;
 use crate::report::sweep::{self as files, ThumbSource};
 use crate::sweep::{self, Cache, Exclude, GroupSummary, Groups, Setup, Shard, ShardResult};
 
@@ -51,6 +54,13 @@ pub struct SweepArgs {
     /// nothing (default OUT/cache, shared by the shards).
     #[arg(long)]
     pub cache: Option<PathBuf>,
+    /// A curator's ledger: its verdicts go into the table and the report, and the regions drawn
+    /// on an image join the found ones (figures, removal, the flag).
+    #[arg(long)]
+    pub ledger: Option<PathBuf>,
+    /// Leave out the images the ledger marks exclude.
+    #[arg(long, requires = "ledger")]
+    pub leave_out_excluded: bool,
     /// Worker threads (default: every core).
     #[arg(long)]
     pub threads: Option<usize>,
@@ -111,7 +121,27 @@ pub fn run(a: &SweepArgs) -> Result<()> {
     }
     let model = a.model.load()?;
     let card = a.model.card(&model)?;
-    let items = sweep::plan(&a.images, &groups, &exclude, shard)?;
+    let mut items = sweep::plan(&a.images, &groups, &exclude, shard)?;
+    let ledger = a.ledger.as_deref().map(Ledger::open).transpose()?;
+    // Each image's key in the ledger (an image outside the ledger's root has none).
+    let keys: BTreeMap<String, String> = match &ledger {
+        Some(l) => items.iter().filter_map(|i| l.key_for(&i.path).ok().map(|k| (i.rel.clone(), k))).collect(),
+        None => BTreeMap::new(),
+    };
+    if let Some(l) = &ledger
+        && a.leave_out_excluded
+    {
+        let before = items.len();
+        items.retain(|i| !keys.get(&i.rel).is_some_and(|k| l.is_excluded(k)));
+        eprintln!("leaving out {} images the ledger marks exclude", before - items.len());
+    }
+    let drawn: BTreeMap<String, DrawnFile> = match &ledger {
+        Some(l) => keys
+            .iter()
+            .filter_map(|(rel, k)| l.entry(k).filter(|e| !e.drawn.is_empty()).map(|e| (rel.clone(), DrawnFile::new(e.image_size, e.drawn.clone()))))
+            .collect(),
+        None => BTreeMap::new(),
+    };
     let out = if shard.count > 1 { a.out.join(shard.folder_name()) } else { a.out.clone() };
     let cache_dir = a.cache.clone().unwrap_or_else(|| a.out.join("cache"));
     let cache = Cache::open(&cache_dir)?;
@@ -123,13 +153,13 @@ pub fn run(a: &SweepArgs) -> Result<()> {
         open: open.clone(),
         finder: Default::default(),
         flag: Default::default(),
-        drawn: Default::default(),
+        drawn,
     };
     let bar = progress_bar(a.quiet);
     let ctl = super::explain::control_for(&bar);
     let started = Instant::now();
     let root = std::path::absolute(&a.images).unwrap_or_else(|_| a.images.clone());
-    let result = match sweep::run_shard(&setup, &items, &cache, shard, root, &ctl) {
+    let mut result = match sweep::run_shard(&setup, &items, &cache, shard, root, &ctl) {
         Ok(r) => r,
         Err(e) if crate::model::is_cancelled(&e) => {
             bar.abandon();
@@ -142,6 +172,11 @@ pub fn run(a: &SweepArgs) -> Result<()> {
         Err(e) => return Err(e),
     };
     bar.finish_and_clear();
+    if let Some(l) = &ledger {
+        for r in &mut result.rows {
+            r.verdict = keys.get(&r.path).and_then(|k| l.verdict(k)).map(|v| v.name().to_string());
+        }
+    }
     let seconds = started.elapsed().as_secs_f64();
     let groups = files::write(&result, &out, seconds, Some(&ThumbSource { card: &card, open: &open }))?;
     tell(&result, &groups, &out, seconds);

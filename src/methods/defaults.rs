@@ -39,6 +39,16 @@ pub const IG_START_STEPS: usize = 32;
 /// room for the map to be read.
 pub const IG_GAP: f32 = 0.01;
 
+/// Where F(x) − F(x′) is tiny beside the map's total absolute attribution Σ|aᵢ| (supporting and
+/// opposing parts that nearly cancel, as on an image the baseline barely changes the score of),
+/// the relative gap divides by almost nothing and asks for accuracy below float32 rounding: a
+/// clean demo image with F(x) − F(x′) = 0.02 and Σ|aᵢ| = 74 ran to 864 steps, and its error grew
+/// again from 96 to 288 steps. The refinement then holds the error to [`IG_GAP`] of
+/// max(|F(x) − F(x′)|, this share of Σ|aᵢ|) instead; with a difference of more than a
+/// thousandth of the map's mass nothing changes. The reported completeness gap is always the
+/// plain relative one.
+pub const IG_GAP_FLOOR: f64 = 1e-3;
+
 /// The rule of a fixed step count (`--steps N`): Gauss–Legendre is exact for polynomials of
 /// degree 2N − 1 and needs fewer steps than the midpoint rule on smooth paths.
 pub const IG_FIXED_RULE: Rule = Rule::GaussLegendre;

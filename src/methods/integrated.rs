@@ -47,9 +47,15 @@ pub(super) fn integrated_gradients(job: &Job, xb: &ArrayD<f32>, steps: usize, ru
             let mut sum = path_sum(job, xb, &Rule::Midpoint.nodes(m))? * (m as f32);
             loop {
                 let map = &sum / m as f32 * &diff;
-                let gap = gap_of(map.sum() as f64, diff_scores);
-                // No gap (F(x) = F(x′)) or one that is not a number cannot be refined away.
-                let done = gap.is_none_or(|g| !g.is_finite() || g <= target_gap as f64);
+                let total = map.sum() as f64;
+                let gap = gap_of(total, diff_scores);
+                // The error is held to the target share of |F(x) − F(x′)|, or of a floor set by
+                // the map's own mass where the difference is tiny beside it (see
+                // `defaults::IG_GAP_FLOOR`). No gap (F(x) = F(x′)) or one that is not a number
+                // cannot be refined away.
+                let mass: f64 = map.iter().map(|v| v.abs() as f64).sum();
+                let scale = diff_scores.abs().max(super::defaults::IG_GAP_FLOOR * mass);
+                let done = gap.is_none_or(|g| !g.is_finite()) || (total - diff_scores).abs() <= target_gap as f64 * scale;
                 if done || m * 3 > MAX_REFINED_STEPS {
                     return Ok(Outcome { map, steps: Some(m), score_baseline: Some(fb), gap });
                 }

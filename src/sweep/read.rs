@@ -16,8 +16,7 @@ use crate::control::Control;
 use crate::feed::{FeedCard, OpenOptions, Picture};
 use crate::methods::{self, Input, Request, top_index};
 use crate::model::Model;
-use crate::regions::drawn::drawn_region;
-use crate::regions::{DrawnShape, FinderSettings, FlagSettings};
+use crate::regions::{DrawnFile, FinderSettings, FlagSettings};
 
 /// Everything that decides each image's result besides the image itself.
 pub struct Setup<'a> {
@@ -28,7 +27,7 @@ pub struct Setup<'a> {
     pub finder: FinderSettings,
     pub flag: FlagSettings,
     /// Regions a person drew, by image path relative to the images folder (from a ledger).
-    pub drawn: BTreeMap<String, Vec<DrawnShape>>,
+    pub drawn: BTreeMap<String, DrawnFile>,
 }
 
 impl Setup<'_> {
@@ -49,7 +48,7 @@ impl Setup<'_> {
     /// What besides the settings and the image's content decides one image's result: the
     /// regions drawn on it (empty text when none).
     pub fn image_extra(&self, item: &Item) -> String {
-        self.drawn.get(&item.rel).filter(|d| !d.is_empty()).map(|d| json!(d).to_string()).unwrap_or_default()
+        self.drawn.get(&item.rel).filter(|d| !d.regions.is_empty()).map(|d| json!(d).to_string()).unwrap_or_default()
     }
 
     /// Reads one image.
@@ -58,17 +57,10 @@ impl Setup<'_> {
         let picture = Picture::open_with(&item.path, &self.open)?;
         let declared = picture.burned_in_annotation();
         let (h, w) = (picture.height(), picture.width());
-        let drawn = self
-            .drawn
-            .get(&item.rel)
-            .map(|shapes| {
-                shapes
-                    .iter()
-                    .map(|s| drawn_region(s, h, w).with_context(|| format!("drawn region \"{}\" of {}", s.label, item.rel)))
-                    .collect::<Result<Vec<_>>>()
-            })
-            .transpose()?
-            .unwrap_or_default();
+        let drawn = match self.drawn.get(&item.rel) {
+            Some(d) => d.to_regions(h, w).with_context(|| format!("the regions drawn on {} in the ledger", item.rel))?,
+            None => vec![],
+        };
         let input = Input::picture(picture, self.card)?;
         let reading = methods::explain(self.model, Some(self.card), &input, self.request, ctl)?;
         let a = methods::assess_input(self.model, Some(self.card), &input, &reading, drawn, &self.finder, &self.flag)?
@@ -97,6 +89,7 @@ impl Setup<'_> {
             regions: a.regions.len(),
             region_labels: a.regions.iter().map(|r| r.label.clone()).collect::<Vec<_>>().join("; "),
             completeness_gap: reading.completeness_gap,
+            steps: reading.steps,
             burned_in_annotation: declared,
             verdict: None,
             seconds: started.elapsed().as_secs_f64(),

@@ -29,6 +29,8 @@ pub struct Row {
     pub regions: usize,
     pub region_labels: String,
     pub completeness_gap: Option<f64>,
+    /// Integrated gradients' step count (refined or fixed).
+    pub steps: Option<usize>,
     /// Burned In Annotation as the file declares it (DICOM only).
     pub burned_in_annotation: Option<bool>,
     /// The curator's verdict on the image in the ledger given to the sweep (clean, marked,

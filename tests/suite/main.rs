@@ -25,4 +25,5 @@ mod regions_e2e;
 mod regions_figures;
 mod regions_finders;
 mod regions_flag;
+mod sweep;
 mod window_values;

@@ -67,6 +67,14 @@ pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary], thumbs: &Thumbs
         esc(baseline),
         if result.shard.count > 1 { format!("; this is shard {} of {}", result.shard.index, result.shard.count) } else { String::new() }
     )?;
+    let verdicts: std::collections::BTreeMap<&str, usize> = rows.iter().filter_map(|r| r.verdict.as_deref()).fold(Default::default(), |mut m, v| {
+        *m.entry(v).or_default() += 1;
+        m
+    });
+    if !verdicts.is_empty() {
+        let parts: Vec<String> = verdicts.iter().map(|(v, n)| format!("{n} {}", esc(v))).collect();
+        writeln!(h, "<p>The curator's ledger: {} (the rest have no verdict).</p>", parts.join(", "))?;
+    }
     groups_table(&mut h, groups)?;
     atlases(&mut h, result, groups)?;
     writeln!(h, "<h2>Mark share by group</h2><p><small>Share of each image's supporting attribution on its found regions together.</small></p>")?;
@@ -218,7 +226,7 @@ fn ranked(h: &mut String, result: &ShardResult, thumbs: &Thumbs) -> Result<()> {
     writeln!(
         h,
         "<h2>Images ranked by mark share (top {})</h2><table><tr><th>#</th><th>image</th><th>as fed</th><th>supporting attribution</th>\
-         <th>group</th><th>top class</th><th>mark share</th><th>lift</th><th>removal: probability</th><th>evidence</th><th>regions</th></tr>",
+         <th>group</th><th>top class</th><th>mark share</th><th>lift</th><th>removal: probability</th><th>evidence</th><th>regions</th><th>verdict</th></tr>",
         RANKED.min(rows.len())
     )?;
     for (i, r) in rows.iter().take(RANKED).enumerate() {
@@ -232,7 +240,7 @@ fn ranked(h: &mut String, result: &ShardResult, thumbs: &Thumbs) -> Result<()> {
         let flag = if r.suspect { "<span class=\"suspect\">SUSPECT</span> " } else { "" };
         writeln!(
             h,
-            "<tr><td>{}</td><td>{flag}{}</td><td>{plain}</td><td>{tint}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            "<tr><td>{}</td><td>{flag}{}</td><td>{plain}</td><td>{tint}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
             i + 1,
             esc(&r.path),
             esc(&r.group),
@@ -241,7 +249,8 @@ fn ranked(h: &mut String, result: &ShardResult, thumbs: &Thumbs) -> Result<()> {
             r.lift.map_or("—".into(), |v| format!("{v:.1}")),
             r.removal_probability_drop.map_or("—".into(), |v| format!("{:+.2}", -v)),
             esc(&r.evidence),
-            esc(&r.region_labels)
+            esc(&r.region_labels),
+            esc(r.verdict.as_deref().unwrap_or("—"))
         )?;
     }
     writeln!(h, "</table>")?;
