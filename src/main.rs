@@ -6,6 +6,13 @@ use clap::Parser;
 fn main() -> std::process::ExitCode {
     use spurion::cli::{Cli, Command};
     use spurion::gui::{self, GuiOptions};
+    // Rust ignores SIGPIPE, so printing into a closed pipe (`spurion ledger show | head`) panics;
+    // the default action ends the process quietly, as Unix tools do (common practice).
+    #[cfg(unix)]
+    // SAFETY: setting a signal's disposition to its default before any thread starts.
+    unsafe {
+        libc::signal(libc::SIGPIPE, libc::SIG_DFL);
+    }
     let result = match Cli::parse().command {
         None => gui::run(GuiOptions::default()),
         Some(Command::Gui(a)) => gui::run(GuiOptions { model: a.model, paths: a.paths }),

@@ -328,3 +328,27 @@ fn the_slurm_example_runs_as_a_job_array_on_a_real_cluster_and_merges_to_the_sam
     ok(&spurion(&["sweep-merge", out.to_str().unwrap(), "--out", merged.to_str().unwrap()]));
     assert_same_outputs(&f.whole, &merged);
 }
+
+#[test]
+fn unreadable_files_are_listed_with_their_reason_and_the_sweep_goes_on() {
+    let dir = tempfile::tempdir().unwrap();
+    let images = dir.path().join("images");
+    std::fs::create_dir_all(images.join("site")).unwrap();
+    std::fs::copy(root().join("assets/demo/0005-hillmoor.png"), images.join("site/good.png")).unwrap();
+    std::fs::write(images.join("site/not-a-picture.png"), b"this is text, not a PNG").unwrap();
+    let dcm = std::fs::read(root().join("assets/demo/dicom/0005-hillmoor.dcm")).unwrap();
+    std::fs::write(images.join("site/cut-short.dcm"), &dcm[..400]).unwrap();
+    std::fs::write(images.join("site/notes.txt"), b"not an image file, not swept").unwrap();
+    let out = dir.path().join("out");
+    let o = spurion(&sweep_args(images.to_str().unwrap(), out.to_str().unwrap()));
+    ok(&o);
+    let facts = run_facts(&out);
+    assert_eq!((facts["images"].as_u64(), facts["skipped"].as_u64()), (Some(1), Some(2)));
+    let mut r = csv::Reader::from_path(out.join("skipped.csv")).unwrap();
+    let skipped: Vec<(String, String)> = r.records().map(|x| x.unwrap()).map(|x| (x[0].to_string(), x[1].to_string())).collect();
+    assert_eq!(skipped.iter().map(|s| s.0.as_str()).collect::<Vec<_>>(), ["site/cut-short.dcm", "site/not-a-picture.png"]);
+    for (path, why) in &skipped {
+        assert!(why.len() > 20 && why.contains(path.rsplit('/').next().unwrap()), "{path}: the reason names the file: {why}");
+    }
+    assert!(String::from_utf8_lossy(&o.stdout).contains("could not read 2 images"), "{}", String::from_utf8_lossy(&o.stdout));
+}
