@@ -6,6 +6,7 @@ mod explain;
 mod feed;
 mod reading_args;
 mod regions;
+mod review;
 
 pub use reading_args::ReadingArgs;
 
@@ -41,6 +42,12 @@ pub enum Command {
     Predict(PredictArgs),
     /// One reading: an attribution map for one image or tensor, written to a folder.
     Explain(explain::ExplainArgs),
+    /// A reading and the tests a reviewer runs on it: deletion and insertion curves, the
+    /// randomisation cascade, integrated gradients' convergence, region Shapley values, and
+    /// optionally a second model; written as review.json and review.png.
+    Review(review::ReviewArgs),
+    /// Two sweeps' output folders compared group by group (suspect rate, mark share, flip rate).
+    CompareSweeps(review::CompareArgs),
     /// Border bands and burned-in marks of an image, found without any model.
     Regions(RegionsArgs),
     /// An image exactly as it is decoded and windowed for the model (before resizing and
@@ -224,6 +231,8 @@ pub fn run(command: Command) -> Result<()> {
         Command::Info(a) => info(&a),
         Command::Predict(a) => predict(&a),
         Command::Explain(a) => explain::run(&a),
+        Command::Review(a) => review::run(&a),
+        Command::CompareSweeps(a) => review::compare(&a),
         Command::Regions(a) => regions::run(&a.image, a.out.as_deref(), &Default::default()),
         Command::Demo(a) => demo(&a),
         Command::Feed(a) => feed::run(&a),

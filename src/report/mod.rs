@@ -2,7 +2,9 @@
 //! built from the engine's results (so every front end writes the same file).
 
 mod reading;
+mod review;
 mod sweep;
 
 pub use reading::{PatientData, ReadingFile, SourceFacts, assess_input};
+pub use review::{ReviewFile, StripFile};
 pub use sweep::sweep_html;

@@ -1,0 +1,380 @@
+//! The reviewer's tests of a reading: whether a map can be trusted before anyone acts on it.
+//!
+//! One file per test, each with a typed, serialisable result, a [`Control`] for progress and
+//! cancel, and its definition cited beside it:
+//! - [`curves`]: deletion and insertion curves against random orders (Petsiuk et al. 2018);
+//! - [`randomise`]: the model-parameter randomisation cascade (Adebayo et al. 2018), over the
+//!   re-drawn models of [`redraw`];
+//! - [`convergence`]: integrated gradients' completeness gap against the step count
+//!   (Sundararajan et al. 2017);
+//! - [`shapley`]: Shapley values of grid cells or found regions by permutation sampling (Castro
+//!   et al. 2009), forwards only;
+//! - [`against`]: the same image under two models; [`sweeps`]: two sweeps per group.
+//!
+//! [`run`] runs the tests of one reading in turn; the pieces can be called one by one (on a
+//! worker thread, say) through a [`Case`]. The review sits beside `methods` and `regions` in
+//! the engine: it imports neither render, report, cli nor gui.
+
+pub mod against;
+pub mod convergence;
+pub mod curves;
+pub mod defaults;
+pub mod randomise;
+pub mod redraw;
+pub mod shapley;
+pub mod sweeps;
+
+use std::time::Instant;
+
+use anyhow::{Result, bail};
+use ndarray::{Array2, ArrayD, Zip};
+use serde::Serialize;
+
+use crate::control::Control;
+use crate::feed::FeedCard;
+use crate::methods::{self, Baseline, Input, Reading, Request, Rule, Scorer, TargetSpec};
+use crate::model::{Model, is_cancelled};
+use crate::regions::{FinderSettings, Region, find_regions};
+use crate::sweep::read::grid_map;
+
+use convergence::{Convergence, ConvergenceSettings};
+use curves::{CurveSettings, Curves};
+use randomise::{Cascade, CascadeSettings};
+use shapley::{Players, Shapley, ShapleySettings};
+
+/// `xb + m ⊙ (x − xb)` with `m` on the model grid (broadcast over the other axes); where m is
+/// 0 or 1 (within 1e-5) the value is xb's or x's exactly, so the two ends are the fill and the
+/// input bit for bit.
+pub(crate) fn blend(x: &ArrayD<f32>, xb: &ArrayD<f32>, m: &Array2<f32>, spatial: [usize; 2]) -> ArrayD<f32> {
+    let mut shape = vec![1usize; x.ndim()];
+    shape[spatial[0]] = m.nrows();
+    shape[spatial[1]] = m.ncols();
+    let m = if spatial[0] < spatial[1] { m.to_owned() } else { m.t().to_owned() };
+    let m = m.into_shape_with_order(shape).expect("the mask has the grid's size");
+    let m = m.broadcast(x.raw_dim()).expect("the mask broadcasts over the other axes");
+    let mut out = xb.clone();
+    Zip::from(&mut out).and(x).and(&m).for_each(|o, &xv, &w| {
+        if w >= 1.0 - 1e-5 {
+            *o = xv;
+        } else if w > 1e-5 {
+            *o += w * (xv - *o);
+        }
+    });
+    out
+}
+
+/// The reading under review and what its tests share: the model, its card, the input, the
+/// request with its target fixed to the reading's class (a re-drawn model or a second model
+/// reads the same class), the model-input tensor and its scoring.
+pub struct Case<'a> {
+    pub model: &'a Model,
+    pub card: Option<&'a FeedCard>,
+    pub input: &'a Input,
+    pub request: Request,
+    pub x: ArrayD<f32>,
+    pub spatial: [usize; 2],
+    pub scorer: Scorer,
+}
+
+impl<'a> Case<'a> {
+    pub fn new(model: &'a Model, card: Option<&'a FeedCard>, input: &'a Input, request: &Request, reading: &Reading) -> Result<Case<'a>> {
+        let request = Request { target: TargetSpec::Index(reading.target.index), ..request.clone() };
+        let scorer = Scorer::new(model, card, request.score, reading.target.index)?;
+        Ok(Case { model, card, input, request, x: input.model_tensor()?, spatial: input.spatial_axes()?, scorer })
+    }
+
+    /// A baseline as a model-input tensor (the fill of curves and Shapley values).
+    pub fn fill(&self, b: &Baseline) -> Result<ArrayD<f32>> {
+        methods::baseline_tensor(self.input, b, 0)
+    }
+
+    /// A reading's map on the model's grid (channels summed).
+    pub fn grid_map(&self, r: &Reading) -> Array2<f32> {
+        grid_map(&r.tensor_map, self.spatial)
+    }
+
+    /// Deletion and insertion curves of `reading` filled from `fill`.
+    pub fn curves(&self, reading: &Reading, fill: &Baseline, settings: &CurveSettings, ctl: &Control) -> Result<Curves> {
+        let xb = self.fill(fill)?;
+        curves::curves(self.model, &self.scorer, &self.x, &xb, &fill.label(), self.spatial, &self.grid_map(reading), settings, ctl)
+    }
+
+    /// Integrated gradients' convergence from the request's baseline.
+    pub fn convergence(&self, settings: &ConvergenceSettings, ctl: &Control) -> Result<Convergence> {
+        let xb = self.fill(&self.request.baseline)?;
+        convergence::convergence(self.model, &self.scorer, &self.x, &xb, &self.request.baseline.label(), settings, ctl)
+    }
+
+    /// The players of a Shapley game on this input.
+    pub fn players(&self, players: &Players, regions: &[Region]) -> Result<Vec<shapley::Player>> {
+        match players {
+            Players::Grid(n) => shapley::grid_players(self.input, *n),
+            Players::Regions => shapley::region_players(self.input, regions),
+        }
+    }
+
+    /// Shapley values of `players`, absent players filled from the request's baseline.
+    pub fn shapley(&self, players: &[shapley::Player], settings: &ShapleySettings, ctl: &Control) -> Result<Shapley> {
+        let xb = self.fill(&self.request.baseline)?;
+        let game = shapley::Game::new(self.model, self.scorer, &self.x, &xb, self.spatial, players)?;
+        let grid = match settings.players {
+            Players::Grid(n) => Some(n),
+            Players::Regions => None,
+        };
+        shapley::estimate(&game, settings.permutations, settings.seed, &self.request.baseline.label(), grid, ctl)
+    }
+
+    /// The quadrature rule of the request's integrated gradients (midpoint when it refines or
+    /// is another method: the default reading's rule).
+    pub fn rule(&self) -> Rule {
+        match self.request.method {
+            methods::Method::IntegratedGradients { rule, adaptive: None, .. } => rule,
+            _ => Rule::Midpoint,
+        }
+    }
+}
+
+/// Which tests a review runs, and how far. `None`: the test is not run.
+#[derive(Clone, Debug)]
+pub struct Settings {
+    pub curves: Option<CurveSettings>,
+    /// The baseline strip: each baseline's reading and its curves (filled from that baseline).
+    pub strip: Vec<Baseline>,
+    pub cascade: Option<CascadeSettings>,
+    pub convergence: Option<ConvergenceSettings>,
+    pub shapley: Option<ShapleySettings>,
+    /// How regions are found (Shapley over regions, mark shares).
+    pub finder: FinderSettings,
+}
+
+impl Default for Settings {
+    fn default() -> Self {
+        Settings {
+            curves: Some(CurveSettings::default()),
+            strip: vec![],
+            cascade: Some(CascadeSettings::default()),
+            convergence: Some(ConvergenceSettings::default()),
+            shapley: Some(ShapleySettings::default()),
+            finder: FinderSettings::default(),
+        }
+    }
+}
+
+/// One baseline of the strip.
+#[derive(Clone, Debug, Serialize)]
+pub struct StripEntry {
+    pub baseline: String,
+    pub title: String,
+    pub reading: Reading,
+    pub curves: Curves,
+}
+
+/// A test that could not run, and why.
+#[derive(Clone, Debug, Serialize)]
+pub struct Skipped {
+    pub test: String,
+    pub reason: String,
+}
+
+/// The phases of [`run`], for progress displays.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Phase {
+    Reading,
+    Curves,
+    Strip,
+    Randomisation,
+    Convergence,
+    Shapley,
+}
+
+impl Phase {
+    pub fn title(self) -> &'static str {
+        match self {
+            Phase::Reading => "reading",
+            Phase::Curves => "deletion and insertion",
+            Phase::Strip => "baseline strip",
+            Phase::Randomisation => "randomisation cascade",
+            Phase::Convergence => "convergence",
+            Phase::Shapley => "region Shapley",
+        }
+    }
+}
+
+/// Everything a review found.
+#[derive(Clone, Debug, Serialize)]
+pub struct Review {
+    pub reading: Reading,
+    /// The request in words.
+    pub request: String,
+    pub curves: Option<Curves>,
+    pub strip: Vec<StripEntry>,
+    pub cascade: Option<Cascade>,
+    pub convergence: Option<Convergence>,
+    pub shapley: Option<Shapley>,
+    #[serde(skip)]
+    pub regions: Vec<Region>,
+    /// Readings whose completeness gap exceeds the paper's 5 %, ladders that never reach the gap.
+    pub warnings: Vec<String>,
+    pub skipped: Vec<Skipped>,
+    /// Seconds per phase.
+    pub seconds: Vec<(String, f64)>,
+}
+
+/// A warning for a reading whose completeness gap exceeds [`defaults::WARN_GAP`].
+pub fn gap_warning(what: &str, gap: Option<f64>) -> Option<String> {
+    gap.filter(|g| *g > defaults::WARN_GAP).map(|g| {
+        format!(
+            "{what}: completeness gap {:.1} % exceeds the 5 % the method's paper advises checking for (Sundararajan et al. 2017); \
+             raise the step count before reading the map",
+            g * 100.0
+        )
+    })
+}
+
+/// Runs `f`; a failure other than a cancel becomes a skipped test.
+fn attempt<T>(test: &str, skipped: &mut Vec<Skipped>, f: impl FnOnce() -> Result<T>) -> Result<Option<T>> {
+    match f() {
+        Ok(v) => Ok(Some(v)),
+        Err(e) if is_cancelled(&e) => Err(e),
+        Err(e) => {
+            skipped.push(Skipped { test: test.into(), reason: format!("{e:#}") });
+            Ok(None)
+        }
+    }
+}
+
+/// Reads `input` with `request` and runs the tests `settings` asks for. A test that cannot run
+/// on this model (no reverse pass, no layers to re-draw) is listed in `skipped`; a cancel stops
+/// everything. `phase` is told each phase as it starts; `ctl`'s progress restarts with each.
+pub fn run(
+    model: &Model,
+    card: Option<&FeedCard>,
+    input: &Input,
+    request: &Request,
+    settings: &Settings,
+    ctl: &Control,
+    phase: &dyn Fn(Phase),
+) -> Result<Review> {
+    let mut seconds = vec![];
+    let mut clock = |p: Phase, t: Instant| seconds.push((p.title().to_string(), t.elapsed().as_secs_f64()));
+    phase(Phase::Reading);
+    let t = Instant::now();
+    let reading = methods::explain(model, card, input, request, ctl)?;
+    clock(Phase::Reading, t);
+    let case = Case::new(model, card, input, request, &reading)?;
+    let regions = match input {
+        Input::Picture { picture, .. } => find_regions(&picture.luminance(), &settings.finder.for_picture(picture.burned_in_annotation())),
+        Input::Tensor { .. } => vec![],
+    };
+    // Players first: a grid that does not fit the image is the user's to fix, before any work.
+    let players = match &settings.shapley {
+        Some(s) => Some(case.players(&s.players, &regions)?),
+        None => None,
+    };
+    let mut skipped = vec![];
+    let mut warnings: Vec<String> = gap_warning(&format!("the reading ({})", reading.method), reading.completeness_gap).into_iter().collect();
+
+    let mut curves = None;
+    if let Some(s) = &settings.curves {
+        phase(Phase::Curves);
+        let t = Instant::now();
+        curves = attempt("curves", &mut skipped, || case.curves(&reading, &request.baseline, s, ctl))?;
+        clock(Phase::Curves, t);
+    }
+    let mut strip = vec![];
+    if !settings.strip.is_empty() {
+        phase(Phase::Strip);
+        let t = Instant::now();
+        let cs = settings.curves.clone().unwrap_or_default();
+        for b in &settings.strip {
+            let req = Request { baseline: b.clone(), ..case.request.clone() };
+            let entry = attempt(&format!("baseline strip: {}", b.label()), &mut skipped, || {
+                let r = methods::explain(model, card, input, &req, ctl)?;
+                let c = case.curves(&r, b, &cs, ctl)?;
+                Ok(StripEntry { baseline: b.label(), title: b.title(), reading: r, curves: c })
+            })?;
+            if let Some(e) = entry {
+                warnings.extend(gap_warning(&format!("the reading with baseline {}", e.baseline), e.reading.completeness_gap));
+                strip.push(e);
+            }
+        }
+        clock(Phase::Strip, t);
+    }
+    let mut cascade = None;
+    if let Some(s) = &settings.cascade {
+        phase(Phase::Randomisation);
+        let t = Instant::now();
+        cascade = attempt("randomisation", &mut skipped, || randomise::cascade(&case, &reading, s, ctl))?;
+        for mc in cascade.iter().flat_map(|c| &c.methods) {
+            for st in &mc.steps {
+                warnings.extend(gap_warning(&format!("the {} map with {} layers re-drawn", mc.method, st.layers_randomised), st.completeness_gap));
+            }
+        }
+        clock(Phase::Randomisation, t);
+    }
+    let mut convergence = None;
+    if let Some(s) = &settings.convergence {
+        phase(Phase::Convergence);
+        let t = Instant::now();
+        convergence = attempt("convergence", &mut skipped, || {
+            model.gradient_ready()?;
+            case.convergence(s, ctl)
+        })?;
+        if let Some(c) = &convergence {
+            if c.rules.iter().all(|l| l.steps_to_gap.is_none()) {
+                warnings.push(format!(
+                    "no quadrature rule reached a completeness gap of {} % within {} steps",
+                    c.target_gap * 100.0,
+                    s.max_steps
+                ));
+            }
+        }
+        clock(Phase::Convergence, t);
+    }
+    let mut shapley = None;
+    if let (Some(s), Some(p)) = (&settings.shapley, &players) {
+        phase(Phase::Shapley);
+        let t = Instant::now();
+        shapley = attempt("shapley", &mut skipped, || case.shapley(p, s, ctl))?;
+        clock(Phase::Shapley, t);
+    }
+    if matches!(settings.shapley.as_ref().map(|s| &s.players), Some(Players::Regions)) && regions.is_empty() {
+        warnings.push("no regions were found: the Shapley game has one player, the whole image".into());
+    }
+    Ok(Review {
+        request: case.request.describe(),
+        reading,
+        curves,
+        strip,
+        cascade,
+        convergence,
+        shapley,
+        regions,
+        warnings,
+        skipped,
+        seconds,
+    })
+}
+
+/// Checks the review's settings before any work; the message says what to change.
+pub fn check(settings: &Settings) -> Result<()> {
+    if let Some(c) = &settings.curves {
+        if c.steps == 0 {
+            bail!("the curves need at least one step");
+        }
+    }
+    if let Some(s) = &settings.shapley {
+        if s.permutations == 0 {
+            bail!("the Shapley estimate needs at least one permutation");
+        }
+    }
+    if let Some(c) = &settings.cascade {
+        if c.layers == Some(0) {
+            bail!("the randomisation cascade needs at least one layer");
+        }
+        if !(c.top_share > 0.0 && c.top_share <= 1.0) {
+            bail!("the top share must be above 0 and at most 1, not {}", c.top_share);
+        }
+    }
+    Ok(())
+}
