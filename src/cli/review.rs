@@ -37,6 +37,10 @@ pub struct ReviewArgs {
     /// its own reading and its own curves, filled from it.
     #[arg(long, value_delimiter = ',', value_name = "LIST")]
     pub baselines: Vec<String>,
+    /// What fills removed pixels in the curves and absent parts in the Shapley values (a
+    /// baseline form; default: the reading's baseline, and in the strip each baseline its own).
+    #[arg(long, value_name = "BASELINE")]
+    pub fill: Option<String>,
     /// Shapley values of N×N grid cells.
     #[arg(long, default_value_t = d::GRID, value_parser = RangedU64ValueParser::<usize>::new().range(1..))]
     pub grid: usize,
@@ -50,6 +54,10 @@ pub struct ReviewArgs {
     /// Steps of the deletion and insertion curves (points at 0, 1/N, …, 1 of the pixels).
     #[arg(long, default_value_t = d::CURVE_STEPS, value_parser = RangedU64ValueParser::<usize>::new().range(1..))]
     pub curve_steps: usize,
+    /// Side of the square patches the curves move together, in model-grid pixels (1: single
+    /// pixels, as RISE does; N: N×N regions ranked by the map's sum, as Samek et al. 2017).
+    #[arg(long, default_value_t = d::CURVE_PATCH, value_parser = RangedU64ValueParser::<usize>::new().range(1..))]
+    pub curve_patch: usize,
     /// Random orders averaged for the curves' reference.
     #[arg(long, default_value_t = d::RANDOM_ORDERS, value_parser = RangedU64ValueParser::<usize>::new().range(1..))]
     pub random_orders: usize,
@@ -113,7 +121,8 @@ impl ReviewArgs {
         let on = |t: &str| !self.skip.iter().any(|s| s == t);
         let strip = self.baselines.iter().map(|b| Baseline::parse(b)).collect::<Result<Vec<_>>>().context("--baselines")?;
         let s = Settings {
-            curves: on("curves").then(|| CurveSettings { steps: self.curve_steps, random_orders: self.random_orders, seed: self.review_seed }),
+            fill: self.fill.as_deref().map(Baseline::parse).transpose().context("--fill")?,
+            curves: on("curves").then(|| CurveSettings { steps: self.curve_steps, random_orders: self.random_orders, seed: self.review_seed, patch: self.curve_patch }),
             strip,
             cascade: on("randomisation").then(|| -> Result<CascadeSettings> {
                 Ok(CascadeSettings { layers: self.cascade_layers, seed: self.review_seed, top_share: d::TOP_SHARE, methods: self.cascade_methods()? })
@@ -214,7 +223,7 @@ fn print_summary(r: &Review, against: Option<&review::against::Against>) {
             .iter()
             .map(|l| format!("{} {}", l.rule.name(), l.steps_to_gap.map(|s| format!("at {s} steps")).unwrap_or_else(|| "not reached".into())))
             .collect();
-        println!("convergence to a {} % gap: {}", c.target_gap * 100.0, reach.join(", "));
+        println!("convergence to a {} % gap: {}", crate::render::plot::tick_label(c.target_gap * 100.0), reach.join(", "));
     }
     if let Some(s) = &r.shapley {
         let top = s.cells.iter().max_by(|a, b| a.value.abs().total_cmp(&b.value.abs()));

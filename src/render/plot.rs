@@ -245,9 +245,10 @@ mod tests {
         let t = ticks(0.0, 1.0, 5);
         assert_eq!(t.len(), 6);
         assert!(t.iter().zip([0.0, 0.2, 0.4, 0.6, 0.8, 1.0]).all(|(a, b)| (a - b).abs() < 1e-12), "{t:?}");
-        let t = ticks(-1.37, 2.9, 4);
-        assert_eq!(t.first().copied(), Some(-1.0));
-        assert!(t.windows(2).all(|w| (w[1] - w[0] - 1.0).abs() < 1e-9));
+        // About six ticks over 4.27: a step of 1 (0.71 rounds up to 1).
+        assert_eq!(ticks(-1.37, 2.9, 6), vec![-1.0, 0.0, 1.0, 2.0]);
+        // About four: a step of 2 (1.07 rounds up to 2).
+        assert_eq!(ticks(-1.37, 2.9, 4), vec![0.0, 2.0]);
         assert_eq!(tick_label(0.25), "0.25");
         assert_eq!(tick_label(2.0), "2");
     }

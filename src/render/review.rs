@@ -246,7 +246,7 @@ fn strip_block(r: &Review, pixels: &Array3<f32>, sign: Sign) -> Option<RgbImage>
     let (cell_w, cell_h, per_row) = (390u32, 200u32, 3usize);
     let rows = r.strip.len().div_ceil(per_row) as u32;
     let mut img = canvas(40 + rows * cell_h);
-    draw_text(&mut img, MARGIN, 8, 16.0, "Baseline strip: each baseline's reading, and its deletion (amber) and insertion (teal) curves, filled from it", INK);
+    draw_text(&mut img, MARGIN, 8, 16.0, "Baseline strip: each baseline's reading with its deletion (amber) and insertion (teal) curves", INK);
     draw_text(&mut img, MARGIN, 28, 11.0, "Solid: the map's order; dashed: random orders. Lead: how far the map's order beats random, as a share of F(x) − F(baseline).", INK);
     for (i, e) in r.strip.iter().enumerate() {
         let (x, y) = (MARGIN + (i % per_row) as u32 * cell_w, 44 + (i / per_row) as u32 * cell_h);
@@ -255,7 +255,7 @@ fn strip_block(r: &Review, pixels: &Array3<f32>, sign: Sign) -> Option<RgbImage>
             let t = tint(pixels, &map, robust_scale(&map), sign, crate::methods::defaults::OPACITY);
             put(&mut img, &fit(&t, 130, 130, false), x, y + 22);
         }
-        draw_text(&mut img, x, y + 4, 12.0, &e.title, INK);
+        draw_text(&mut img, x, y + 4, 12.0, &format!("{}, fill {}", e.title, e.curves.fill), INK);
         let lead = |c: &Curve| c.lead.map(|l| format!("{l:+.2}")).unwrap_or_else(|| "—".into());
         let gap = e.reading.completeness_gap.map(|g| format!("gap {:.1} %", g * 100.0)).unwrap_or_default();
         draw_text(&mut img, x, y + 158, 11.0, &format!("lead: deletion {}, insertion {}", lead(&e.curves.deletion), lead(&e.curves.insertion)), INK);

@@ -4,7 +4,7 @@
 //! - `deletion`, `insertion`: `{fractions, scores, auc, random_auc, random_scores, random_aucs,
 //!   lead}`, filled from `curve_fill`;
 //! - `baselines`: the strip, each baseline's reading figures and its two curves;
-//! - `randomisation`: the reading's method through the cascade, `{layers_randomised, layer,
+//! - `randomisation`: the reading's method through the cascade (or the first method asked for), `{layers_randomised, layer,
 //!   spearman, top_overlap, spearman_signed, top_overlap_signed, …}` in cascade order;
 //!   `randomisation_detail`: the layers, the initialisers and every method's cascade;
 //! - `convergence`: `{steps, gap, sum}` in increasing steps for the reading's quadrature rule;
@@ -80,7 +80,12 @@ impl<'a> ReviewFile<'a> {
                     insertion: &e.curves.insertion,
                 })
                 .collect(),
-            randomisation: r.cascade.as_ref().and_then(|c| c.methods.first()).map(|m| m.steps.as_slice()),
+            // The reading's own method when the cascade ran it, else the first one asked for.
+            randomisation: r
+                .cascade
+                .as_ref()
+                .and_then(|c| c.methods.iter().find(|m| m.method == r.reading.method).or(c.methods.first()))
+                .map(|m| m.steps.as_slice()),
             randomisation_detail: r.cascade.as_ref(),
             convergence_rule: rule,
             convergence: r.convergence.as_ref().and_then(|c| c.ladder(rule)).map(|l| l.points.as_slice()),

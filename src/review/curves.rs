@@ -20,7 +20,7 @@ use rand::seq::SliceRandom;
 use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
-use super::blend;
+use super::GridIndex;
 use crate::control::Control;
 use crate::methods::Scorer;
 use crate::model::Model;
@@ -33,11 +33,20 @@ pub struct CurveSettings {
     /// Random orders averaged for the reference.
     pub random_orders: usize,
     pub seed: u64,
+    /// Side of the square patches (model-grid pixels) that move together: 1 moves single
+    /// pixels, as RISE does; larger patches move as regions, ranked by the map's sum inside
+    /// them (the region perturbation of Samek et al. 2017).
+    pub patch: usize,
 }
 
 impl Default for CurveSettings {
     fn default() -> Self {
-        CurveSettings { steps: super::defaults::CURVE_STEPS, random_orders: super::defaults::RANDOM_ORDERS, seed: super::defaults::SEED }
+        CurveSettings {
+            steps: super::defaults::CURVE_STEPS,
+            random_orders: super::defaults::RANDOM_ORDERS,
+            seed: super::defaults::SEED,
+            patch: super::defaults::CURVE_PATCH,
+        }
     }
 }
 
@@ -79,17 +88,39 @@ pub fn trapezoid(xs: &[f64], ys: &[f64]) -> f64 {
     xs.windows(2).zip(ys.windows(2)).map(|(x, y)| (x[1] - x[0]) * (y[0] + y[1]) / 2.0).sum()
 }
 
-/// Positions 0..h·w of a model-grid map, most supporting first; ties by position.
-pub fn attribution_order(map: &Array2<f32>) -> Vec<usize> {
-    let flat: Vec<f32> = map.iter().copied().collect();
-    let mut order: Vec<usize> = (0..flat.len()).collect();
-    // Stable sort: equal values keep row-major order.
-    order.sort_by(|&a, &b| flat[b].total_cmp(&flat[a]));
-    order
+/// The square patches of side `side` tiling an h×w grid from its top-left corner (the last row
+/// and column of patches may be narrower), each as its positions in row-major order; patches in
+/// row-major order.
+pub fn patches(h: usize, w: usize, side: usize) -> Vec<Vec<usize>> {
+    let side = side.max(1);
+    let mut out = vec![];
+    for y0 in (0..h).step_by(side) {
+        for x0 in (0..w).step_by(side) {
+            out.push((y0..(y0 + side).min(h)).flat_map(|y| (x0..(x0 + side).min(w)).map(move |x| y * w + x)).collect());
+        }
+    }
+    out
 }
 
-/// Random order number `k` of `n` positions under `seed` (the reference curves use k = 0..R).
-pub fn random_order(n: usize, seed: u64, k: usize) -> Vec<usize> {
+/// Units (patches) most supporting first by the map's sum inside them, ties by unit index;
+/// returned as the order of their positions.
+pub fn attribution_order(map: &Array2<f32>, units: &[Vec<usize>]) -> Vec<usize> {
+    let flat: Vec<f32> = map.iter().copied().collect();
+    let sums: Vec<f64> = units.iter().map(|u| u.iter().map(|&p| flat[p] as f64).sum()).collect();
+    let mut order: Vec<usize> = (0..units.len()).collect();
+    // Stable sort: equal sums keep row-major order.
+    order.sort_by(|&a, &b| sums[b].total_cmp(&sums[a]));
+    order.iter().flat_map(|&u| units[u].iter().copied()).collect()
+}
+
+/// Random order number `k` of the units under `seed` (the reference curves use k = 0..R),
+/// returned as the order of their positions.
+pub fn random_order(units: &[Vec<usize>], seed: u64, k: usize) -> Vec<usize> {
+    shuffled(units.len(), seed, k).iter().flat_map(|&u| units[u].iter().copied()).collect()
+}
+
+/// Permutation number `k` of 0..n under `seed`.
+pub fn shuffled(n: usize, seed: u64, k: usize) -> Vec<usize> {
     let mut order: Vec<usize> = (0..n).collect();
     let mut rng = ChaCha8Rng::seed_from_u64(seed.wrapping_add(k as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15));
     order.shuffle(&mut rng);
@@ -127,8 +158,10 @@ pub fn curves(
         bail!("the fill has shape {:?}, the input {:?}", fill.shape(), x.shape());
     }
     let n = grid.0 * grid.1;
-    let mut orders = vec![attribution_order(map)];
-    orders.extend((0..settings.random_orders).map(|k| random_order(n, settings.seed, k)));
+    let index = GridIndex::new(x.shape(), spatial);
+    let units = patches(grid.0, grid.1, settings.patch);
+    let mut orders = vec![attribution_order(map, &units)];
+    orders.extend((0..settings.random_orders).map(|k| random_order(&units, settings.seed, k)));
     let counts = counts(n, settings.steps);
     let inner = &counts[1..settings.steps];
     ctl.begin(2 + (orders.len() * inner.len() * 2) as u64);
@@ -147,11 +180,11 @@ pub fn curves(
                     .map(|&c| {
                         // Share of x kept at each position: deletion keeps all but the first c,
                         // insertion only the first c.
-                        let mut keep = Array2::<f32>::from_elem(grid, if deleting { 1.0 } else { 0.0 });
+                        let mut keep = vec![if deleting { 1.0f32 } else { 0.0 }; n];
                         for &p in &order[..c] {
-                            keep[[p / grid.1, p % grid.1]] = if deleting { 0.0 } else { 1.0 };
+                            keep[p] = if deleting { 0.0 } else { 1.0 };
                         }
-                        blend(x, fill, &keep, spatial)
+                        index.blend(x, fill, &keep)
                     })
                     .collect();
                 scores.extend(model.forward_many(&xs, scorer.tap, ctl)?.iter().map(|v| scorer.score(v) as f64));
@@ -193,13 +226,20 @@ mod tests {
     fn orders_and_counts() {
         let m = ndarray::array![[0.5f32, -1.0], [2.0, 0.5]];
         // 2.0 first, then the two 0.5s in row-major order, then −1.
-        assert_eq!(attribution_order(&m), vec![2, 0, 3, 1]);
-        let r = random_order(10, 3, 1);
+        assert_eq!(attribution_order(&m, &patches(2, 2, 1)), vec![2, 0, 3, 1]);
+        let singles = patches(2, 5, 1);
+        let r = random_order(&singles, 3, 1);
         let mut s = r.clone();
         s.sort();
         assert_eq!(s, (0..10).collect::<Vec<_>>());
-        assert_eq!(r, random_order(10, 3, 1), "seeded");
-        assert_ne!(r, random_order(10, 3, 2));
+        assert_eq!(r, random_order(&singles, 3, 1), "seeded");
+        assert_ne!(r, random_order(&singles, 3, 2));
+        // 2-pixel patches of a 3×3 grid holding 0..9: units [0,1,3,4], [2,5], [6,7], [8] with
+        // sums 8, 7, 13, 8: unit 2 first, then the two 8s in unit order (0, then 3), then 7.
+        let g = Array2::from_shape_vec((3, 3), (0..9).map(|v| v as f32).collect()).unwrap();
+        let u = patches(3, 3, 2);
+        assert_eq!(u, vec![vec![0, 1, 3, 4], vec![2, 5], vec![6, 7], vec![8]]);
+        assert_eq!(attribution_order(&g, &u), vec![6, 7, 0, 1, 3, 4, 8, 2, 5]);
         assert_eq!(counts(10, 4), vec![0, 3, 5, 8, 10]); // 2.5 and 7.5 round away from zero
     }
 }

@@ -7,6 +7,11 @@
 /// percent (the trapezoid rule's error falls as 1/steps²) at 2 × 31 forwards per order.
 pub const CURVE_STEPS: usize = 32;
 
+/// Side of the patches the curves move, in model-grid pixels: 1, single pixels, as RISE
+/// defines the curves (Petsiuk et al. 2018). `--curve-patch N` moves N×N regions instead, as
+/// the region perturbation of Samek et al. (2017) does.
+pub const CURVE_PATCH: usize = 1;
+
 /// Random orders averaged for the reference curve. A few, seeded: the mean of 4 orders has
 /// half the spread of one, and costs 4 × 62 forwards.
 pub const RANDOM_ORDERS: usize = 4;

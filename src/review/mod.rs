@@ -27,7 +27,7 @@ pub mod sweeps;
 use std::time::Instant;
 
 use anyhow::{Result, bail};
-use ndarray::{Array2, ArrayD, Zip};
+use ndarray::{Array2, ArrayD};
 use serde::Serialize;
 
 use crate::control::Control;
@@ -42,25 +42,64 @@ use curves::{CurveSettings, Curves};
 use randomise::{Cascade, CascadeSettings};
 use shapley::{Players, Shapley, ShapleySettings};
 
-/// `xb + m ⊙ (x − xb)` with `m` on the model grid (broadcast over the other axes); where m is
-/// 0 or 1 (within 1e-5) the value is xb's or x's exactly, so the two ends are the fill and the
-/// input bit for bit.
-pub(crate) fn blend(x: &ArrayD<f32>, xb: &ArrayD<f32>, m: &Array2<f32>, spatial: [usize; 2]) -> ArrayD<f32> {
-    let mut shape = vec![1usize; x.ndim()];
-    shape[spatial[0]] = m.nrows();
-    shape[spatial[1]] = m.ncols();
-    let m = if spatial[0] < spatial[1] { m.to_owned() } else { m.t().to_owned() };
-    let m = m.into_shape_with_order(shape).expect("the mask has the grid's size");
-    let m = m.broadcast(x.raw_dim()).expect("the mask broadcasts over the other axes");
-    let mut out = xb.clone();
-    Zip::from(&mut out).and(x).and(&m).for_each(|o, &xv, &w| {
-        if w >= 1.0 - 1e-5 {
-            *o = xv;
-        } else if w > 1e-5 {
-            *o += w * (xv - *o);
+/// Where each element of a model-input tensor (in standard order) lies on the model's grid, so
+/// that a grid-shaped mask can be spread over the tensor in one pass over flat slices.
+pub struct GridIndex {
+    shape: Vec<usize>,
+    grid: (usize, usize),
+    pos: Vec<u32>,
+}
+
+impl GridIndex {
+    pub fn new(shape: &[usize], spatial: [usize; 2]) -> GridIndex {
+        let grid = (shape[spatial[0]], shape[spatial[1]]);
+        let len: usize = shape.iter().product();
+        let mut pos = Vec::with_capacity(len);
+        let mut at = vec![0usize; shape.len()];
+        for _ in 0..len {
+            pos.push((at[spatial[0]] * grid.1 + at[spatial[1]]) as u32);
+            // Odometer over the axes, last fastest (standard order).
+            for a in (0..shape.len()).rev() {
+                at[a] += 1;
+                if at[a] < shape[a] {
+                    break;
+                }
+                at[a] = 0;
+            }
         }
-    });
-    out
+        GridIndex { shape: shape.to_vec(), grid, pos }
+    }
+
+    /// (rows, columns) of the model grid.
+    pub fn grid(&self) -> (usize, usize) {
+        self.grid
+    }
+
+    /// `xb + m ⊙ (x − xb)`, `m` given per grid position (row-major, rows × columns). Where m is
+    /// 0 or 1 (within 1e-5) the value is xb's or x's exactly, so the two ends are the fill and
+    /// the input bit for bit.
+    pub fn blend(&self, x: &ArrayD<f32>, xb: &ArrayD<f32>, m: &[f32]) -> ArrayD<f32> {
+        assert_eq!(m.len(), self.grid.0 * self.grid.1, "one weight per grid position");
+        assert!(x.shape() == self.shape.as_slice() && xb.shape() == self.shape.as_slice(), "tensors of the indexed shape");
+        let (xs, bs) = (x.as_standard_layout(), xb.as_standard_layout());
+        let (xs, bs) = (xs.as_slice().expect("standard layout"), bs.as_slice().expect("standard layout"));
+        let out: Vec<f32> = self
+            .pos
+            .iter()
+            .zip(xs.iter().zip(bs))
+            .map(|(&p, (&xv, &bv))| {
+                let w = m[p as usize];
+                if w >= 1.0 - 1e-5 {
+                    xv
+                } else if w <= 1e-5 {
+                    bv
+                } else {
+                    bv + w * (xv - bv)
+                }
+            })
+            .collect();
+        ArrayD::from_shape_vec(self.shape.clone(), out).expect("same number of elements")
+    }
 }
 
 /// The reading under review and what its tests share: the model, its card, the input, the
@@ -113,15 +152,15 @@ impl<'a> Case<'a> {
         }
     }
 
-    /// Shapley values of `players`, absent players filled from the request's baseline.
-    pub fn shapley(&self, players: &[shapley::Player], settings: &ShapleySettings, ctl: &Control) -> Result<Shapley> {
-        let xb = self.fill(&self.request.baseline)?;
+    /// Shapley values of `players`, absent players filled from `fill`.
+    pub fn shapley(&self, players: &[shapley::Player], fill: &Baseline, settings: &ShapleySettings, ctl: &Control) -> Result<Shapley> {
+        let xb = self.fill(fill)?;
         let game = shapley::Game::new(self.model, self.scorer, &self.x, &xb, self.spatial, players)?;
         let grid = match settings.players {
             Players::Grid(n) => Some(n),
             Players::Regions => None,
         };
-        shapley::estimate(&game, settings.permutations, settings.seed, &self.request.baseline.label(), grid, ctl)
+        shapley::estimate(&game, settings.permutations, settings.seed, &fill.label(), grid, ctl)
     }
 
     /// The quadrature rule of the request's integrated gradients (midpoint when it refines or
@@ -137,8 +176,11 @@ impl<'a> Case<'a> {
 /// Which tests a review runs, and how far. `None`: the test is not run.
 #[derive(Clone, Debug)]
 pub struct Settings {
+    /// What takes the place of removed pixels in the curves and of absent players in the
+    /// Shapley game; `None`: the request's baseline (and in the strip, each baseline its own).
+    pub fill: Option<Baseline>,
     pub curves: Option<CurveSettings>,
-    /// The baseline strip: each baseline's reading and its curves (filled from that baseline).
+    /// The baseline strip: each baseline's reading and its curves.
     pub strip: Vec<Baseline>,
     pub cascade: Option<CascadeSettings>,
     pub convergence: Option<ConvergenceSettings>,
@@ -150,6 +192,7 @@ pub struct Settings {
 impl Default for Settings {
     fn default() -> Self {
         Settings {
+            fill: None,
             curves: Some(CurveSettings::default()),
             strip: vec![],
             cascade: Some(CascadeSettings::default()),
@@ -231,6 +274,21 @@ pub fn gap_warning(what: &str, gap: Option<f64>) -> Option<String> {
     })
 }
 
+/// A warning when removing pixels in random order raises the score above both ends of the
+/// deletion curve: the curve then measures the model's reaction to the removal pattern (pixels
+/// it never saw in training) as much as the map's order.
+pub fn curve_warning(what: &str, c: &Curves) -> Option<String> {
+    let top = c.score_input.max(c.score_fill);
+    (c.deletion.random_auc > top).then(|| {
+        format!(
+            "{what}: removing pixels in random order raises the score (mean {:.3}) above both the input's {:.3} and the fill's {:.3}; \
+             the curves then measure the model's reaction to the removal pattern as much as the map. Larger patches \
+             (--curve-patch) or another fill may read better",
+            c.deletion.random_auc, c.score_input, c.score_fill
+        )
+    })
+}
+
 /// Runs `f`; a failure other than a cancel becomes a skipped test.
 fn attempt<T>(test: &str, skipped: &mut Vec<Skipped>, f: impl FnOnce() -> Result<T>) -> Result<Option<T>> {
     match f() {
@@ -274,11 +332,13 @@ pub fn run(
     let mut skipped = vec![];
     let mut warnings: Vec<String> = gap_warning(&format!("the reading ({})", reading.method), reading.completeness_gap).into_iter().collect();
 
+    let fill = settings.fill.clone().unwrap_or_else(|| request.baseline.clone());
     let mut curves = None;
     if let Some(s) = &settings.curves {
         phase(Phase::Curves);
         let t = Instant::now();
-        curves = attempt("curves", &mut skipped, || case.curves(&reading, &request.baseline, s, ctl))?;
+        curves = attempt("curves", &mut skipped, || case.curves(&reading, &fill, s, ctl))?;
+        warnings.extend(curves.as_ref().and_then(|c| curve_warning("deletion curve", c)));
         clock(Phase::Curves, t);
     }
     let mut strip = vec![];
@@ -290,11 +350,12 @@ pub fn run(
             let req = Request { baseline: b.clone(), ..case.request.clone() };
             let entry = attempt(&format!("baseline strip: {}", b.label()), &mut skipped, || {
                 let r = methods::explain(model, card, input, &req, ctl)?;
-                let c = case.curves(&r, b, &cs, ctl)?;
+                let c = case.curves(&r, settings.fill.as_ref().unwrap_or(b), &cs, ctl)?;
                 Ok(StripEntry { baseline: b.label(), title: b.title(), reading: r, curves: c })
             })?;
             if let Some(e) = entry {
                 warnings.extend(gap_warning(&format!("the reading with baseline {}", e.baseline), e.reading.completeness_gap));
+                warnings.extend(curve_warning(&format!("deletion curve of the reading with baseline {}", e.baseline), &e.curves));
                 strip.push(e);
             }
         }
@@ -323,7 +384,7 @@ pub fn run(
         if let Some(c) = &convergence {
             if c.rules.iter().all(|l| l.steps_to_gap.is_none()) {
                 warnings.push(format!(
-                    "no quadrature rule reached a completeness gap of {} % within {} steps",
+                    "no quadrature rule reached a completeness gap of {:.2} % within {} steps",
                     c.target_gap * 100.0,
                     s.max_steps
                 ));
@@ -335,7 +396,7 @@ pub fn run(
     if let (Some(s), Some(p)) = (&settings.shapley, &players) {
         phase(Phase::Shapley);
         let t = Instant::now();
-        shapley = attempt("shapley", &mut skipped, || case.shapley(p, s, ctl))?;
+        shapley = attempt("shapley", &mut skipped, || case.shapley(p, &fill, s, ctl))?;
         clock(Phase::Shapley, t);
     }
     if matches!(settings.shapley.as_ref().map(|s| &s.players), Some(Players::Regions)) && regions.is_empty() {
@@ -377,4 +438,37 @@ pub fn check(settings: &Settings) -> Result<()> {
         }
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::IxDyn;
+
+    #[test]
+    fn blend_puts_each_grid_weight_on_every_channel_of_its_position() {
+        // NHWC 1×2×3×2 (spatial axes 1, 2): position (r, c) holds elements 2·(3r + c) and +1.
+        let x = ArrayD::from_shape_fn(IxDyn(&[1, 2, 3, 2]), |i| (i[1] * 6 + i[2] * 2 + i[3]) as f32 + 0.1);
+        let xb = ArrayD::from_elem(IxDyn(&[1, 2, 3, 2]), -1.0f32);
+        let g = GridIndex::new(x.shape(), [1, 2]);
+        assert_eq!(g.grid(), (2, 3));
+        let m = [1.0, 0.0, 0.5, 0.0, 1.0, 0.25];
+        let out = g.blend(&x, &xb, &m);
+        for r in 0..2 {
+            for c in 0..3 {
+                for k in 0..2 {
+                    let w = m[r * 3 + c];
+                    let (xv, bv) = (x[[0, r, c, k]], xb[[0, r, c, k]]);
+                    let want = if w == 1.0 { xv } else if w == 0.0 { bv } else { bv + w * (xv - bv) };
+                    assert_eq!(out[[0, r, c, k]], want, "({r},{c},{k})");
+                }
+            }
+        }
+        // NCHW, spatial axes 2, 3: all ones give x bit for bit, all zeros the fill.
+        let x = ArrayD::from_shape_fn(IxDyn(&[1, 3, 2, 2]), |i| (i[1] * 4 + i[2] * 2 + i[3]) as f32 / 7.0);
+        let xb = x.mapv(|v| v * 0.5 + 0.01);
+        let g = GridIndex::new(x.shape(), [2, 3]);
+        assert_eq!(g.blend(&x, &xb, &[1.0; 4]), x);
+        assert_eq!(g.blend(&x, &xb, &[0.0; 4]), xb);
+    }
 }

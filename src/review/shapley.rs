@@ -26,8 +26,8 @@ use anyhow::{Result, bail};
 use ndarray::{Array2, Array3, ArrayD};
 use serde::{Deserialize, Serialize};
 
-use super::blend;
-use super::curves::random_order;
+use super::GridIndex;
+use super::curves::shuffled;
 use crate::control::Control;
 use crate::methods::{Input, Scorer};
 use crate::model::Model;
@@ -130,7 +130,10 @@ fn on_model_grid(input: &Input, mask: &Array2<bool>) -> Result<Array2<f32>> {
 pub fn grid_players(input: &Input, n: usize) -> Result<Vec<Player>> {
     let (h, w) = image_dims(input)?;
     if n == 0 || n > h.min(w) {
-        bail!("a Shapley grid of {n}×{n} cells does not fit a {w}×{h} image; give --grid from 1 to {}", h.min(w));
+        bail!(
+            "a Shapley grid of {n}×{n} cells does not fit a {w}×{h} image; give --grid from 1 to {}, or leave the Shapley values out with --skip shapley",
+            h.min(w)
+        );
     }
     let edge = |k: usize, side: usize| ((k as f64 * side as f64 / n as f64).round() as usize).min(side);
     let mut out = Vec::with_capacity(n * n);
@@ -171,8 +174,10 @@ pub struct Game<'a> {
     scorer: Scorer,
     x: &'a ArrayD<f32>,
     fill: &'a ArrayD<f32>,
-    spatial: [usize; 2],
     players: &'a [Player],
+    /// Each player's nonzero (grid position, share) pairs.
+    sparse: Vec<Vec<(u32, f32)>>,
+    index: GridIndex,
     empty: f64,
     full: f64,
     /// Values already computed, by coalition bits.
@@ -208,7 +213,12 @@ impl<'a> Game<'a> {
         }
         let ends = model.forward_many(&[fill.clone(), x.clone()], scorer.tap, &Control::new())?;
         let (empty, full) = (scorer.score(&ends[0]) as f64, scorer.score(&ends[1]) as f64);
-        Ok(Game { model, scorer, x, fill, spatial, players, empty, full, known: Mutex::new(HashMap::new()) })
+        let sparse = players
+            .iter()
+            .map(|p| p.mask.iter().enumerate().filter(|(_, w)| **w != 0.0).map(|(i, w)| (i as u32, *w)).collect())
+            .collect();
+        let index = GridIndex::new(x.shape(), spatial);
+        Ok(Game { model, scorer, x, fill, players, sparse, index, empty, full, known: Mutex::new(HashMap::new()) })
     }
 
     pub fn players(&self) -> usize {
@@ -227,11 +237,14 @@ impl<'a> Game<'a> {
 
     /// The model input of a coalition (`members[i]`: player i present).
     pub fn input_of(&self, members: &[bool]) -> ArrayD<f32> {
-        let mut m = Array2::<f32>::zeros(self.players[0].mask.dim());
-        for (p, _) in self.players.iter().zip(members).filter(|(_, in_)| **in_) {
-            m += &p.mask;
+        let (h, w) = self.index.grid();
+        let mut m = vec![0.0f32; h * w];
+        for (p, _) in self.sparse.iter().zip(members).filter(|(_, in_)| **in_) {
+            for &(i, v) in p {
+                m[i as usize] += v;
+            }
         }
-        blend(self.x, self.fill, &m, self.spatial)
+        self.index.blend(self.x, self.fill, &m)
     }
 
     /// v(S) of each coalition. The empty and the full coalition are the two ends exactly; others
@@ -345,7 +358,7 @@ pub fn orders_for(n: usize, budget: usize, seed: u64) -> (Vec<Vec<usize>>, bool)
     let pairs = budget.div_ceil(2).max(1);
     let mut out = Vec::with_capacity(2 * pairs);
     for k in 0..pairs {
-        let o = random_order(n, seed, k);
+        let o = shuffled(n, seed, k);
         let mut r = o.clone();
         r.reverse();
         out.push(o);
