@@ -116,6 +116,14 @@ pub fn tick_label(v: f64) -> String {
     }
 }
 
+/// Where a legend goes.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Corner {
+    TopRight,
+    BottomRight,
+    BottomLeft,
+}
+
 /// A plot area inside an image: data ranges and how they map to pixels.
 #[derive(Clone, Copy, Debug)]
 pub struct Axes {
@@ -211,11 +219,17 @@ impl Axes {
         self.polyline(img, &[(self.xr.0, v), (self.xr.1, v)], c, 1.2, Some(4.0));
     }
 
-    /// A legend of (colour, dashed, text) rows in the plot's top right corner.
-    pub fn legend(&self, img: &mut RgbImage, rows: &[([u8; 3], bool, String)], bottom: bool) {
+    /// A legend of (colour, dashed, text) rows in a corner of the plot.
+    pub fn legend_at(&self, img: &mut RgbImage, rows: &[([u8; 3], bool, String)], corner: Corner) {
         let wmax = rows.iter().map(|r| text_width(&r.2, 11.0)).fold(0.0, f32::max);
-        let x = self.x + self.w - wmax - 34.0;
-        let y0 = if bottom { self.y + self.h - 6.0 - 14.0 * rows.len() as f32 } else { self.y + 6.0 };
+        let x = match corner {
+            Corner::BottomLeft => self.x + 8.0,
+            _ => self.x + self.w - wmax - 34.0,
+        };
+        let y0 = match corner {
+            Corner::TopRight => self.y + 6.0,
+            _ => self.y + self.h - 6.0 - 14.0 * rows.len() as f32,
+        };
         fill_rect(img, x as i64 - 4, y0 as i64 - 2, (wmax + 36.0) as i64, 14 * rows.len() as i64 + 4, PAPER.0, 0.85);
         for (i, (c, dashed, t)) in rows.iter().enumerate() {
             let y = y0 + 14.0 * i as f32 + 7.0;

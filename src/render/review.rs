@@ -9,7 +9,7 @@ use image::{Rgb, RgbImage};
 use ndarray::{Array2, Array3};
 
 use super::colour::lch_to_srgb;
-use super::plot::{Axes, INK, PAPER, fill_rect, outline, text_centred, tick_label, ticks, wrap};
+use super::plot::{Axes, Corner, INK, PAPER, fill_rect, outline, text_centred, tick_label, ticks, wrap};
 use super::{diverging, draw_text, map_rgb, opposing_colour, robust_scale, supporting_colour, text_width, tint};
 use crate::methods::Rule;
 use crate::review::Review;
@@ -74,7 +74,7 @@ fn curve_plot(img: &mut RgbImage, left: u32, top: u32, w: u32, h: u32, title: &s
         (colour, false, format!("map order, area {}{lead}", tick_label(c.auc))),
         (RANDOM, true, format!("random ({}), area {}", c.random_aucs.len(), tick_label(c.random_auc))),
     ];
-    ax.legend(img, &rows, legend_bottom);
+    ax.legend_at(img, &rows, if legend_bottom { Corner::BottomRight } else { Corner::TopRight });
 }
 
 /// Both curves of one fill in one small plot (the baseline strip).
@@ -96,7 +96,7 @@ fn header(r: &Review) -> RgbImage {
     let title = format!("Review of a reading: {} under {}, class {} \"{}\"", rd.input, rd.model_file, rd.target.index, rd.target.label);
     draw_text(&mut img, MARGIN, 10, 20.0, &title, INK);
     let scores = format!(
-        "{}. Score ({}) at the input {:.3}{}{}",
+        "{}. Score, {}: at the input {:.3}{}{}",
         r.request,
         rd.score_kind.title(),
         rd.score_input,
@@ -160,7 +160,8 @@ fn convergence_plot(img: &mut RgbImage, left: u32, top: u32, w: u32, h: u32, c: 
         rows.push((colour, false, format!("{}: {} % at {reach}", rule.name(), tick_label(c.target_gap * 100.0))));
     }
     rows.push((WARN.0, true, "5 %, the paper's check".to_string()));
-    ax.legend(img, &rows, false);
+    // Gaps fall with the steps: the lower left is where the lines are least.
+    ax.legend_at(img, &rows, Corner::BottomLeft);
 }
 
 fn cascade_rows(mcs: &[MethodCascade], init: &str, seed: u64, share: f64) -> RgbImage {
@@ -209,10 +210,31 @@ fn shapley_block(r: &Review, pixels: &Array3<f32>) -> Option<RgbImage> {
     for c in &s.cells {
         let [x0, y0, x1, y1] = c.bbox.map(|v| (v as f32 * scale).round() as i64);
         let col = diverging((c.value / top) as f32);
-        fill_rect(&mut tile, x0, y0, x1 - x0, y1 - y0, col, 0.6 * ((c.value.abs() / top) as f32).sqrt().max(0.15));
-        outline(&mut tile, x0, y0, x1 - x0, y1 - y0, [90, 90, 90]);
+        let alpha = 0.6 * ((c.value.abs() / top) as f32).sqrt().max(0.15);
+        match &c.pixels {
+            // A region: its own pixels, each tile pixel looked up on the image.
+            Some(m) => {
+                for ty in 0..tile.height() {
+                    for tx in 0..tile.width() {
+                        let (iy, ix) = (((ty as f32 + 0.5) / scale) as usize, ((tx as f32 + 0.5) / scale) as usize);
+                        if m.get((iy, ix)).copied().unwrap_or(false) {
+                            super::plot::blend_pixel(&mut tile, tx as i64, ty as i64, col, alpha);
+                        }
+                    }
+                }
+            }
+            None => {
+                fill_rect(&mut tile, x0, y0, x1 - x0, y1 - y0, col, alpha);
+                outline(&mut tile, x0, y0, x1 - x0, y1 - y0, [90, 90, 90]);
+            }
+        }
         if x1 - x0 >= 30 && y1 - y0 >= 16 && s.grid.is_some() {
-            text_centred(&mut tile, (x0 + x1) as f32 / 2.0, ((y0 + y1) / 2 - 6).max(0) as u32, 10.0, &tick_label(c.value), INK);
+            // A light label behind the figure so it reads on dark film.
+            let t = tick_label(c.value);
+            let tw = text_width(&t, 10.0) as i64;
+            let (cx, cy) = ((x0 + x1) / 2, (y0 + y1) / 2);
+            fill_rect(&mut tile, cx - tw / 2 - 2, cy - 7, tw + 4, 13, PAPER.0, 0.75);
+            text_centred(&mut tile, cx as f32, (cy - 6).max(0) as u32, 10.0, &t, INK);
         }
     }
     put(&mut img, &tile, MARGIN, 30);

@@ -35,7 +35,6 @@ use crate::feed::FeedCard;
 use crate::methods::{self, Baseline, Input, Reading, Request, Rule, Scorer, TargetSpec};
 use crate::model::{Model, is_cancelled};
 use crate::regions::{FinderSettings, Region, find_regions};
-use crate::sweep::read::grid_map;
 
 use convergence::{Convergence, ConvergenceSettings};
 use curves::{CurveSettings, Curves};
@@ -73,6 +72,17 @@ impl GridIndex {
     /// (rows, columns) of the model grid.
     pub fn grid(&self) -> (usize, usize) {
         self.grid
+    }
+
+    /// A tensor-shaped map summed onto the model grid (channels added).
+    pub fn grid_map(&self, t: &ArrayD<f32>) -> Array2<f32> {
+        assert_eq!(t.shape(), self.shape.as_slice(), "a map of the indexed shape");
+        let mut m = Array2::<f32>::zeros(self.grid);
+        let flat = m.as_slice_mut().expect("a new array is contiguous");
+        for (&p, v) in self.pos.iter().zip(t.as_standard_layout().iter()) {
+            flat[p as usize] += v;
+        }
+        m
     }
 
     /// `xb + m ⊙ (x − xb)`, `m` given per grid position (row-major, rows × columns). Where m is
@@ -113,13 +123,16 @@ pub struct Case<'a> {
     pub x: ArrayD<f32>,
     pub spatial: [usize; 2],
     pub scorer: Scorer,
+    pub index: GridIndex,
 }
 
 impl<'a> Case<'a> {
     pub fn new(model: &'a Model, card: Option<&'a FeedCard>, input: &'a Input, request: &Request, reading: &Reading) -> Result<Case<'a>> {
         let request = Request { target: TargetSpec::Index(reading.target.index), ..request.clone() };
         let scorer = Scorer::new(model, card, request.score, reading.target.index)?;
-        Ok(Case { model, card, input, request, x: input.model_tensor()?, spatial: input.spatial_axes()?, scorer })
+        let (x, spatial) = (input.model_tensor()?, input.spatial_axes()?);
+        let index = GridIndex::new(x.shape(), spatial);
+        Ok(Case { model, card, input, request, x, spatial, scorer, index })
     }
 
     /// A baseline as a model-input tensor (the fill of curves and Shapley values).
@@ -129,7 +142,7 @@ impl<'a> Case<'a> {
 
     /// A reading's map on the model's grid (channels summed).
     pub fn grid_map(&self, r: &Reading) -> Array2<f32> {
-        grid_map(&r.tensor_map, self.spatial)
+        self.index.grid_map(&r.tensor_map)
     }
 
     /// Deletion and insertion curves of `reading` filled from `fill`.
@@ -268,7 +281,7 @@ pub fn gap_warning(what: &str, gap: Option<f64>) -> Option<String> {
     gap.filter(|g| *g > defaults::WARN_GAP).map(|g| {
         format!(
             "{what}: completeness gap {:.1} % exceeds the 5 % the method's paper advises checking for (Sundararajan et al. 2017); \
-             raise the step count before reading the map",
+             raise the steps (or samples) before reading the map",
             g * 100.0
         )
     })
@@ -368,7 +381,9 @@ pub fn run(
         cascade = attempt("randomisation", &mut skipped, || randomise::cascade(&case, &reading, s, ctl))?;
         for mc in cascade.iter().flat_map(|c| &c.methods) {
             for st in &mc.steps {
-                warnings.extend(gap_warning(&format!("the {} map with {} layers re-drawn", mc.method, st.layers_randomised), st.completeness_gap));
+                let k = st.layers_randomised;
+                let what = format!("the {} map with {k} layer{} re-drawn", mc.method, if k == 1 { "" } else { "s" });
+                warnings.extend(gap_warning(&what, st.completeness_gap));
             }
         }
         clock(Phase::Randomisation, t);
@@ -470,5 +485,9 @@ mod tests {
         let g = GridIndex::new(x.shape(), [2, 3]);
         assert_eq!(g.blend(&x, &xb, &[1.0; 4]), x);
         assert_eq!(g.blend(&x, &xb, &[0.0; 4]), xb);
+        // Summing back onto the grid adds the channels: position (0, 1) holds 1/7, 5/7, 9/7.
+        let m = g.grid_map(&x);
+        assert!((m[[0, 1]] - 15.0 / 7.0).abs() < 1e-6);
+        assert!((m.sum() - x.sum()).abs() < 1e-5);
     }
 }

@@ -69,6 +69,8 @@ pub struct Player {
     pub bbox: [usize; 4],
     /// The player's share of each position of the model's grid (0..1).
     pub mask: Array2<f32>,
+    /// A region player's pixels on the image (grid cells are their boxes).
+    pub pixels: Option<Array2<bool>>,
 }
 
 /// One player's value.
@@ -80,6 +82,9 @@ pub struct Cell {
     pub value: f64,
     /// Standard error of `value`: 0 when exact, `None` from a single pair of orders.
     pub stderr: Option<f64>,
+    /// A region player's pixels on the image, for pictures of the values.
+    #[serde(skip)]
+    pub pixels: Option<Array2<bool>>,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -141,7 +146,7 @@ pub fn grid_players(input: &Input, n: usize) -> Result<Vec<Player>> {
         for c in 0..n {
             let (y0, y1, x0, x1) = (edge(r, h), edge(r + 1, h), edge(c, w), edge(c + 1, w));
             let mask = Array2::from_shape_fn((h, w), |(y, x)| (y0..y1).contains(&y) && (x0..x1).contains(&x));
-            out.push(Player { label: format!("cell {r},{c}"), bbox: [x0, y0, x1, y1], mask: on_model_grid(input, &mask)? });
+            out.push(Player { label: format!("cell {r},{c}"), bbox: [x0, y0, x1, y1], mask: on_model_grid(input, &mask)?, pixels: None });
         }
     }
     Ok(out)
@@ -159,11 +164,11 @@ pub fn region_players(input: &Input, regions: &[Region]) -> Result<Vec<Player>> 
         let own = Array2::from_shape_fn((h, w), |p| r.mask[p] && !taken[p]);
         let Some(bbox) = mask_bbox(&own) else { continue };
         taken.zip_mut_with(&own, |t, &o| *t |= o);
-        out.push(Player { label: r.label(), bbox, mask: on_model_grid(input, &own)? });
+        out.push(Player { label: r.label(), bbox, mask: on_model_grid(input, &own)?, pixels: Some(own) });
     }
     let rest = taken.mapv(|t| !t);
     if let Some(bbox) = mask_bbox(&rest) {
-        out.push(Player { label: "the rest of the image".into(), bbox, mask: on_model_grid(input, &rest)? });
+        out.push(Player { label: "the rest of the image".into(), bbox, mask: on_model_grid(input, &rest)?, pixels: Some(rest) });
     }
     Ok(out)
 }
@@ -401,7 +406,7 @@ pub fn estimate(game: &Game, budget: usize, seed: u64, fill: &str, grid: Option<
             } else {
                 None
             };
-            Cell { bbox: p.bbox, label: p.label.clone(), value: mean, stderr }
+            Cell { bbox: p.bbox, label: p.label.clone(), value: mean, stderr, pixels: p.pixels.clone() }
         })
         .collect();
     let estimator = if exact {

@@ -19,7 +19,8 @@ use std::path::Path;
 use anyhow::{Context, Result, bail};
 use serde::{Deserialize, Serialize};
 
-use crate::sweep::Row;
+// Only the sweep's data types and intervals (plain values, no files or pictures).
+use crate::sweep::row::Row;
 use crate::sweep::stats::{Interval, bootstrap_difference, bootstrap_mean, newcombe, wilson};
 
 /// One figure in both sweeps and their difference (second − first).
