@@ -127,11 +127,16 @@ impl ReviewArgs {
             cascade: on("randomisation").then(|| -> Result<CascadeSettings> {
                 Ok(CascadeSettings { layers: self.cascade_layers, seed: self.review_seed, top_share: d::TOP_SHARE, methods: self.cascade_methods()? })
             }).transpose()?,
-            convergence: on("convergence").then(|| ConvergenceSettings {
-                min_steps: d::CONVERGENCE_MIN_STEPS.min(self.convergence_max),
-                max_steps: self.convergence_max,
-                ..Default::default()
-            }),
+            convergence: on("convergence")
+                .then(|| -> Result<ConvergenceSettings> {
+                    // The gap to reach: the one the reading refines to, if it does.
+                    let target_gap = match self.reading.method()? {
+                        Method::IntegratedGradients { adaptive: Some(g), .. } => g as f64,
+                        _ => d::CONVERGENCE_GAP,
+                    };
+                    Ok(ConvergenceSettings { min_steps: d::CONVERGENCE_MIN_STEPS.min(self.convergence_max), max_steps: self.convergence_max, target_gap })
+                })
+                .transpose()?,
             shapley: on("shapley").then(|| ShapleySettings {
                 players: if self.players == "regions" { Players::Regions } else { Players::Grid(self.grid) },
                 permutations: self.permutations,
@@ -234,6 +239,9 @@ fn print_summary(r: &Review, against: Option<&review::against::Against>) {
             s.estimator,
             top.map(|c| format!("; largest {} at {:?}: {:+.4} ± {}", c.label, c.bbox, c.value, f(c.stderr))).unwrap_or_default()
         );
+        if let Some(rho) = s.map_agreement {
+            println!("  the reading's map summed over the same parts ranks them with Spearman ρ {rho:.3} against the Shapley values");
+        }
     }
     if let Some(a) = against {
         let m = &a.agreement[0];

@@ -249,6 +249,9 @@ fn shapley_block(r: &Review, pixels: &Array3<f32>) -> Option<RgbImage> {
         format!("Sum of the values {:.4}; F(x) − F(fill) = {:.4} − {:.4} = {:.4} (efficiency).", s.sum, s.score_input, s.score_baseline, s.score_input - s.score_baseline),
         format!("{}.", s.estimator),
     ];
+    if let Some(rho) = s.map_agreement {
+        lines.push(format!("The reading's map summed over the same parts ranks them with Spearman ρ {rho:.2} against these values."));
+    }
     let mut ranked: Vec<&crate::review::shapley::Cell> = s.cells.iter().collect();
     ranked.sort_by(|a, b| b.value.abs().total_cmp(&a.value.abs()));
     for c in ranked.iter().take(5) {

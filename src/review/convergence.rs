@@ -54,8 +54,8 @@ pub struct RuleLadder {
     pub rule: Rule,
     /// In increasing steps.
     pub points: Vec<Point>,
-    /// The smallest step count of the ladder whose gap is at most the target; `None` when none
-    /// reaches it.
+    /// The smallest step count of the ladder from which on every gap is at most the target;
+    /// `None` when the largest count's gap is above it.
     pub steps_to_gap: Option<usize>,
 }
 
@@ -75,6 +75,16 @@ pub struct Convergence {
 impl Convergence {
     pub fn ladder(&self, rule: Rule) -> Option<&RuleLadder> {
         self.rules.iter().find(|l| l.rule == rule)
+    }
+}
+
+/// The step count from which on the ladder's gaps stay at or under `target`: a gap that dips
+/// under it once and rises again is not reached yet. `None` when the last one is over it.
+pub fn reached(points: &[Point], target: f64) -> Option<usize> {
+    let over = |p: &Point| p.gap.is_none_or(|g| g > target);
+    match points.iter().rposition(over) {
+        Some(i) => points.get(i + 1).map(|p| p.steps),
+        None => points.first().map(|p| p.steps),
     }
 }
 
@@ -144,7 +154,7 @@ pub fn convergence(
                     Point { steps: m, gap, sum }
                 })
                 .collect();
-            let steps_to_gap = points.iter().find(|p| p.gap.is_some_and(|g| g <= settings.target_gap)).map(|p| p.steps);
+            let steps_to_gap = reached(&points, settings.target_gap);
             RuleLadder { rule, points, steps_to_gap }
         })
         .collect();
@@ -169,6 +179,15 @@ mod tests {
         assert_eq!(ladder(&s(4, 64)), vec![4, 8, 16, 32, 64]);
         assert_eq!(ladder(&s(4, 50)), vec![4, 8, 16, 32, 50]);
         assert_eq!(ladder(&s(8, 8)), vec![8]);
+    }
+
+    #[test]
+    fn a_gap_is_reached_where_it_stays_under_the_target() {
+        let pts = |gaps: &[f64]| -> Vec<Point> { gaps.iter().enumerate().map(|(k, g)| Point { steps: 4 << k, gap: Some(*g), sum: 0.0 }).collect() };
+        let reach = |gaps: &[f64]| reached(&pts(gaps), 0.01);
+        assert_eq!(reach(&[0.005, 0.02, 0.008, 0.001]), Some(16), "dips under at 4, rises at 8, stays under from 16");
+        assert_eq!(reach(&[0.001, 0.002]), Some(4));
+        assert_eq!(reach(&[0.001, 0.02]), None);
     }
 
     #[test]

@@ -412,6 +412,9 @@ pub fn run(
         phase(Phase::Shapley);
         let t = Instant::now();
         shapley = attempt("shapley", &mut skipped, || case.shapley(p, &fill, s, ctl))?;
+        if let Some(sh) = shapley.as_mut() {
+            shapley::cross_check(sh, p, &case.grid_map(&reading));
+        }
         clock(Phase::Shapley, t);
     }
     if matches!(settings.shapley.as_ref().map(|s| &s.players), Some(Players::Regions)) && regions.is_empty() {

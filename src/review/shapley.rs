@@ -82,6 +82,8 @@ pub struct Cell {
     pub value: f64,
     /// Standard error of `value`: 0 when exact, `None` from a single pair of orders.
     pub stderr: Option<f64>,
+    /// The reading's attribution summed over the player's part (set by [`cross_check`]).
+    pub map_sum: Option<f64>,
     /// A region player's pixels on the image, for pictures of the values.
     #[serde(skip)]
     pub pixels: Option<Array2<bool>>,
@@ -104,6 +106,10 @@ pub struct Shapley {
     pub estimator: String,
     /// The largest |Σ marginals − (F(x) − F(fill))| over the orders used (0 up to rounding).
     pub efficiency_error: f64,
+    /// Spearman's ρ between the players' values and the reading's attribution summed over each
+    /// (set by [`cross_check`]): whether the map and the forwards-only values rank the parts
+    /// alike.
+    pub map_agreement: Option<f64>,
 }
 
 /// The image grid of an input: the picture's pixels, or a tensor's spatial axes.
@@ -406,7 +412,7 @@ pub fn estimate(game: &Game, budget: usize, seed: u64, fill: &str, grid: Option<
             } else {
                 None
             };
-            Cell { bbox: p.bbox, label: p.label.clone(), value: mean, stderr, pixels: p.pixels.clone() }
+            Cell { bbox: p.bbox, label: p.label.clone(), value: mean, stderr, map_sum: None, pixels: p.pixels.clone() }
         })
         .collect();
     let estimator = if exact {
@@ -425,7 +431,23 @@ pub fn estimate(game: &Game, budget: usize, seed: u64, fill: &str, grid: Option<
         exact,
         estimator,
         efficiency_error,
+        map_agreement: None,
     })
+}
+
+/// Sets each cell's sum of `map` (a reading's map on the model grid) over its player's part and
+/// the rank agreement of those sums with the values: a cross-check of a gradient method against
+/// values that need only forwards.
+pub fn cross_check(sh: &mut Shapley, players: &[Player], map: &Array2<f32>) {
+    if players.len() != sh.cells.len() || players.iter().any(|p| p.mask.dim() != map.dim()) {
+        return;
+    }
+    for (c, p) in sh.cells.iter_mut().zip(players) {
+        c.map_sum = Some(p.mask.iter().zip(map.iter()).map(|(w, v)| *w as f64 * *v as f64).sum());
+    }
+    let row = |f: &dyn Fn(&Cell) -> f64| Array2::from_shape_vec((1, sh.cells.len()), sh.cells.iter().map(|c| f(c) as f32).collect()).expect("one row");
+    let (values, sums) = (row(&|c| c.value), row(&|c| c.map_sum.unwrap_or(0.0)));
+    sh.map_agreement = crate::methods::agree::spearman(&values, &sums);
 }
 
 #[cfg(test)]

@@ -19,7 +19,7 @@ use spurion::model::{LoadOptions, Model, read_proto};
 use spurion::review::curves::{CurveSettings, counts, patches, random_order, trapezoid};
 use spurion::review::randomise::CascadeSettings;
 use spurion::review::redraw::{layers, redraw, values};
-use spurion::review::shapley::{Players, ShapleySettings, grid_players};
+use spurion::review::shapley::{Players, ShapleySettings, cross_check, grid_players};
 use spurion::review::{Case, convergence::ConvergenceSettings, randomise};
 use spurion::sign::Sign;
 
@@ -118,7 +118,7 @@ fn curves_are_the_cumulative_attributions_in_the_maps_order_and_in_random_orders
 fn shapley_values_of_cells_are_their_attributions_for_every_order() {
     let l = linear();
     let req = request(ig());
-    let (_, case) = read(&l, &req);
+    let (reading, case) = read(&l, &req);
     let s = ShapleySettings { players: Players::Grid(4), permutations: 6, seed: 3 };
     let players = grid_players(&l.input, 4).unwrap();
     let fill = Baseline::Value { value: FILL };
@@ -135,6 +135,14 @@ fn shapley_values_of_cells_are_their_attributions_for_every_order() {
     }
     let diff = sh.score_input - sh.score_baseline;
     assert!((sh.sum - diff).abs() <= 1e-9 * diff.abs().max(1.0), "efficiency: {} against {diff}", sh.sum);
+    // The cross-check: integrated gradients summed over a cell are that cell's Shapley value on
+    // a linear model, so the two rank the cells alike.
+    let mut sh = sh;
+    cross_check(&mut sh, &players, &case.grid_map(&reading));
+    for c in &sh.cells {
+        assert!((c.map_sum.unwrap() - c.value).abs() < 1e-4, "{}: map {:?} against {}", c.label, c.map_sum, c.value);
+    }
+    assert!((sh.map_agreement.unwrap() - 1.0).abs() < 1e-12);
 }
 
 #[test]
