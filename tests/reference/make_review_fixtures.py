@@ -9,6 +9,8 @@ The weights are seeded random numbers; each graph's answer is known by construct
 - flat.onnx: a linear model of a flat [1, 64] input: a tensor-only model with no image layout.
 - norm_net.onnx: Conv, BatchNormalization, MatMul with a constant weight and an Add, to check
   which nodes count as layers and how each parameter is re-drawn.
+- no_reverse.onnx: a Conv and a Gemm followed by Atan, an op spurion has no reverse step for:
+  gradient methods refuse it, forwards-only tests (occlusion, Shapley values, curves) run.
 """
 import os
 import numpy as np
@@ -90,11 +92,33 @@ def norm_net():
     save(g, "norm_net.onnx")
 
 
+def no_reverse():
+    r = np.random.default_rng(53)
+    g = helper.make_graph(
+        [
+            helper.make_node("Conv", ["x", "cw", "cb"], ["c"], pads=[1, 1, 1, 1], kernel_shape=[3, 3], name="conv"),
+            helper.make_node("Relu", ["c"], ["a"]),
+            helper.make_node("Flatten", ["a"], ["f"], axis=1),
+            helper.make_node("Gemm", ["f", "w", "b"], ["z"], transB=1, name="fc"),
+            helper.make_node("Atan", ["z"], ["y"]),
+        ],
+        "no_reverse",
+        [helper.make_tensor_value_info("x", TensorProto.FLOAT, [1, 1, 8, 8])],
+        [helper.make_tensor_value_info("y", TensorProto.FLOAT, [1, 2])],
+        [
+            init("cw", r.normal(scale=0.5, size=(2, 1, 3, 3))), init("cb", r.normal(scale=0.1, size=(2,))),
+            init("w", r.normal(scale=0.3, size=(2, 128))), init("b", r.normal(scale=0.1, size=(2,))),
+        ],
+    )
+    save(g, "no_reverse.onnx")
+
+
 def main():
     os.makedirs(OUT, exist_ok=True)
     half()
     flat()
     norm_net()
+    no_reverse()
     print("wrote", sorted(os.listdir(OUT)))
 
 

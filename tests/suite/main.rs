@@ -23,6 +23,7 @@ mod review_cli;
 mod review_compare;
 mod review_half;
 mod review_linear;
+mod review_run;
 mod review_sample;
 mod review_shapley;
 mod regions_demo;
