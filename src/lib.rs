@@ -5,8 +5,10 @@
 //! (ONNX on CPU, forward) and [`grad`] (exact reverse pass), both over [`graph`] (tract plans
 //! and window geometry) → [`methods`] (attribution methods and baselines, producing a
 //! [`methods::Reading`]) → [`regions`] (border bands, burned-in marks and the figures over them)
-//! → [`report`] (the files written) → presentation ([`render`] for pictures, [`cli`], [`gui`]).
-//! [`ledger`] keeps the curator's verdicts, notes and drawn regions (it uses [`regions`]).
+//! → [`review`] (the reviewer's tests of a reading) and [`sweep`] (one reading per image over a
+//! folder, with each group's figures) → [`report`] (the files written) → presentation
+//! ([`render`] for pictures, [`cli`], [`gui`]). [`ledger`] keeps the curator's verdicts, notes
+//! and drawn regions (it uses [`regions`]).
 //! [`sign`] and [`control`] sit below everything. Imports point one way: the engine (feed,
 //! model, grad, methods, regions) never imports render, report, cli or gui, and neither front
 //! end imports the other; the binary picks the front end.
@@ -24,6 +26,7 @@ pub mod model;
 pub mod regions;
 pub mod render;
 pub mod report;
+pub mod review;
 pub mod sign;
 pub mod sweep;
 

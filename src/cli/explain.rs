@@ -174,7 +174,7 @@ fn default_out(input: &Input, method: &str) -> PathBuf {
     PathBuf::from(format!("reading-{stem}-{method}"))
 }
 
-fn write_json(path: &Path, v: &serde_json::Value) -> Result<()> {
+pub(super) fn write_json(path: &Path, v: &serde_json::Value) -> Result<()> {
     let tmp = path.with_extension("json.part");
     std::fs::write(&tmp, serde_json::to_string_pretty(v)? + "\n")
         .with_context(|| format!("cannot write {}", tmp.display()))?;
@@ -182,7 +182,7 @@ fn write_json(path: &Path, v: &serde_json::Value) -> Result<()> {
 }
 
 /// What the overlay is drawn on: the picture, or a tensor's channel mean scaled to 0..1.
-fn backdrop(input: &Input, map2: &Array2<f32>) -> Array3<f32> {
+pub(super) fn backdrop(input: &Input, map2: &Array2<f32>) -> Array3<f32> {
     match input {
         Input::Picture { picture, .. } => picture.pixels.clone(),
         Input::Tensor { tensor, .. } => {

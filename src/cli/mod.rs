@@ -7,6 +7,7 @@ mod feed;
 mod ledger;
 mod reading_args;
 mod regions;
+mod review;
 mod sweep;
 
 pub use reading_args::ReadingArgs;
@@ -43,6 +44,12 @@ pub enum Command {
     Predict(PredictArgs),
     /// One reading: an attribution map for one image or tensor, written to a folder.
     Explain(explain::ExplainArgs),
+    /// A reading and the tests a reviewer runs on it: deletion and insertion curves, the
+    /// randomisation cascade, integrated gradients' convergence, region Shapley values, and
+    /// optionally a second model; written as review.json and review.png.
+    Review(review::ReviewArgs),
+    /// Two sweeps' output folders compared group by group (suspect rate, mark share, flip rate).
+    CompareSweeps(review::CompareArgs),
     /// Border bands and burned-in marks of an image, found without any model.
     Regions(RegionsArgs),
     /// An image exactly as it is decoded and windowed for the model (before resizing and
@@ -237,6 +244,8 @@ pub fn run(command: Command) -> Result<()> {
         Command::Info(a) => info(&a),
         Command::Predict(a) => predict(&a),
         Command::Explain(a) => explain::run(&a),
+        Command::Review(a) => review::run(&a),
+        Command::CompareSweeps(a) => review::compare(&a),
         Command::Regions(a) => regions::run(&a.image, a.out.as_deref(), &Default::default()),
         Command::Demo(a) => demo(&a),
         Command::Feed(a) => feed::run(&a),

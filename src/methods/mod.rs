@@ -93,6 +93,22 @@ pub fn explain(model: &Model, card: Option<&FeedCard>, input: &Input, req: &Requ
     job.reading(out, &scores, &labels, started)
 }
 
+/// Draw `draw` of `baseline` for `input` as a model-input tensor: what a reading of `input`
+/// measures against (for pictures built on the model's grid, then normalised, as
+/// [`explain`] builds it).
+pub fn baseline_tensor(input: &Input, baseline: &Baseline, draw: u64) -> Result<ArrayD<f32>> {
+    let cache = FolderCache::default();
+    match input {
+        Input::Picture { feeder, picture } => {
+            let grid = feeder.prepare(&picture.pixels)?;
+            baseline::build(baseline, &Space::Grid { feeder, grid: &grid }, draw, &cache)
+        }
+        Input::Tensor { tensor, .. } => {
+            baseline::build(baseline, &Space::Tensor { tensor, spatial: input.spatial_axes()? }, draw, &cache)
+        }
+    }
+}
+
 /// Everything one method run reads: the model, the input and its tensor, the request and the
 /// resolved scoring.
 struct Job<'a> {

@@ -12,13 +12,8 @@ use tract_onnx::prelude::*;
 use tract_onnx::tract_hir::infer::Factoid;
 use tract_onnx::tract_core::internal::DimLike;
 
-/// The parsed graph before typing, plus the file facts the model keeps.
-pub(crate) struct Parsed {
-    pub model: InferenceModel,
-    pub sha256: String,
-}
-
-pub(crate) fn parse(path: &Path) -> Result<Parsed> {
+/// The ONNX file at `path` as its protobuf message, and the file's sha256.
+pub(crate) fn read(path: &Path) -> Result<(pb::ModelProto, String)> {
     let bytes = std::fs::read(path).with_context(|| {
         format!("cannot read the model file {}: check the path and permissions", path.display())
     })?;
@@ -26,14 +21,26 @@ pub(crate) fn parse(path: &Path) -> Result<Parsed> {
         bail!("the model file {} is empty: export the ONNX model again", path.display());
     }
     let sha256 = hex(&Sha256::digest(&bytes));
-    let onnx = tract_onnx::onnx();
-    let proto = onnx.proto_model_for_read(&mut &bytes[..]).map_err(|e| {
+    let proto = tract_onnx::onnx().proto_model_for_read(&mut &bytes[..]).map_err(|e| {
         anyhow!(
             "the model file {} is not a readable ONNX model (corrupt or truncated: {e}); \
              export it again or check the download",
             path.display()
         )
     })?;
+    Ok((proto, sha256))
+}
+
+/// The sha256 of a model held in memory: of its protobuf encoding.
+pub(crate) fn proto_sha256(proto: &pb::ModelProto) -> String {
+    use prost::Message;
+    hex(&Sha256::digest(proto.encode_to_vec()))
+}
+
+/// A protobuf model as tract's inference graph; `path` is where it came from (external data is
+/// looked for beside it, and errors name it).
+pub(crate) fn parse_proto(path: &Path, proto: &pb::ModelProto) -> Result<InferenceModel> {
+    let onnx = tract_onnx::onnx();
     let graph = proto.graph.as_ref().ok_or_else(|| {
         anyhow!(
             "the model file {} holds no graph (corrupt, truncated or not ONNX); export it again",
@@ -50,7 +57,7 @@ pub(crate) fn parse(path: &Path) -> Result<Parsed> {
     let dir = path.parent().unwrap_or(Path::new("."));
     check_external_data(path, dir, graph)?;
     let dir_str = dir.to_str().map(|s| if s.is_empty() { "." } else { s });
-    let parsed = onnx.parse(&proto, dir_str).map_err(|e| {
+    let parsed = onnx.parse(proto, dir_str).map_err(|e| {
         anyhow!(
             "tract could not read the graph in {}: {e:#}. The file may be truncated, or use an \
              operator tract does not know",
@@ -64,7 +71,7 @@ pub(crate) fn parse(path: &Path) -> Result<Parsed> {
             parsed.unresolved_inputs
         );
     }
-    Ok(Parsed { model: parsed.model, sha256 })
+    Ok(parsed.model)
 }
 
 /// External tensor data must live inside the model's own folder: a path that climbs out (or is
@@ -126,7 +133,7 @@ fn check_external_data(path: &Path, dir: &Path, graph: &pb::GraphProto) -> Resul
 /// The input dimensions the graph of `path` fixes (`None` where it leaves one open), read
 /// without typing the graph.
 pub fn input_dims(path: &Path) -> Result<Vec<Option<usize>>> {
-    let Parsed { model, .. } = parse(path)?;
+    let model = parse_proto(path, &read(path)?.0)?;
     if model.inputs.len() != 1 {
         bail!(
             "the model {} has {} inputs; spurion handles classifiers with exactly one image input",

@@ -12,6 +12,9 @@ mod occlude;
 
 pub use load::input_dims;
 
+/// The ONNX protobuf types a model is read from (re-exported for [`Model::load_proto`]).
+pub use tract_onnx::pb;
+
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, OnceLock};
 
@@ -110,8 +113,20 @@ pub struct Model {
 
 impl Model {
     pub fn load(path: &Path, opts: &LoadOptions) -> Result<Model> {
-        let load::Parsed { model: mut inference, sha256 } = load::parse(path)?;
-        let onnx_ops = onnx_op_counts(path)?;
+        let (proto, sha256) = load::read(path)?;
+        Self::from_proto(path, &proto, sha256, opts)
+    }
+
+    /// A model from an ONNX protobuf held in memory (one with re-drawn weights, say). `origin`
+    /// is the file it came from: external data is looked for beside it and errors name it. The
+    /// sha256 is of the protobuf's encoding.
+    pub fn load_proto(origin: &Path, proto: &pb::ModelProto, opts: &LoadOptions) -> Result<Model> {
+        Self::from_proto(origin, proto, load::proto_sha256(proto), opts)
+    }
+
+    fn from_proto(path: &Path, proto: &pb::ModelProto, sha256: String, opts: &LoadOptions) -> Result<Model> {
+        let mut inference = load::parse_proto(path, proto)?;
+        let onnx_ops = onnx_op_counts(proto);
         let input_shape = load::concrete_input_shape(path, &inference, opts.input_shape.as_deref())?;
         inference
             .set_input_fact(0, f32::fact(input_shape.clone()).into())
@@ -452,6 +467,12 @@ impl Model {
     }
 }
 
+/// The ONNX file at `path` as its protobuf message, and the file's sha256 (as
+/// [`Model::sha256`] gives it); errors say what is wrong with the file.
+pub fn read_proto(path: &Path) -> Result<(pb::ModelProto, String)> {
+    load::read(path)
+}
+
 /// True when `e` (or its cause chain) is a cancel rather than a failure.
 pub fn is_cancelled(e: &anyhow::Error) -> bool {
     e.chain().any(|c| c.downcast_ref::<Cancelled>().is_some())
@@ -485,10 +506,7 @@ fn final_softmax_input(g: &TypedModel, output: OutletId) -> Option<OutletId> {
     }
 }
 
-fn onnx_op_counts(path: &Path) -> Result<Vec<(String, usize)>> {
-    // Parsed a second time from the file only for the op census; cheap next to typing.
-    let bytes = std::fs::read(path)?;
-    let proto = tract_onnx::onnx().proto_model_for_read(&mut &bytes[..]).map_err(|e| anyhow!("{e}"))?;
+fn onnx_op_counts(proto: &pb::ModelProto) -> Vec<(String, usize)> {
     let mut counts: Vec<(String, usize)> = Vec::new();
     for n in proto.graph.iter().flat_map(|g| g.node.iter()) {
         match counts.iter_mut().find(|(op, _)| *op == n.op_type) {
@@ -497,5 +515,5 @@ fn onnx_op_counts(path: &Path) -> Result<Vec<(String, usize)>> {
         }
     }
     counts.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(&b.0)));
-    Ok(counts)
+    counts
 }

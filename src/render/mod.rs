@@ -2,6 +2,8 @@
 //! textures): the map alone with a legend, and the map tinted over the image.
 
 pub mod colour;
+pub mod plot;
+mod review;
 mod text;
 
 use std::path::Path;
@@ -12,6 +14,7 @@ use ndarray::{Array2, Array3};
 use crate::sign::Sign;
 
 pub use colour::{diverging, opposing_colour, sequential, supporting_colour};
+pub use review::review_panel;
 pub use text::{draw_text, text_width};
 
 /// The share of |values| that sets the colour scale's end: the 99.5th percentile, so a few

@@ -1,8 +1,10 @@
 //! The files spurion writes for other tools and people to read, as typed, serialisable values
 //! built from the engine's results (so every front end writes the same file): a reading's
-//! `reading.json`, and a sweep's tables, pictures and report.
+//! `reading.json`, a review's `review.json`, and a sweep's tables, pictures and report.
 
 mod reading;
+mod review;
 pub mod sweep;
 
 pub use reading::{PatientData, ReadingFile, SourceFacts};
+pub use review::{ReviewFile, StripFile};
