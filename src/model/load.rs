@@ -130,10 +130,8 @@ fn check_external_data(path: &Path, dir: &Path, graph: &pb::GraphProto) -> Resul
     Ok(())
 }
 
-/// The input dimensions the graph of `path` fixes (`None` where it leaves one open), read
-/// without typing the graph.
-pub fn input_dims(path: &Path) -> Result<Vec<Option<usize>>> {
-    let model = parse_proto(path, &read(path)?.0)?;
+/// The one input of a classifier's graph, or an error saying spurion takes one image input.
+fn the_input<'m>(path: &Path, model: &'m InferenceModel) -> Result<&'m InferenceFact> {
     if model.inputs.len() != 1 {
         bail!(
             "the model {} has {} inputs; spurion handles classifiers with exactly one image input",
@@ -141,7 +139,14 @@ pub fn input_dims(path: &Path) -> Result<Vec<Option<usize>>> {
             model.inputs.len()
         );
     }
-    let fact = model.input_fact(0).map_err(|e| anyhow!("{e}"))?;
+    model.input_fact(0).map_err(|e| anyhow!("{e}"))
+}
+
+/// The input dimensions the graph of `path` fixes (`None` where it leaves one open), read
+/// without typing the graph.
+pub fn input_dims(path: &Path) -> Result<Vec<Option<usize>>> {
+    let model = parse_proto(path, &read(path)?.0)?;
+    let fact = the_input(path, &model)?;
     if fact.shape.is_open() {
         bail!("the model {} does not say its input's rank; give its input shape (for example 1,3,224,224)", path.display());
     }
@@ -154,14 +159,7 @@ pub(crate) fn concrete_input_shape(
     model: &InferenceModel,
     wanted: Option<&[usize]>,
 ) -> Result<Vec<usize>> {
-    if model.inputs.len() != 1 {
-        bail!(
-            "the model {} has {} inputs; spurion handles classifiers with exactly one image input",
-            path.display(),
-            model.inputs.len()
-        );
-    }
-    let fact = model.input_fact(0).map_err(|e| anyhow!("{e}"))?;
+    let fact = the_input(path, model)?;
     if let Some(dt) = fact.datum_type.concretize() {
         if dt != f32::datum_type() {
             bail!(
