@@ -140,8 +140,8 @@ impl Inspector {
         panels::strip_panel(ui, self, &mut intents);
         panels::image_list(ui, self, &mut intents);
         panels::controls(ui, self, &mut intents);
-        panels::review_panel(ui, self, &mut intents);
-        panels::slide(ui, self);
+        // The centre shows the slide, or the review of the slide's reading.
+        if self.review.open { panels::review_panel(ui, self, &mut intents) } else { panels::slide(ui, self) }
         panels::about(ui, self, &mut intents);
         panels::drop_hint(ui);
 

@@ -43,9 +43,9 @@ pub enum ReviewIntent {
 pub enum ReviewDone {
     /// The review has started a phase.
     Phase(Phase),
-    Finished { result: Result<ReviewResult, String>, cancelled: bool },
+    Finished { result: Result<Box<ReviewResult>, String>, cancelled: bool },
     /// One strip reading's curves.
-    Curves { key: CurveKey, result: Result<Curves, String>, cancelled: bool },
+    Curves { key: CurveKey, result: Result<Box<Curves>, String>, cancelled: bool },
     /// The strip's curve job has ended (keys it never reached are pending no more).
     StripEnded,
 }
@@ -135,7 +135,7 @@ impl ReviewForm {
                 max_steps: self.convergence_max,
                 target_gap,
             }),
-            shapley: self.shapley.then(|| ShapleySettings {
+            shapley: self.shapley.then_some(ShapleySettings {
                 players: if self.regions { Players::Regions } else { Players::Grid(self.grid) },
                 permutations: self.permutations,
                 seed: self.seed,
@@ -312,7 +312,7 @@ impl Inspector {
                 let Some(run) = self.review.run.as_mut().filter(|r| r.job == id) else { return };
                 run.state = match result {
                     _ if cancelled => RunState::Cancelled,
-                    Ok(r) => RunState::Done(Arc::new(r)),
+                    Ok(r) => RunState::Done(Arc::from(r)),
                     Err(e) => RunState::Failed(e),
                 };
                 if let RunState::Failed(e) = &run.state {
@@ -326,7 +326,7 @@ impl Inspector {
                     return;
                 }
                 let slot = match result {
-                    Ok(c) => CurveSlot::Done(Arc::new(c)),
+                    Ok(c) => CurveSlot::Done(Arc::from(c)),
                     Err(e) => {
                         self.note(NoteKind::Error, format!("curves of {}: {e}", key.key.request.baseline.title()));
                         CurveSlot::Failed(e)
@@ -403,6 +403,7 @@ impl Inspector {
             self.select_path(&plan.image);
         }
         self.form.baseline = *kind;
+        self.review.open = false;
         if self.wanted_key().ok().as_ref() != Some(key) {
             self.note(
                 NoteKind::Info,

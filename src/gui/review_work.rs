@@ -21,12 +21,12 @@ use super::work::{Done, Outbox};
 
 /// The whole review of `request` on the prepared image: `review::run`, as `spurion review`
 /// calls it, each phase reported as it starts.
-pub fn run(session: &Session, prepared: &Prepared, request: &Request, settings: &Settings, ctl: &Control, outbox: &Outbox) -> Result<ReviewResult> {
+pub fn run(session: &Session, prepared: &Prepared, request: &Request, settings: &Settings, ctl: &Control, outbox: &Outbox) -> Result<Box<ReviewResult>> {
     let input = Input::picture((*prepared.picture).clone(), &session.card)?;
     let phase = |p| outbox.send(Done::Review(ReviewDone::Phase(p)));
     let review = review::run(&session.model, Some(&session.card), &input, request, settings, ctl, &phase)?;
     let images = images(&review, prepared.picture.height(), prepared.picture.width());
-    Ok(ReviewResult { review, images })
+    Ok(Box::new(ReviewResult { review, images }))
 }
 
 /// Each strip reading's deletion and insertion curves, filled from its own baseline (as
@@ -43,7 +43,7 @@ pub fn strip_curves(session: &Session, prepared: &Prepared, todo: Vec<(CurveKey,
             case.curves(reading, &key.key.request.baseline, settings, ctl)
         });
         let cancelled = r.as_ref().err().is_some_and(crate::model::is_cancelled) || ctl.is_cancelled();
-        outbox.send(Done::Review(ReviewDone::Curves { key, result: r.map_err(|e| format!("{e:#}")), cancelled }));
+        outbox.send(Done::Review(ReviewDone::Curves { key, result: r.map(Box::new).map_err(|e| format!("{e:#}")), cancelled }));
     }
 }
 

@@ -130,9 +130,15 @@ fn a_strip_tile_shows_its_reading_on_the_slide_and_each_baseline_has_the_engines
         assert!(h.query_by_label_contains(&t).is_some(), "the black reading's region figure {t:?}");
     }
 
-    // F2 shows the second tile (grey); a tile with no reading (custom, no image chosen) says so.
+    // F2 shows the second tile (grey), from the review view too (back on the slide); a tile with
+    // no reading (custom, no image chosen) says so.
+    h.get_by_label("Review").click();
+    h.run_steps(2);
+    assert!(h.state().review.open && h.query_by_label("Run review").is_some());
     h.key_press(egui::Key::F2);
     h.run_steps(2);
+    assert!(!h.state().review.open, "the slide is shown again");
+    assert!(h.query_by_label("fit").is_some(), "the slide's zoom buttons are back");
     assert_eq!(h.state().form.baseline, BaselineKind::Grey);
     assert_eq!(h.state().current_shown().unwrap().0, key_of(1));
     let custom = kinds.iter().position(|k| *k == BaselineKind::Image).unwrap();

@@ -95,17 +95,24 @@ impl Plot {
     }
 }
 
-/// One row of a legend: a short line sample in `colour` (dashed or solid) and its text.
+/// One entry of a legend, added to the current (horizontal) layout: a short line sample in
+/// `colour` (dashed or solid) and its text.
+pub fn legend_entry(ui: &mut egui::Ui, colour: Color32, dashed: bool, text: impl Into<egui::WidgetText>) {
+    let (r, _) = ui.allocate_exact_size(vec2(22.0, 10.0), Sense::hover());
+    let (a, b) = (pos2(r.left(), r.center().y), pos2(r.right(), r.center().y));
+    let stroke = Stroke::new(2.0, colour);
+    if dashed {
+        ui.painter().extend(Shape::dashed_line(&[a, b], stroke, 4.0, 3.0));
+    } else {
+        ui.painter().line_segment([a, b], stroke);
+    }
+    ui.label(text);
+}
+
+/// A legend entry on a row of its own, rows packed tight.
 pub fn legend_row(ui: &mut egui::Ui, colour: Color32, dashed: bool, text: impl Into<egui::WidgetText>) {
     ui.horizontal(|ui| {
-        let (r, _) = ui.allocate_exact_size(vec2(22.0, 10.0), Sense::hover());
-        let (a, b) = (pos2(r.left(), r.center().y), pos2(r.right(), r.center().y));
-        let stroke = Stroke::new(2.0, colour);
-        if dashed {
-            ui.painter().extend(Shape::dashed_line(&[a, b], stroke, 4.0, 3.0));
-        } else {
-            ui.painter().line_segment([a, b], stroke);
-        }
-        ui.label(text);
+        ui.set_height(14.0);
+        legend_entry(ui, colour, dashed, text);
     });
 }

@@ -6,7 +6,7 @@
 
 use egui::{Color32, FontId, Rect, RichText, Sense, Stroke, StrokeKind, pos2, vec2};
 
-use super::plot::{Plot, legend_row, range_of};
+use super::plot::{Plot, legend_entry, legend_row, range_of};
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
 use crate::gui::look;
@@ -125,17 +125,14 @@ fn reading_line(ui: &mut egui::Ui, text: String, warn: bool, def: &str) {
     ui.label(if warn { t.color(look::LILAC) } else { t }).on_hover_text(def);
 }
 
+/// The review in the centre, in place of the slide (the top bar's Review button switches).
 pub fn review_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
-    if !app.review.open {
-        return;
-    }
-    egui::Panel::right("review").resizable(true).default_size(560.0).min_size(360.0).show(ui, |ui| {
+    egui::CentralPanel::default().frame(egui::Frame::new().fill(look::SLATE).inner_margin(10.0)).show(ui, |ui| {
         egui::ScrollArea::vertical().id_salt("review scroll").auto_shrink([false, false]).show(ui, |ui| {
-            ui.add_space(4.0);
             ui.horizontal(|ui| {
                 ui.heading("Review");
                 ui.with_layout(egui::Layout::right_to_left(egui::Align::Center), |ui| {
-                    if ui.button("Close review").clicked() {
+                    if ui.button("Back to the slide").clicked() {
                         out.push(Intent::Review(ReviewIntent::Open(false)));
                     }
                 });
@@ -336,8 +333,10 @@ pub(super) fn curves_section(ui: &mut egui::Ui, c: &Curves) {
                 ui.set_width(w);
                 ui.label(RichText::new(format!("{title}, fill {}", c.fill)).small());
                 curve_plot(ui, vec2(w, 150.0), k, colour);
-                legend_row(ui, colour, false, RichText::new(format!("map's order, area {}", tick_label(k.auc))).small());
-                legend_row(ui, RANDOM, true, RichText::new(format!("random ({}), area {}", k.random_aucs.len(), tick_label(k.random_auc))).small());
+                ui.horizontal_wrapped(|ui| {
+                    legend_entry(ui, colour, false, RichText::new(format!("map's order, area {}", tick_label(k.auc))).small());
+                    legend_entry(ui, RANDOM, true, RichText::new(format!("random ({}), area {}", k.random_aucs.len(), tick_label(k.random_auc))).small());
+                });
             });
         }
     });
@@ -429,7 +428,7 @@ fn convergence_section(ui: &mut egui::Ui, c: &Convergence) {
     ui.label(RichText::new(format!("completeness gap against the step count, baseline {}", c.baseline)).small());
     ui.horizontal_top(|ui| {
         let w = (ui.available_width() * 0.62).max(200.0);
-        let (plot, p, _) = Plot::allocate(ui, vec2(w, 170.0), (s0 / 1.2, s1 * 1.2), (lo, hi), (true, true));
+        let (plot, p, _) = Plot::allocate(ui, vec2(w, 150.0), (s0 / 1.2, s1 * 1.2), (lo, hi), (true, true));
         let decades: Vec<f64> = (lo.log10().floor() as i32..=hi.log10().ceil() as i32).map(|e| 10f64.powi(e)).filter(|v| *v >= lo && *v <= hi).collect();
         plot.frame(&p, &steps, &decades);
         plot.hline(&p, c.warn_gap, look::LILAC);
@@ -482,11 +481,11 @@ fn shapley_section(ui: &mut egui::Ui, app: &mut Inspector, s: &Shapley, job: u64
                     let r = to_screen(c.bbox);
                     p.rect_filled(r, 0.0, crate::gui::review_work::value_colour(c.value, top));
                     p.rect_stroke(r, 0.0, Stroke::new(1.0, Color32::from_gray(90)), StrokeKind::Inside);
-                    if r.width() >= 30.0 && r.height() >= 16.0 {
-                        let t = tick_label(c.value);
-                        let g = p.layout_no_wrap(t, FontId::proportional(10.0), look::CHALK);
+                    let g = p.layout_no_wrap(tick_label(c.value), FontId::proportional(10.0), look::CHALK);
+                    if r.width() >= g.size().x + 6.0 && r.height() >= 16.0 {
+                        // A faint backing so the figure reads on bright film without hiding the colour.
                         let bg = Rect::from_center_size(r.center(), g.size() + vec2(4.0, 1.0));
-                        p.rect_filled(bg, 2.0, Color32::from_black_alpha(160));
+                        p.rect_filled(bg, 2.0, Color32::from_black_alpha(130));
                         p.galley(bg.min + vec2(2.0, 0.5), g, look::CHALK);
                     }
                 }
@@ -521,7 +520,7 @@ fn shapley_section(ui: &mut egui::Ui, app: &mut Inspector, s: &Shapley, job: u64
             ui.label(RichText::new("largest parts:").small().color(look::ASH));
             for c in ranked.iter().take(5) {
                 let se = c.stderr.map(|e| format!(" ± {e:.3}")).unwrap_or_default();
-                ui.label(RichText::new(format!("{}: {:+.4}{se}", c.label, c.value)).small().monospace());
+                ui.label(RichText::new(format!("{}: {:+.4}{se}", c.label, c.value)).small());
             }
         });
     });
@@ -544,6 +543,6 @@ impl Inspector {
 }
 
 /// The top bar's Review button's tooltip.
-pub const OPEN_HINT: &str = "The tests a reviewer runs before trusting the slide's reading: deletion and insertion \
+pub const OPEN_HINT: &str = "Shows, in place of the slide, the tests a reviewer runs before trusting the slide's reading: deletion and insertion \
 curves (RISE, Petsiuk et al. 2018), the randomisation cascade (Adebayo et al. 2018), the convergence of integrated \
 gradients (Sundararajan et al. 2017) and region Shapley values (Castro et al. 2009); computed on request.";

@@ -54,7 +54,7 @@ pub fn header(ui: &mut egui::Ui, app: &Inspector, out: &mut Vec<Intent>) {
 pub fn tile(ui: &egui::Ui, app: &Inspector, i: usize, k: &Key, resp: egui::Response, out: &mut Vec<Intent>) {
     let title = k.request.baseline.title();
     if app.wanted_key().ok().as_ref() == Some(k) {
-        ui.painter().rect_stroke(resp.rect.expand(2.0), 2.0, Stroke::new(2.0, look::LILAC), StrokeKind::Outside);
+        ui.painter().rect_stroke(resp.rect, 2.0, Stroke::new(2.0, look::LILAC), StrokeKind::Inside);
     }
     let label = format!("show {title} on the slide");
     resp.widget_info(|| WidgetInfo::labeled(Role::Button, true, &label));
@@ -99,7 +99,7 @@ pub fn tile_curves(ui: &mut egui::Ui, app: &Inspector, k: &Key, width: f32) {
             })
             .response
             .on_hover_text(format!(
-                "{}\n{}\nfill {}; score at the input {:.3}, at the fill {:.3}",
+                "{}\n{}\nfill {}; score at the input {:.3}, at the fill {:.3}\n\nAmber: deletion; teal: insertion. Solid: the map's order; dashed: random orders.",
                 super::review::deletion_text(&c.deletion),
                 super::review::insertion_text(&c.insertion),
                 c.fill,

@@ -12,7 +12,10 @@ use crate::gui::state::*;
 
 pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     super::review_strip::keys(ui, app, out);
-    egui::Panel::bottom("strip").resizable(true).default_size(255.0).min_size(120.0).show(ui, |ui| {
+    // With curves under the maps the strip is a taller panel of its own (its own remembered size).
+    let curves = app.strip.wanted.as_ref().is_some_and(|p| super::review_strip::curves_shown(app, p));
+    let (id, size) = if curves { ("strip with curves", 255.0 + super::review_strip::CURVES_HEIGHT) } else { ("strip", 255.0) };
+    egui::Panel::bottom(id).resizable(true).default_size(size).min_size(120.0).show(ui, |ui| {
         // A panel is as tall as its content: fill the height it was given (default or dragged),
         // else the strip settles at whatever its first, empty frame needed.
         ui.set_min_height(ui.available_height());
@@ -55,7 +58,6 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
         let agreement = app.current_agreement();
         // Tiles as large as the height allows, but all of them beside the agreement matrix.
         let across = (ui.available_width() - 340.0) / plan.tiles.len().max(1) as f32 - 10.0;
-        let curves = super::review_strip::curves_shown(app, &plan);
         let below = if curves { super::review_strip::CURVES_HEIGHT } else { 0.0 };
         let tile = (ui.available_height() - 88.0 - below).min(across).clamp(60.0, 190.0);
         let column = if curves { tile.max(120.0) } else { tile };
