@@ -250,12 +250,12 @@ impl Inspector {
         Ok((key, request))
     }
 
-    /// The latest review if it is of the slide's reading under the loaded model.
+    /// The latest review if it is of the slide's reading (and fill) under the loaded model.
     pub fn current_review(&self) -> Option<&ReviewRun> {
         let r = self.review.run.as_ref()?;
-        let key = self.wanted_key().ok()?;
+        let (key, request) = self.review_target().ok()?;
         let sha = self.session.as_ref()?.model.sha256();
-        (r.key == key && r.model_sha == sha).then_some(r)
+        (r.key == key && r.request == request && r.model_sha == sha).then_some(r)
     }
 
     /// True while the latest review runs.

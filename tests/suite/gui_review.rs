@@ -240,7 +240,7 @@ fn the_review_panel_computes_with_progress_and_shows_the_engines_figures() {
     assert!(shown >= 2, "progress of several phases was shown: {seen:?}");
     let run = h.state().current_review().expect("the review of the slide's reading");
     let RunState::Done(res) = &run.state else { panic!("the review did not finish") };
-    let gui: &Review = &res.review;
+    let gui: Review = res.review.clone();
 
     // The engine on a request and settings built here, as `spurion review --method gradient`
     // with the flags below builds them (its fill: the blur σ 8 baseline).
@@ -283,6 +283,21 @@ fn the_review_panel_computes_with_progress_and_shows_the_engines_figures() {
     for w in &eng.warnings {
         assert!(h.query_by_label(&format!("Warning: {w}")).is_some(), "warning {w:?}");
     }
+
+    // The Shapley game over the found regions and the rest: drawn on the regions' own pixels.
+    h.state_mut().review.form.regions = true;
+    h.get_by_label("Run review").click();
+    h.step();
+    wait_for(&mut h, "the review over regions", 300, |a| a.current_review().is_some_and(|r| matches!(r.state, RunState::Done(_))));
+    h.run_steps(2);
+    let run = h.state().current_review().unwrap();
+    let RunState::Done(res) = &run.state else { unreachable!() };
+    let sh = res.review.shapley.as_ref().unwrap();
+    assert!(sh.grid.is_none() && sh.cells.last().unwrap().label == "the rest of the image", "{:?}", sh.cells);
+    assert_eq!(sh.cells.len(), res.review.regions.len() + 1, "each found region and the rest");
+    assert!(res.images.shapley_regions.is_some(), "the values painted on the regions' pixels");
+    assert!(h.query_by_label_contains("the found regions and the rest, absent parts from blur:8").is_some());
+    assert!(h.query_by_label(&panels::shapley_sum_text(sh)).is_some());
 
     // And `spurion review` with the same flags writes the same figures.
     let out = tmp.path().join("cli");
