@@ -29,6 +29,7 @@ pub struct Inspector {
     pub view: ViewSettings,
     pub cache: ReadingCache,
     pub strip: StripState,
+    pub review: super::review::ReviewState,
     pub workers: Workers,
     pub notes: Vec<Note>,
     pub recent: Recent,
@@ -66,6 +67,7 @@ impl Inspector {
             view: ViewSettings::default(),
             cache: ReadingCache::default(),
             strip: StripState::default(),
+            review: Default::default(),
             workers: Workers::new(ctx.clone()),
             notes: Vec::new(),
             recent,
@@ -138,7 +140,8 @@ impl Inspector {
         panels::strip_panel(ui, self, &mut intents);
         panels::image_list(ui, self, &mut intents);
         panels::controls(ui, self, &mut intents);
-        panels::slide(ui, self);
+        // The centre shows the slide, or the review of the slide's reading.
+        if self.review.open { panels::review_panel(ui, self, &mut intents) } else { panels::slide(ui, self) }
         panels::about(ui, self, &mut intents);
         panels::drop_hint(ui);
 

@@ -21,6 +21,7 @@ pub enum Intent {
     ComputeStrip,
     Export(ExportWhat),
     About(bool),
+    Review(super::review::ReviewIntent),
 }
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -51,6 +52,7 @@ impl Inspector {
                 Intent::ComputeStrip => self.compute_strip(),
                 Intent::Export(what) => self.export(what),
                 Intent::About(show) => self.show_about = show,
+                Intent::Review(r) => self.apply_review(r),
             }
         }
     }

@@ -21,6 +21,8 @@ pub mod panels;
 mod readings;
 pub mod recent;
 mod results;
+pub mod review;
+mod review_work;
 pub mod state;
 pub mod textures;
 pub mod work;

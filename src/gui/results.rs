@@ -94,6 +94,7 @@ impl Inspector {
                         self.tex.display.remove(&(path, key));
                     }
                 },
+                Done::Review(d) => self.review_done(id, d),
                 Done::Finished => {}
                 Done::Failed(e) => self.note(NoteKind::Error, e),
             }

@@ -25,6 +25,8 @@ pub enum Done {
     Exported { result: Result<Vec<PathBuf>, String> },
     /// A DICOM picture drawn through a display window (`key` names the window).
     Display { path: PathBuf, key: String, result: Result<egui::ColorImage, String> },
+    /// The review panel's and the strip curves' jobs (src/gui/review.rs).
+    Review(super::review::ReviewDone),
     /// A job that sent its results through its outbox has ended.
     Finished,
     /// A job with nothing of its own to report failed (the text says what failed).

@@ -19,13 +19,13 @@ use spurion::sign::Sign;
 use spurion::methods::{self, Baseline, BaselineKind, Input, Method, Request, ScoreKind, TargetSpec};
 use spurion::model::{LoadOptions, Model};
 
-const STEPS: usize = 8;
+pub(crate) const STEPS: usize = 8;
 
 fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
 }
 
-fn demo_images() -> Vec<PathBuf> {
+pub(crate) fn demo_images() -> Vec<PathBuf> {
     let dir = root().join("assets/demo");
     let list = spurion::feed::list_images(&dir)
         .unwrap_or_else(|e| panic!("the demo set is missing ({e:#}); it is committed in assets/demo (spurion demo writes it)"));
@@ -33,14 +33,14 @@ fn demo_images() -> Vec<PathBuf> {
     list
 }
 
-fn model_path() -> PathBuf {
+pub(crate) fn model_path() -> PathBuf {
     let p = root().join("sample-models/shortcut.onnx");
     assert!(p.exists(), "sample model {} is missing; it is committed with the repository", p.display());
     p
 }
 
 /// Steps the UI until `done` holds, sleeping between frames so the workers run.
-fn wait_for(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, done: impl Fn(&Inspector) -> bool) {
+pub(crate) fn wait_for(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, done: impl Fn(&Inspector) -> bool) {
     let start = Instant::now();
     loop {
         h.step();
@@ -60,7 +60,7 @@ fn wait_for(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, done: impl Fn
     }
 }
 
-fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Inspector> {
+pub(crate) fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Inspector> {
     let mut app = Inspector::new(
         egui::Context::default(),
         GuiOptions { model: Some(model_path()), paths: images },
@@ -73,8 +73,22 @@ fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Inspector> {
     drive(app)
 }
 
+/// The strip's baselines but the custom image, in strip order, written out from the form's
+/// parameters as `--baseline` takes them (the dataset mean over the image's folder).
+pub(crate) fn single_input_baselines(form: &spurion::gui::form::Form, image: &Path) -> Vec<String> {
+    let demo_dir = image.parent().unwrap().display().to_string();
+    vec![
+        "black".to_string(),
+        "grey".to_string(),
+        format!("blur:{}", form.blur_sigma),
+        format!("uniform-noise:{}", form.noise_seed),
+        format!("gaussian-noise:{}:{}", form.noise_sigma, form.noise_seed),
+        format!("mean:{demo_dir}"),
+    ]
+}
+
 /// A headless harness around an inspector, the size of a laptop window.
-fn drive(app: Inspector) -> Harness<'static, Inspector> {
+pub(crate) fn drive(app: Inspector) -> Harness<'static, Inspector> {
     Harness::builder().with_size([1500.0, 950.0]).build_ui_state(|ui, app: &mut Inspector| app.frame(ui), app)
 }
 
@@ -121,16 +135,8 @@ fn strip_shows_every_baseline_and_the_engines_agreement() {
     let model = Model::load(&model_path(), &LoadOptions::default()).unwrap();
     let card = FeedCard::for_loaded(&model).unwrap();
     let form = &h.state().form;
-    let demo_dir = first.parent().unwrap().display().to_string();
-    let baselines = [
-        "black".to_string(),
-        "grey".to_string(),
-        format!("blur:{}", form.blur_sigma),
-        format!("uniform-noise:{}", form.noise_seed),
-        format!("gaussian-noise:{}:{}", form.noise_sigma, form.noise_seed),
-        format!("mean:{demo_dir}"),
-        format!("image:{}", custom.display()),
-    ];
+    let mut baselines = single_input_baselines(form, &first);
+    baselines.push(format!("image:{}", custom.display()));
     let input = Input::picture(Picture::open(&first).unwrap(), &card).unwrap();
     let maps: Vec<_> = baselines
         .iter()

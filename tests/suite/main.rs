@@ -14,6 +14,7 @@ mod engine_ops;
 mod engine_torch;
 mod engine_whole;
 mod gui_inspector;
+mod gui_review;
 mod ledger;
 mod ledger_disk;
 mod methods_reference;

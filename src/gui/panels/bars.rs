@@ -73,6 +73,10 @@ pub fn top_bar(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 if ui.button("About").clicked() {
                     out.push(Intent::About(true));
                 }
+                let open = app.review.open;
+                if ui.selectable_label(open, "Review").on_hover_text(super::review::OPEN_HINT).clicked() {
+                    out.push(Intent::Review(crate::gui::review::ReviewIntent::Open(!open)));
+                }
             });
         });
         ui.add_space(2.0);

@@ -4,12 +4,17 @@
 mod about;
 mod bars;
 mod controls;
+mod plot;
+mod review;
+mod review_strip;
 mod slide;
 mod strip;
 
 pub use about::{about, drop_hint};
 pub use bars::{image_list, status_bar, top_bar};
 pub use controls::controls;
+pub use review::{cascade_text, convergence_text, deletion_text, insertion_text, review_panel, shapley_sum_text};
+pub use review_strip::{TILE_KEYS, tile_key_name};
 pub use slide::slide;
 pub use strip::{agreement_cell_overlap, agreement_cell_rho, strip_panel};
 

@@ -11,7 +11,11 @@ use crate::gui::state::*;
 // -------------------------------------------------------------------- baseline strip
 
 pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
-    egui::Panel::bottom("strip").resizable(true).default_size(255.0).min_size(120.0).show(ui, |ui| {
+    super::review_strip::keys(ui, app, out);
+    // With curves under the maps the strip is a taller panel of its own (its own remembered size).
+    let curves = app.strip.wanted.as_ref().is_some_and(|p| super::review_strip::curves_shown(app, p));
+    let (id, size) = if curves { ("strip with curves", 255.0 + super::review_strip::CURVES_HEIGHT) } else { ("strip", 255.0) };
+    egui::Panel::bottom(id).resizable(true).default_size(size).min_size(120.0).show(ui, |ui| {
         // A panel is as tall as its content: fill the height it was given (default or dragged),
         // else the strip settles at whatever its first, empty frame needed.
         ui.set_min_height(ui.available_height());
@@ -27,6 +31,7 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
                 out.push(Intent::ComputeStrip);
             }
             ui.checkbox(&mut app.strip.per_map_scale, "per-map scale");
+            super::review_strip::header(ui, app, out);
             if let Some(plan) = &app.strip.wanted {
                 let now = app.current_image().map(|e| StripPlan::new(&e.path, &app.form, e.path.parent()));
                 if now.as_ref() != Some(plan) {
@@ -53,13 +58,15 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
         let agreement = app.current_agreement();
         // Tiles as large as the height allows, but all of them beside the agreement matrix.
         let across = (ui.available_width() - 340.0) / plan.tiles.len().max(1) as f32 - 10.0;
-        let tile = (ui.available_height() - 88.0).min(across).clamp(60.0, 190.0);
+        let below = if curves { super::review_strip::CURVES_HEIGHT } else { 0.0 };
+        let tile = (ui.available_height() - 88.0 - below).min(across).clamp(60.0, 190.0);
+        let column = if curves { tile.max(120.0) } else { tile };
         ui.horizontal_top(|ui| {
             egui::ScrollArea::horizontal().id_salt("strip tiles").max_width(ui.available_width() - 330.0).show(ui, |ui| {
                 ui.horizontal_top(|ui| {
-                    for (choice, key) in &plan.tiles {
+                    for (i, (choice, key)) in plan.tiles.iter().enumerate() {
                         ui.vertical(|ui| {
-                            ui.set_width(tile);
+                            ui.set_width(column);
                             match key {
                                 Err(why) => {
                                     tile_title(ui, format!("not read: {}", choice.entry().title));
@@ -70,7 +77,7 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
                                         let s = s.clone();
                                         let scale = if app.strip.per_map_scale { app.scale_of(k, &s) } else { shared };
                                         tile_title(ui, format!("map · {}", k.request.baseline.title()));
-                                        let (rect, _) = ui.allocate_exact_size(vec2(tile, tile), Sense::hover());
+                                        let (rect, resp) = ui.allocate_exact_size(vec2(tile, tile), Sense::click());
                                         let (w, h) = (prepared.picture.width() as f32, prepared.picture.height() as f32);
                                         let z = (tile / w).min(tile / h);
                                         let r = Rect::from_center_size(rect.center(), vec2(w * z, h * z));
@@ -79,6 +86,7 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
                                         ui.painter().image(base.id(), r, uv, Color32::WHITE);
                                         let t = app.tile_texture(k, &s, sign, scale);
                                         ui.painter().image(t.id(), r, uv, Color32::from_white_alpha(230));
+                                        super::review_strip::tile(ui, app, i, k, resp, out);
                                         ui.label(RichText::new(format!(
                                             "gap {}",
                                             s.reading.completeness_gap.map_or("—".into(), |g| format!("{:.1} %", g * 100.0))
@@ -86,6 +94,7 @@ pub fn strip_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
                                         let ms = s.assessment.all_regions.as_ref().and_then(|f| f.mark_share);
                                         let ms_text = if s.assessment.regions.is_empty() { "no regions found".to_string() } else { format!("mark share {}", fmt_opt(ms, 2)) };
                                         ui.label(RichText::new(ms_text).small());
+                                        super::review_strip::tile_curves(ui, app, k, column);
                                     }
                                     Some(Slot::Pending(_)) => {
                                         tile_title(ui, k.request.baseline.title());
