@@ -412,6 +412,9 @@ fn a_dropped_file_that_is_not_an_image_is_refused_with_a_reason() {
     let tmp = tempfile::tempdir().unwrap();
     let mut h = harness(vec![demo_images()[0].clone()], tmp.path());
     h.step();
+    // Let the model load and the first reading finish first: the status line shows the last
+    // note, and a late "loaded" note would otherwise take the place of the one checked here.
+    wait_for(&mut h, "the first reading", 300, |app| !app.busy());
     let notes_file = tmp.path().join("notes.txt");
     std::fs::write(&notes_file, "not a picture").unwrap();
     drop_file(&mut h, &notes_file);
