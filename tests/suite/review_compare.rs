@@ -64,7 +64,9 @@ fn row(path: &str, group: &str, suspect: bool, share: Option<f64>, top_after: Op
         regions: 0,
         region_labels: String::new(),
         completeness_gap: None,
+        steps: None,
         burned_in_annotation: None,
+        verdict: None,
         seconds: 0.0,
     }
 }
