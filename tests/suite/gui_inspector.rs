@@ -21,11 +21,11 @@ use spurion::model::{LoadOptions, Model};
 
 const STEPS: usize = 8;
 
-fn root() -> PathBuf {
+pub(crate) fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
 }
 
-fn demo_images() -> Vec<PathBuf> {
+pub(crate) fn demo_images() -> Vec<PathBuf> {
     let dir = root().join("assets/demo");
     let list = spurion::feed::list_images(&dir)
         .unwrap_or_else(|e| panic!("the demo set is missing ({e:#}); it is committed in assets/demo (spurion demo writes it)"));
@@ -33,14 +33,14 @@ fn demo_images() -> Vec<PathBuf> {
     list
 }
 
-fn model_path() -> PathBuf {
+pub(crate) fn model_path() -> PathBuf {
     let p = root().join("sample-models/shortcut.onnx");
     assert!(p.exists(), "sample model {} is missing; it is committed with the repository", p.display());
     p
 }
 
 /// Steps the UI until `done` holds, sleeping between frames so the workers run.
-fn wait_for(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, done: impl Fn(&Inspector) -> bool) {
+pub(crate) fn wait_for(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, done: impl Fn(&Inspector) -> bool) {
     let start = Instant::now();
     loop {
         h.step();
@@ -63,7 +63,7 @@ fn wait_for(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, done: impl Fn
 fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Inspector> {
     let mut app = Inspector::new(
         egui::Context::default(),
-        GuiOptions { model: Some(model_path()), paths: images },
+        GuiOptions { model: Some(model_path()), paths: images, ledger: None },
         InspectorConfig::headless(dir),
     );
     // Keep the test quick: few fixed IG steps (the figures are compared for the same
@@ -74,7 +74,7 @@ fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Inspector> {
 }
 
 /// A headless harness around an inspector, the size of a laptop window.
-fn drive(app: Inspector) -> Harness<'static, Inspector> {
+pub(crate) fn drive(app: Inspector) -> Harness<'static, Inspector> {
     Harness::builder().with_size([1500.0, 950.0]).build_ui_state(|ui, app: &mut Inspector| app.frame(ui), app)
 }
 
