@@ -21,7 +21,7 @@ use super::work::Done;
 pub struct LedgerState {
     /// The file open, or being opened.
     pub path: Option<PathBuf>,
-    /// The path field of the ledger section.
+    /// The path field of the ledger section (another ledger to open).
     pub field: String,
     pub store: Option<BackgroundStore>,
     pub opening: Option<JobId>,
@@ -31,9 +31,12 @@ pub struct LedgerState {
     pub generation: u64,
     /// The note being typed, for the image key it belongs to; written when the field is left.
     pub note_draft: Option<(String, String)>,
-    /// Image path → (generation, its key or why it has none, its drawn regions).
-    looked_up: RefCell<HashMap<PathBuf, (u64, Result<String, String>, Drawn)>>,
+    looked_up: RefCell<HashMap<PathBuf, LookedUp>>,
 }
+
+/// What the ledger says of one image path: at which generation, its key or why it has none,
+/// the regions drawn on it.
+type LookedUp = (u64, Result<String, String>, Drawn);
 
 impl LedgerState {
     pub fn ledger(&self) -> Option<&Ledger> {
@@ -85,7 +88,10 @@ impl LedgerState {
             (None, _) => ("no ledger".into(), false),
             (Some(p), None) if self.opening.is_some() => (format!("opening ledger {}…", short_name(p)), false),
             (Some(p), None) => (format!("ledger {} not open", short_name(p)), true),
-            (Some(_), Some(Status::Saved)) => ("ledger saved".into(), false),
+            (Some(_), Some(Status::Saved)) => match self.ledger().map_or(0, Ledger::len) {
+                0 => ("ledger empty: its file is written at the first verdict".into(), false),
+                n => (format!("ledger saved ({})", if n == 1 { "1 image".to_string() } else { format!("{n} images") }), false),
+            },
             (Some(_), Some(Status::Saving { changes })) => (format!("ledger saving ({})…", changes_text(changes)), false),
             (Some(_), Some(Status::Unsaved(u))) => (format!("ledger NOT saved: {}", u.message()), true),
         }
@@ -118,7 +124,6 @@ impl Inspector {
             move |msg| Done::Ledger { path: g, result: Err(msg) },
         );
         self.ledger.opening = Some(id);
-        self.ledger.field = file.display().to_string();
         self.ledger.path = Some(file);
         self.ledger.error = None;
     }
@@ -238,15 +243,19 @@ impl Inspector {
         self.current_image().map(|e| e.path.clone())
     }
 
-    /// The ledger a newly opened folder or image belongs to, when none was chosen: the one in
-    /// that folder.
+    /// The ledger a newly opened folder or image belongs to, when none was chosen: the nearest
+    /// `spurion-ledger.json` in that folder or above it (an image opened from inside a dataset
+    /// finds the dataset's ledger), else a new one in that folder.
     pub(crate) fn default_ledger_for(&mut self, opened: &Path) {
         if self.ledger.path.is_some() {
             return;
         }
-        let folder = if opened.is_dir() { opened.to_path_buf() } else { opened.parent().map(Path::to_path_buf).unwrap_or_default() };
-        if !folder.as_os_str().is_empty() {
-            self.open_ledger(&folder, None);
+        let opened = std::path::absolute(opened).unwrap_or_else(|_| opened.to_path_buf());
+        let folder = if opened.is_dir() { opened } else { opened.parent().map(Path::to_path_buf).unwrap_or_default() };
+        if folder.as_os_str().is_empty() {
+            return;
         }
+        let existing = folder.ancestors().find(|d| d.join(crate::ledger::DEFAULT_NAME).is_file()).map(Path::to_path_buf);
+        self.open_ledger(&existing.unwrap_or(folder), None);
     }
 }

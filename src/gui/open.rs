@@ -57,7 +57,7 @@ impl Inspector {
                         }
                         self.recent.add_images(p);
                         self.default_ledger_for(p);
-                        self.sweep.suggest(p);
+                        self.sweep.suggest(p, true);
                     }
                     Err(e) => self.note(NoteKind::Error, format!("{e:#}")),
                 }
@@ -72,7 +72,7 @@ impl Inspector {
                 self.recent.add_images(p);
                 self.default_ledger_for(p);
                 if let Some(dir) = p.parent() {
-                    self.sweep.suggest(dir);
+                    self.sweep.suggest(dir, false);
                 }
             } else {
                 self.note(NoteKind::Error, format!("{} does not exist; check the path", p.display()));
@@ -91,6 +91,7 @@ impl Inspector {
 
     /// Shows the image at `path` if it is in the list.
     pub fn select_path(&mut self, path: &Path) -> bool {
+        let path = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
         match self.images.iter().position(|e| e.path == path) {
             Some(i) => {
                 self.select(i);
@@ -102,6 +103,9 @@ impl Inspector {
 
     /// The list position of `path`, added if it is not there yet (and whether it was added).
     pub(crate) fn push_image(&mut self, path: PathBuf) -> (usize, bool) {
+        // One form for every path (a sweep's rows and the ledger name images absolutely), so the
+        // same file is never listed twice.
+        let path = std::path::absolute(&path).unwrap_or(path);
         if let Some(i) = self.images.iter().position(|e| e.path == path) {
             return (i, false);
         }

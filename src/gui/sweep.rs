@@ -135,6 +135,9 @@ pub struct SweepState {
     /// Paths left out, as `spurion sweep --exclude` patterns separated by commas.
     pub leave_out_field: String,
     pub leave_out_excluded: bool,
+    /// The folder the view suggested, and whether it was opened as a folder (an image's folder
+    /// gives way to a folder opened after it).
+    suggested: Option<(String, bool)>,
     pub job: Option<JobId>,
     /// When the running sweep started (for its rate and time left).
     pub started: Option<std::time::Instant>,
@@ -162,6 +165,7 @@ impl Default for SweepState {
             groups_field: String::new(),
             leave_out_field: String::new(),
             leave_out_excluded: false,
+            suggested: None,
             job: None,
             started: None,
             result: None,
@@ -199,12 +203,15 @@ fn by_figure(a: Option<f64>, b: Option<f64>, descending: bool) -> std::cmp::Orde
 }
 
 impl SweepState {
-    /// Sets the folders when the user has not typed any: the folder opened last, its sweep
-    /// folder beside it, and `masks` left out when the folder holds ground-truth masks there.
-    pub fn suggest(&mut self, images: &Path) {
-        if !self.images_field.trim().is_empty() || self.job.is_some() {
+    /// Sets the folders when the user has not typed any: the first folder opened (an image's
+    /// own folder until a folder is opened), its sweep folder beside it, and `masks` left out
+    /// when the folder holds ground-truth masks there.
+    pub fn suggest(&mut self, images: &Path, is_folder: bool) {
+        let ours = self.suggested.as_ref().is_some_and(|(t, folder)| *t == self.images_field && !folder && is_folder);
+        if !(self.images_field.trim().is_empty() || ours) || self.job.is_some() {
             return;
         }
+        self.suggested = Some((images.display().to_string(), is_folder));
         self.images_field = images.display().to_string();
         self.out_field = default_out(images).display().to_string();
         if self.leave_out_field.is_empty() && images.join("masks").is_dir() {

@@ -130,7 +130,7 @@ fn a_verdict_given_with_a_key_shows_in_the_table_and_survives_closing_and_reopen
     h.key_press(egui::Key::Enter);
     h.run_steps(2);
     wait_until(&mut h, "the ledger to be saved", 30, saved);
-    assert!(h.query_all_by_label("ledger saved").count() >= 1, "the save status is on screen");
+    assert!(h.query_all_by_label("ledger saved (1 image)").count() >= 1, "the save status is on screen");
     let on_disk = Ledger::open(&ledger_file).unwrap();
     let entry = on_disk.entry("hillmoor/0005-hillmoor.png").expect("the entry is on disk");
     assert_eq!((entry.verdict, entry.note.as_str()), (Some(Verdict::Marked), "corner tag"));
@@ -274,6 +274,11 @@ fn a_drawn_region_is_kept_in_the_ledger_changes_the_figures_and_matches_explain(
     // Corners snap outward to pixel edges: [100.3, 60.2] → [100, 60], [170.6, 140.9] → [171, 141].
     assert_eq!(bbox, [100.0, 60.0, 171.0, 141.0]);
     assert_eq!(drawn.shapes()[0].label, "mark");
+    // Esc leaves the drawing mode (dragging pans again).
+    assert_eq!(h.state().draw.mode, spurion::gui::state::DrawMode::Box);
+    h.key_press(egui::Key::Escape);
+    h.run_steps(1);
+    assert_eq!(h.state().draw.mode, spurion::gui::state::DrawMode::Off);
 
     // The figures are computed again with the drawn region, from the same map.
     wait_for(&mut h, "the figures with the drawn region", 120, |a| a.current_shown().is_some_and(|(k, _)| !k.drawn.is_empty()));

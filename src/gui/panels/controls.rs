@@ -207,8 +207,6 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 ));
             });
 
-            ui.separator();
-            super::ledger::ledger_section(ui, app, out);
 
             ui.separator();
             ui.heading("Export");
@@ -230,6 +228,9 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                     out.push(Intent::Export(ExportWhat::Json));
                 }
             });
+
+            ui.separator();
+            super::ledger::ledger_section(ui, app, out);
 
             if let Some((_, shown)) = app.current_shown() {
                 ui.separator();

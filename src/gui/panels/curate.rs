@@ -36,7 +36,8 @@ pub(super) fn curator_bar(ui: &mut egui::Ui, app: &mut Inspector, path: &Path, o
                     out.push(Intent::Verdict(Some(v)));
                 }
             }
-            if verdict.is_some() && ui.small_button("0 clear").on_hover_text("key 0: no verdict").clicked() {
+            // Always there (greyed without a verdict), so the controls after it never move.
+            if ui.add_enabled(verdict.is_some(), egui::Button::new("0 clear").small()).on_hover_text("key 0: no verdict").clicked() {
                 out.push(Intent::Verdict(None));
             }
             ui.separator();
@@ -48,7 +49,7 @@ pub(super) fn curator_bar(ui: &mut egui::Ui, app: &mut Inspector, path: &Path, o
                 _ => stored,
             };
             let r = ui
-                .add(egui::TextEdit::singleline(&mut text).hint_text("free text, kept in the ledger").desired_width(220.0))
+                .add(egui::TextEdit::singleline(&mut text).hint_text("free text, kept in the ledger").desired_width(190.0))
                 .labelled_by(l.id);
             if r.changed() {
                 app.ledger.note_draft = Some((k, text));
@@ -68,10 +69,6 @@ pub(super) fn curator_bar(ui: &mut egui::Ui, app: &mut Inspector, path: &Path, o
                 app.draw.mode = if on { DrawMode::Off } else { mode };
                 app.draw.points.clear();
             }
-        }
-        if app.draw.mode != DrawMode::Off {
-            let l = ui.label("label");
-            ui.add(egui::TextEdit::singleline(&mut app.draw.label).desired_width(80.0)).labelled_by(l.id);
         }
     });
     let (line, bad) = app.ledger.status_line();
@@ -114,25 +111,31 @@ pub(super) fn draw_drag(app: &mut Inspector, resp: &Response, place: &SlidePlace
     if mode == DrawMode::Off {
         return;
     }
-    let Some(p) = resp.interact_pointer_pos() else {
-        return;
-    };
-    let at = place.to_image(p);
+    // Every position the pointer passed this frame, not only the last: a slow frame must not
+    // cut corners off an outline.
+    let (mut moved, latest, origin) = resp.ctx.input(|i| {
+        let moved: Vec<Pos2> = i.events.iter().filter_map(|e| if let egui::Event::PointerMoved(p) = e { Some(*p) } else { None }).collect();
+        (moved, i.pointer.latest_pos(), i.pointer.press_origin())
+    });
+    moved.extend(latest);
     if resp.drag_started() {
         // The drag is noticed only once the pointer has moved: it began where it was pressed.
-        let from = resp.ctx.input(|i| i.pointer.press_origin()).unwrap_or(p);
-        app.draw.points = vec![place.to_image(from), at];
-    } else if resp.dragged() && !app.draw.points.is_empty() {
-        match mode {
-            DrawMode::Box => {
-                app.draw.points.truncate(1);
-                app.draw.points.push(at);
-            }
-            _ => {
-                // A point every screen pixel and a half or so keeps outlines smooth and short.
-                let last = *app.draw.points.last().expect("not empty");
-                if (at[0] - last[0]).hypot(at[1] - last[1]) * place.zoom >= 1.5 {
+        app.draw.points = origin.or(latest).map(|p| vec![place.to_image(p)]).unwrap_or_default();
+    }
+    if (resp.dragged() || resp.drag_stopped()) && !app.draw.points.is_empty() {
+        for p in moved {
+            let at = place.to_image(p);
+            match mode {
+                DrawMode::Box => {
+                    app.draw.points.truncate(1);
                     app.draw.points.push(at);
+                }
+                _ => {
+                    // A point every screen pixel and a half or so keeps outlines smooth and short.
+                    let last = *app.draw.points.last().expect("not empty");
+                    if (at[0] - last[0]).hypot(at[1] - last[1]) * place.zoom >= 1.5 {
+                        app.draw.points.push(at);
+                    }
                 }
             }
         }
@@ -146,11 +149,17 @@ pub(super) fn draw_drag(app: &mut Inspector, resp: &Response, place: &SlidePlace
     }
 }
 
-/// A label on a dark ground near `at`, kept inside `clip`.
-pub(super) fn region_label(painter: &Painter, clip: Rect, at: Pos2, text: String, colour: Color32) {
-    let at = pos2(at.x.clamp(clip.left() + 2.0, clip.right() - 160.0), (at.y + 2.0).clamp(clip.top() + 2.0, clip.bottom() - 16.0));
+/// A label on a dark ground near `at`, kept inside `clip`, moved down past the labels already
+/// put in `taken` so that two regions' labels never cover each other.
+pub(super) fn region_label(painter: &Painter, clip: Rect, at: Pos2, text: String, colour: Color32, taken: &mut Vec<Rect>) {
     let galley = painter.layout_no_wrap(text, FontId::proportional(12.0), colour);
-    let bg = Rect::from_min_size(at, galley.size() + vec2(6.0, 2.0));
+    let size = galley.size() + vec2(6.0, 2.0);
+    let mut at = pos2(at.x.clamp(clip.left() + 2.0, clip.right() - 160.0), (at.y + 2.0).clamp(clip.top() + 2.0, clip.bottom() - 16.0));
+    while let Some(r) = taken.iter().find(|r| r.intersects(Rect::from_min_size(at, size))) {
+        at.y = r.bottom() + 1.0;
+    }
+    let bg = Rect::from_min_size(at, size);
+    taken.push(bg);
     painter.rect_filled(bg, 2.0, Color32::from_black_alpha(190));
     painter.galley(at + vec2(3.0, 1.0), galley, colour);
 }
@@ -182,7 +191,8 @@ fn shape_points(s: &Shape) -> Vec<[f32; 2]> {
 /// The drawn regions of the slide's image as dashed outlines in the regions' colour, each
 /// labelled with its figures once the reading has them (they follow the `found` found regions
 /// in the assessment), and the shape being drawn.
-pub(super) fn paint_drawn(painter: &Painter, clip: Rect, app: &Inspector, place: &SlidePlace, path: &Path, shown: Option<&Shown>, found: usize) {
+#[allow(clippy::too_many_arguments)]
+pub(super) fn paint_drawn(painter: &Painter, clip: Rect, app: &Inspector, place: &SlidePlace, path: &Path, shown: Option<&Shown>, found: usize, taken: &mut Vec<Rect>) {
     let stroke = Stroke::new(1.6, look::REGION);
     let drawn = app.ledger.drawn_of(path);
     for (j, d) in drawn.shapes().iter().enumerate() {
@@ -192,7 +202,7 @@ pub(super) fn paint_drawn(painter: &Painter, clip: Rect, app: &Inspector, place:
         let name = if d.label.is_empty() { "drawn region".to_string() } else { format!("drawn region ({})", d.label) };
         let top_left = pts.iter().fold(pos2(f32::MAX, f32::MAX), |a, p| pos2(a.x.min(p.x), a.y.min(p.y)));
         let bottom = pts.iter().map(|p| p.y).fold(f32::MIN, f32::max);
-        region_label(painter, clip, pos2(top_left.x, bottom), format!("{name}{figures}"), look::REGION);
+        region_label(painter, clip, pos2(top_left.x, bottom), format!("{name}{figures}"), look::REGION, taken);
     }
     if !app.draw.points.is_empty() {
         let live = Stroke::new(1.6, look::LILAC);

@@ -7,6 +7,7 @@ use egui::RichText;
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
 use crate::gui::look;
+use crate::gui::short_name;
 use crate::gui::work::Pick;
 use crate::ledger::Status;
 use crate::regions::drawn::Shape;
@@ -20,10 +21,15 @@ fn shape_text(s: &Shape) -> String {
 
 pub(super) fn ledger_section(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     ui.heading("Ledger");
+    if let Some(p) = &app.ledger.path {
+        // The file by its folder and name (the whole path on hover), so no machine's path shows.
+        let folder = p.parent().and_then(|d| d.file_name()).map(|n| format!("{}/", n.to_string_lossy())).unwrap_or_default();
+        ui.label(format!("in {folder}{}", short_name(p))).on_hover_text(p.display().to_string());
+    }
     ui.horizontal(|ui| {
-        let l = ui.label("file");
+        let l = ui.label("other");
         let r = ui
-            .add(egui::TextEdit::singleline(&mut app.ledger.field).hint_text("spurion-ledger.json or its folder").desired_width(150.0))
+            .add(egui::TextEdit::singleline(&mut app.ledger.field).hint_text("a ledger file or its folder").desired_width(150.0))
             .labelled_by(l.id);
         if ui.small_button("…").clicked() {
             out.push(Intent::Pick(Pick::Ledger));
@@ -59,6 +65,10 @@ pub(super) fn ledger_section(ui: &mut egui::Ui, app: &mut Inspector, out: &mut V
         )
         .on_hover_text(format!("root folder: {}", l.root_dir().display()));
     }
+    ui.horizontal(|ui| {
+        let l = ui.label("new drawn regions are labelled");
+        ui.add(egui::TextEdit::singleline(&mut app.draw.label).desired_width(90.0)).labelled_by(l.id);
+    });
     let Some(path) = app.verdict_target() else { return };
     let drawn = app.ledger.drawn_of(&path);
     if drawn.is_empty() {

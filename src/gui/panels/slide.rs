@@ -202,6 +202,7 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
             }
         }
 
+        let mut taken = Vec::new();
         if app.view.show_regions {
             let stroke = Stroke::new(1.4, look::REGION);
             for (i, (r, edges)) in prepared.regions.iter().zip(&prepared.region_edges).enumerate() {
@@ -209,10 +210,10 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 let figures = shown.as_ref().and_then(|s| super::curate::figures_text(s, i));
                 // Label inside the image near the region's corner, clamped to the panel.
                 let at = place.to_screen([r.bbox[0] as f32, r.bbox[3] as f32]);
-                super::curate::region_label(&painter, rect, at, format!("{}{}", r.label(), figures.unwrap_or_default()), look::REGION);
+                super::curate::region_label(&painter, rect, at, format!("{}{}", r.label(), figures.unwrap_or_default()), look::REGION, &mut taken);
             }
         }
-        super::curate::paint_drawn(&painter, rect, app, &place, &path, shown.as_deref(), prepared.regions.len());
+        super::curate::paint_drawn(&painter, rect, app, &place, &path, shown.as_deref(), prepared.regions.len(), &mut taken);
 
         // Hover readout.
         let readout = resp.hover_pos().filter(|p| img_rect.contains(*p)).map(|p| {

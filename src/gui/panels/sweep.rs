@@ -20,13 +20,13 @@ const ATLAS_COLUMN: f32 = 300.0;
 
 fn width(c: Column) -> f32 {
     match c {
-        Column::Image => 210.0,
+        Column::Image => 200.0,
         Column::Group => 90.0,
-        Column::Class => 110.0,
+        Column::Class => 105.0,
         Column::MarkShare => 80.0,
         Column::Lift => 55.0,
-        Column::Removal => 150.0,
-        Column::Suspect => 150.0,
+        Column::Removal => 165.0,
+        Column::Suspect => 165.0,
         Column::Verdict => 80.0,
     }
 }
@@ -41,14 +41,18 @@ fn path_field(ui: &mut egui::Ui, label: &str, text: &mut String, hint: &str, pic
 
 /// The sweep's controls, beside the bottom panel's tabs.
 pub(super) fn sweep_controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
-    let running = app.sweep.job.and_then(|id| app.workers.running.iter().find(|r| r.id == id).map(|r| (id, r.ctl.clone())));
+    let running = app.sweep.job.and_then(|id| app.workers.running.iter().find(|r| r.id == id).map(|r| (id, r.ctl.clone(), r.cancellable)));
     ui.add_enabled_ui(running.is_none(), |ui| {
         let s = &mut app.sweep;
         path_field(ui, "folder", &mut s.images_field, "images to sweep", Pick::SweepImages, out);
         path_field(ui, "files to", &mut s.out_field, "folder for the sweep's files", Pick::SweepOut, out);
     });
     match running {
-        Some((id, ctl)) => {
+        Some((_, _, false)) => {
+            ui.spinner();
+            ui.label("reading the sweep's files…");
+        }
+        Some((id, ctl, true)) => {
             let (done, total) = ctl.progress();
             let text = if total == 0 {
                 "finding the images…".to_string()
@@ -58,9 +62,9 @@ pub(super) fn sweep_controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut V
                 let secs = app.sweep.started.map_or(0.0, |t| t.elapsed().as_secs_f64());
                 let rate = if secs > 0.0 { done as f64 / secs } else { 0.0 };
                 let left = if rate > 0.0 { format!(", about {:.0} s left", (total - done) as f64 / rate) } else { String::new() };
-                format!("{done}/{total} images, {rate:.1} a second{left}")
+                format!("{done}/{total} images, {rate:.1} images a second{left}")
             };
-            ui.add(egui::ProgressBar::new(ctl.fraction()).desired_width(260.0).fill(look::LILAC.gamma_multiply(0.6)).text(text));
+            ui.add(egui::ProgressBar::new(ctl.fraction()).desired_width(320.0).fill(look::LILAC.gamma_multiply(0.6)).text(text));
             if ui.button("Cancel sweep").clicked() {
                 out.push(Intent::Cancel(id));
             }
@@ -95,9 +99,11 @@ fn options(ui: &mut egui::Ui, app: &mut Inspector) {
     });
 }
 
+/// A filter's name, then its choices (the name first, as a filter row reads).
 fn combo<T: Clone + PartialEq>(ui: &mut egui::Ui, label: &str, value: &mut T, choices: Vec<(T, String)>) {
     let shown = choices.iter().find(|(v, _)| v == value).map(|(_, t)| t.clone()).unwrap_or_default();
-    egui::ComboBox::from_label(label).selected_text(shown).width(110.0).show_ui(ui, |ui| {
+    ui.label(label);
+    egui::ComboBox::from_id_salt(("sweep filter", label)).selected_text(shown).width(110.0).show_ui(ui, |ui| {
         for (v, t) in choices {
             ui.selectable_value(value, v, t);
         }
@@ -165,7 +171,7 @@ pub(super) fn sweep_body(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<I
             egui::ScrollArea::horizontal().id_salt("sweep table").show(ui, |ui| table(ui, app, &r, &order, out));
         });
         ui.separator();
-        egui::ScrollArea::vertical().id_salt("sweep atlas").auto_shrink([false, false]).show(ui, |ui| atlases(ui, app, &r));
+        egui::ScrollArea::vertical().id_salt("sweep atlas").auto_shrink([false, false]).show(ui, |ui| ui.vertical(|ui| atlases(ui, app, &r)));
     });
 }
 
