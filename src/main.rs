@@ -15,7 +15,7 @@ fn main() -> std::process::ExitCode {
     }
     let result = match Cli::parse().command {
         None => gui::run(GuiOptions::default()),
-        Some(Command::Gui(a)) => gui::run(GuiOptions { model: a.model, paths: a.paths }),
+        Some(Command::Gui(a)) => gui::run(GuiOptions { model: a.model, paths: a.paths, ledger: a.ledger }),
         Some(command) => spurion::cli::run(command),
     };
     match result {

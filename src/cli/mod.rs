@@ -234,6 +234,10 @@ pub struct GuiArgs {
     pub model: Option<PathBuf>,
     /// Images or folders to open.
     pub paths: Vec<PathBuf>,
+    /// The ledger to keep verdicts in: a file, or a folder (its spurion-ledger.json). Default:
+    /// the one in the first folder opened.
+    #[arg(long)]
+    pub ledger: Option<PathBuf>,
 }
 
 /// Runs one command; the binary maps errors to exit code 1. `gui` (and no command at all) is

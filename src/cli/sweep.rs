@@ -16,7 +16,7 @@ use crate::feed::OpenOptions;
 use crate::ledger::Ledger;
 use crate::regions::DrawnFile;
 use crate::report::sweep::{self as files, ThumbSource};
-use crate::sweep::{self, Cache, Exclude, GroupSummary, Groups, Setup, Shard, ShardResult};
+use crate::sweep::{self, Cache, Exclude, GroupSummary, Groups, Setup, Shard, ShardResult, SweepLedger};
 
 #[derive(Args, Debug)]
 pub struct SweepArgs {
@@ -122,26 +122,15 @@ pub fn run(a: &SweepArgs) -> Result<()> {
     let model = a.model.load()?;
     let card = a.model.card(&model)?;
     let mut items = sweep::plan(&a.images, &groups, &exclude, shard)?;
-    let ledger = a.ledger.as_deref().map(Ledger::open).transpose()?;
+    let ledger = a.ledger.as_deref().map(|l| Ledger::open(&Ledger::file_for(l))).transpose()?;
     // Each image's key in the ledger (an image outside the ledger's root has none).
-    let keys: BTreeMap<String, String> = match &ledger {
-        Some(l) => items.iter().filter_map(|i| l.key_for(&i.path).ok().map(|k| (i.rel.clone(), k))).collect(),
-        None => BTreeMap::new(),
-    };
-    if let Some(l) = &ledger
+    let in_ledger = ledger.as_ref().map(|l| SweepLedger::new(l, &items));
+    if let Some(l) = &in_ledger
         && a.leave_out_excluded
     {
-        let before = items.len();
-        items.retain(|i| !keys.get(&i.rel).is_some_and(|k| l.is_excluded(k)));
-        eprintln!("leaving out {} images the ledger marks exclude", before - items.len());
+        eprintln!("leaving out {} images the ledger marks exclude", l.leave_out_excluded(&mut items));
     }
-    let drawn: BTreeMap<String, DrawnFile> = match &ledger {
-        Some(l) => keys
-            .iter()
-            .filter_map(|(rel, k)| l.entry(k).filter(|e| !e.drawn.is_empty()).map(|e| (rel.clone(), DrawnFile::new(e.image_size, e.drawn.clone()))))
-            .collect(),
-        None => BTreeMap::new(),
-    };
+    let drawn: BTreeMap<String, DrawnFile> = in_ledger.as_ref().map(SweepLedger::drawn).unwrap_or_default();
     let out = if shard.count > 1 { a.out.join(shard.folder_name()) } else { a.out.clone() };
     let cache_dir = a.cache.clone().unwrap_or_else(|| a.out.join("cache"));
     let cache = Cache::open(&cache_dir)?;
@@ -172,10 +161,8 @@ pub fn run(a: &SweepArgs) -> Result<()> {
         Err(e) => return Err(e),
     };
     bar.finish_and_clear();
-    if let Some(l) = &ledger {
-        for r in &mut result.rows {
-            r.verdict = keys.get(&r.path).and_then(|k| l.verdict(k)).map(|v| v.name().to_string());
-        }
+    if let Some(l) = &in_ledger {
+        l.set_verdicts(&mut result.rows);
     }
     let seconds = started.elapsed().as_secs_f64();
     let groups = files::write(&result, &out, seconds, Some(&ThumbSource { card: &card, open: &open }))?;

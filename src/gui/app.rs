@@ -10,6 +10,8 @@ use std::time::{Duration, Instant};
 use super::config::InspectorConfig;
 use super::form::Form;
 use super::intents::Intent;
+use super::ledger::LedgerState;
+use super::sweep::SweepState;
 use super::panels;
 use super::recent::Recent;
 use super::state::*;
@@ -46,6 +48,16 @@ pub struct Inspector {
     /// Durations of the last frames' UI work (for the frame-time bench).
     pub frame_log: Vec<Duration>,
     pub log_frames: bool,
+    pub ledger: LedgerState,
+    pub sweep: SweepState,
+    /// Counts the sweeps started or read, so that only the last one's answer is taken.
+    pub next_sweep: u64,
+    pub draw: DrawState,
+    /// Where the slide put the picture in the last frame (for drawing, and for tests).
+    pub slide_place: Option<SlidePlace>,
+    /// The window was asked to close: it closes once the ledger's changes are saved (or the
+    /// user, told what is not saved, closes it anyway).
+    pub closing: bool,
 }
 
 impl Inspector {
@@ -81,11 +93,20 @@ impl Inspector {
             ctx,
             frame_log: Vec::new(),
             log_frames: false,
+            ledger: LedgerState::default(),
+            sweep: SweepState::default(),
+            next_sweep: 0,
+            draw: DrawState::default(),
+            slide_place: None,
+            closing: false,
         };
         // First-run status line: the caution, until something else is said.
         app.note(NoteKind::Info, crate::CAUTION);
         if let Some(n) = recent_note {
             app.note(NoteKind::Warning, n);
+        }
+        if let Some(l) = &opts.ledger {
+            app.open_ledger(l, opts.paths.first().map(|p| if p.is_dir() { p.as_path() } else { p.parent().unwrap_or(p) }));
         }
         let (model, paths, first) = if opts.model.is_none() && opts.paths.is_empty() {
             let d = default_inputs();
@@ -127,7 +148,9 @@ impl Inspector {
         super::look::fonts(ui.ctx());
         self.workers.set_repaint(ui.ctx());
         self.take_results();
+        self.poll_ledger();
         let mut intents = Vec::new();
+        self.keys(ui, &mut intents);
 
         // Dropped files open like typed paths.
         let dropped: Vec<PathBuf> = ui.input(|i| i.raw.dropped_files.iter().map(|f| f.path().to_path_buf()).collect());
@@ -137,16 +160,19 @@ impl Inspector {
 
         panels::top_bar(ui, self, &mut intents);
         panels::status_bar(ui, self, &mut intents);
-        panels::strip_panel(ui, self, &mut intents);
+        panels::bottom_panel(ui, self, &mut intents);
         panels::image_list(ui, self, &mut intents);
         panels::controls(ui, self, &mut intents);
         // The centre shows the slide, or the review of the slide's reading.
-        if self.review.open { panels::review_panel(ui, self, &mut intents) } else { panels::slide(ui, self) }
+        if self.review.open { panels::review_panel(ui, self, &mut intents) } else { panels::slide(ui, self, &mut intents) }
         panels::about(ui, self, &mut intents);
+        panels::unsaved_on_close(ui, self, &mut intents);
         panels::drop_hint(ui);
 
         self.apply(intents);
         self.sync_slide();
+        self.sync_thumbnails();
+        self.guard_close(ui);
         if self.config.strip_on_start && self.current_shown().is_some() {
             self.config.strip_on_start = false;
             self.compute_strip();
@@ -168,6 +194,63 @@ impl Inspector {
     pub fn busy(&self) -> bool {
         !self.workers.running.is_empty()
     }
+
+    /// The keyboard, when no text field has it: 1–4 give the slide's image a verdict, 0 clears
+    /// it; ↑ and ↓ step through the sweep's table; Esc stops drawing.
+    fn keys(&mut self, ui: &egui::Ui, out: &mut Vec<Intent>) {
+        if ui.ctx().text_edit_focused() {
+            return;
+        }
+        let pressed = |k: egui::Key| ui.input(|i| i.key_pressed(k));
+        use egui::Key::*;
+        for (key, n) in [(Num1, 1), (Num2, 2), (Num3, 3), (Num4, 4)] {
+            if pressed(key) {
+                out.push(Intent::Verdict(crate::ledger::Verdict::from_key(n)));
+            }
+        }
+        if pressed(Num0) {
+            out.push(Intent::Verdict(None));
+        }
+        if self.sweep.tab == super::sweep::BottomTab::Sweep && self.sweep.result.is_some() {
+            if pressed(ArrowDown) {
+                out.push(Intent::StepRow(1));
+            }
+            if pressed(ArrowUp) {
+                out.push(Intent::StepRow(-1));
+            }
+        }
+        if pressed(Escape) {
+            if self.draw.points.is_empty() {
+                self.draw.mode = DrawMode::Off;
+            } else {
+                self.draw.points.clear();
+            }
+        }
+    }
+
+    /// When the window is asked to close: it stays open until the ledger's last changes are
+    /// saved; while they cannot be, a window says what is not saved (see `unsaved_on_close`).
+    fn guard_close(&mut self, ui: &egui::Ui) {
+        if ui.input(|i| i.viewport().close_requested()) && self.ledger.store.is_some() {
+            self.commit_note();
+            ui.send_viewport_cmd(egui::ViewportCommand::CancelClose);
+            self.closing = true;
+        }
+        if !self.closing {
+            return;
+        }
+        match self.ledger.status() {
+            Some(crate::ledger::Status::Saving { .. }) => ui.ctx().request_repaint_after(Duration::from_millis(50)),
+            Some(crate::ledger::Status::Unsaved(_)) => {}
+            Some(crate::ledger::Status::Saved) | None => {
+                self.closing = false;
+                match self.close_ledger() {
+                    None => ui.send_viewport_cmd(egui::ViewportCommand::Close),
+                    Some(u) => self.note(NoteKind::Error, u.message()),
+                }
+            }
+        }
+    }
 }
 
 /// Median, 90th percentile and maximum of UI pass times, as one line of text.
@@ -188,6 +271,13 @@ pub fn frame_stats(times: &[Duration], busy: bool) -> String {
 impl eframe::App for Inspector {
     fn ui(&mut self, ui: &mut egui::Ui, _frame: &mut eframe::Frame) {
         self.frame(ui);
+    }
+
+    fn on_exit(&mut self) {
+        if let Some(u) = self.close_ledger() {
+            // The window is gone; the terminal is the last place to say it.
+            eprintln!("spurion: {}", u.message());
+        }
     }
 }
 

@@ -5,16 +5,17 @@ use std::path::Path;
 use std::sync::Arc;
 
 use anyhow::{Context, Result};
+use ndarray::Array2;
 
 use crate::control::Control;
 use crate::feed::{FeedCard, Feeder, Picture};
 use crate::methods::agree::Spread;
-use crate::methods::{self, Input, Request};
+use crate::methods::{self, Input, Reading, Request};
 use crate::model::{LoadOptions, Model, Tap};
 use crate::regions::{FinderSettings, FlagSettings, find_regions, paint_out_all};
 
 use super::paint;
-use super::state::{Prepared, Session, Shown};
+use super::state::{Drawn, Prepared, Session, Shown};
 
 pub fn load_session(path: &Path) -> Result<Session> {
     let model = Model::load(path, &LoadOptions::default())?;
@@ -66,12 +67,37 @@ pub fn display_image(picture: &Picture, window: &crate::feed::window::Windowing)
     Ok(paint::picture_image(&picture.with_pixels(d.values.mapv(|v| w.map(f64::from(v)) as f32))))
 }
 
-/// One reading with its region figures and flag.
-pub fn read(session: &Session, prepared: &Prepared, req: &Request, ctl: &Control) -> Result<Shown> {
+/// One reading with its region figures and flag, over the found regions and the drawn ones.
+pub fn read(session: &Session, prepared: &Prepared, req: &Request, drawn: &Drawn, ctl: &Control) -> Result<Shown> {
     let input = Input::picture((*prepared.picture).clone(), &session.card)?;
     let reading = methods::explain(&session.model, Some(&session.card), &input, req, ctl)?;
     let map = reading.map2d();
     let spread = Spread::of(&map);
-    let assessment = methods::assess(&session.model, Some(&session.card), &input, &reading, &prepared.regions, &FlagSettings::default())?;
-    Ok(Shown { reading: Arc::new(reading), map, spread, assessment })
+    assess(session, prepared, &input, Arc::new(reading), map, spread, drawn)
+}
+
+/// The figures and flag of a reading already made, again, under other drawn regions (a region
+/// drawn or deleted asks for no new map, only for the removal runs and the figures).
+pub fn reassess(session: &Session, prepared: &Prepared, shown: &Shown, drawn: &Drawn) -> Result<Shown> {
+    let input = Input::picture((*prepared.picture).clone(), &session.card)?;
+    assess(session, prepared, &input, shown.reading.clone(), shown.map.clone(), shown.spread.clone(), drawn)
+}
+
+/// As `spurion explain --ledger` and the sweep do (`methods::assess_input`): the found regions
+/// (the same finders, found once when the image opened), then the drawn ones.
+fn assess(session: &Session, prepared: &Prepared, input: &Input, reading: Arc<Reading>, map: Array2<f32>, spread: Spread, drawn: &Drawn) -> Result<Shown> {
+    let (h, w) = (prepared.picture.height(), prepared.picture.width());
+    let drawn_regions = match &drawn.file {
+        Some(f) => f.to_regions(h, w).context("the regions drawn on this image in the ledger")?,
+        None => vec![],
+    };
+    let drawn_edges = drawn_regions.iter().map(|r| paint::mask_edges(&r.mask)).collect();
+    let mut regions = prepared.regions.clone();
+    regions.extend(drawn_regions);
+    let assessment = methods::assess(&session.model, Some(&session.card), input, &reading, &regions, &FlagSettings::default())?;
+    let painted = (!drawn.is_empty()).then(|| {
+        let (pixels, fill) = paint_out_all(&prepared.picture.pixels, &regions);
+        (paint::picture_image(&prepared.picture.with_pixels(pixels)), fill)
+    });
+    Ok(Shown { reading, map, spread, assessment, drawn_edges, painted })
 }

@@ -5,7 +5,10 @@ use std::time::{Duration, Instant};
 
 use super::app::Inspector;
 use super::state::{JobId, NoteKind};
+use super::sweep::{BottomTab, Column};
 use super::work::{Done, Pick};
+use crate::ledger::Verdict;
+use crate::regions::drawn::DrawnShape;
 
 /// What the panels ask for; applied after drawing, so a panel never changes state under another.
 #[derive(Clone, Debug)]
@@ -22,6 +25,22 @@ pub enum Intent {
     Export(ExportWhat),
     About(bool),
     Review(super::review::ReviewIntent),
+    /// Keys 1–4 (0 clears): the verdict of the image on the slide.
+    Verdict(Option<Verdict>),
+    /// A region drawn on the image at the path, of size `[width, height]`.
+    AddDrawn(PathBuf, DrawnShape, [usize; 2]),
+    DeleteDrawn(PathBuf, usize),
+    /// Open the ledger typed in the ledger section.
+    OpenTypedLedger,
+    StartSweep,
+    /// Show the files of a sweep made earlier into the sweep's folder.
+    LoadSweep,
+    /// Open the image of this sweep row (an index into the rows) in the slide.
+    OpenRow(usize),
+    /// Move the slide to the next (+1) or previous (−1) row of the table as it is shown.
+    StepRow(i32),
+    SortBy(Column),
+    Tab(BottomTab),
 }
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -53,6 +72,27 @@ impl Inspector {
                 Intent::Export(what) => self.export(what),
                 Intent::About(show) => self.show_about = show,
                 Intent::Review(r) => self.apply_review(r),
+                Intent::Verdict(v) => match self.verdict_target() {
+                    Some(p) => self.set_verdict(&p, v),
+                    None => self.note(NoteKind::Warning, "open an image first: keys 1–4 give the image on the slide its verdict"),
+                },
+                Intent::AddDrawn(p, shape, size) => self.add_drawn(&p, shape, size),
+                Intent::DeleteDrawn(p, i) => self.delete_drawn(&p, i),
+                Intent::OpenTypedLedger => {
+                    let t = self.ledger.field.trim().to_string();
+                    if t.is_empty() {
+                        self.note(NoteKind::Warning, "type the ledger's file or folder first");
+                    } else {
+                        let dataset = self.image_dir();
+                        self.open_ledger(&PathBuf::from(t), dataset.as_deref());
+                    }
+                }
+                Intent::StartSweep => self.start_sweep(),
+                Intent::LoadSweep => self.load_sweep(),
+                Intent::OpenRow(i) => self.open_row(i),
+                Intent::StepRow(d) => self.step_row(d),
+                Intent::SortBy(c) => self.sweep.sort_by(c),
+                Intent::Tab(t) => self.sweep.tab = t,
             }
         }
     }
@@ -73,7 +113,10 @@ impl Inspector {
                 Pick::Model => d.add_filter("ONNX model", &["onnx"]).pick_file().map(|p| vec![p]),
                 Pick::Images => d.add_filter("images", crate::feed::IMAGE_ENDINGS).pick_files(),
                 Pick::CustomBaseline => d.add_filter("images", crate::feed::IMAGE_ENDINGS).pick_file().map(|p| vec![p]),
-                Pick::Folder | Pick::MeanFolder | Pick::DrawsFolder | Pick::ExportFolder => d.pick_folder().map(|p| vec![p]),
+                Pick::Folder | Pick::MeanFolder | Pick::DrawsFolder | Pick::ExportFolder | Pick::SweepImages | Pick::SweepOut => {
+                    d.pick_folder().map(|p| vec![p])
+                }
+                Pick::Ledger => d.add_filter("ledger", &["json"]).pick_file().map(|p| vec![p]),
             };
             Done::Picked { purpose: what, paths, took: started.elapsed() }
         }, |msg| Done::Failed(format!("the file dialog failed: {msg}")));

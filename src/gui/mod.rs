@@ -14,6 +14,7 @@ pub mod engine;
 pub mod export;
 pub mod form;
 pub mod intents;
+pub mod ledger;
 pub mod look;
 mod open;
 pub mod paint;
@@ -24,6 +25,8 @@ mod results;
 pub mod review;
 mod review_work;
 pub mod state;
+pub mod sweep;
+pub mod sweep_work;
 pub mod textures;
 pub mod work;
 
@@ -37,6 +40,8 @@ pub use config::InspectorConfig;
 pub struct GuiOptions {
     pub model: Option<PathBuf>,
     pub paths: Vec<PathBuf>,
+    /// The ledger file (or its folder); by default the one in the first folder opened.
+    pub ledger: Option<PathBuf>,
 }
 
 /// Opens the inspector window and runs until it is closed.

@@ -41,10 +41,10 @@ impl Inspector {
                 continue;
             }
             if p.is_dir() {
-                match crate::feed::list_images(p) {
+                match images_in(p) {
                     Ok(list) if list.is_empty() => self.note(
                         NoteKind::Warning,
-                        format!("{} holds no PNG, JPEG, TIFF or BMP images", p.display()),
+                        format!("{} holds no PNG, JPEG, TIFF, BMP or DICOM images, nor do its sub-folders", p.display()),
                     ),
                     Ok(list) => {
                         for f in list {
@@ -56,6 +56,8 @@ impl Inspector {
                             }
                         }
                         self.recent.add_images(p);
+                        self.default_ledger_for(p);
+                        self.sweep.suggest(p, true);
                     }
                     Err(e) => self.note(NoteKind::Error, format!("{e:#}")),
                 }
@@ -68,6 +70,10 @@ impl Inspector {
                 added += new as usize;
                 show.get_or_insert(i);
                 self.recent.add_images(p);
+                self.default_ledger_for(p);
+                if let Some(dir) = p.parent() {
+                    self.sweep.suggest(dir, false);
+                }
             } else {
                 self.note(NoteKind::Error, format!("{} does not exist; check the path", p.display()));
             }
@@ -85,6 +91,7 @@ impl Inspector {
 
     /// Shows the image at `path` if it is in the list.
     pub fn select_path(&mut self, path: &Path) -> bool {
+        let path = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
         match self.images.iter().position(|e| e.path == path) {
             Some(i) => {
                 self.select(i);
@@ -96,6 +103,9 @@ impl Inspector {
 
     /// The list position of `path`, added if it is not there yet (and whether it was added).
     pub(crate) fn push_image(&mut self, path: PathBuf) -> (usize, bool) {
+        // One form for every path (a sweep's rows and the ledger name images absolutely), so the
+        // same file is never listed twice.
+        let path = std::path::absolute(&path).unwrap_or(path);
         if let Some(i) = self.images.iter().position(|e| e.path == path) {
             return (i, false);
         }
@@ -162,8 +172,33 @@ impl Inspector {
             Pick::MeanFolder => self.form.mean_dir = paths[0].display().to_string(),
             Pick::DrawsFolder => self.form.draws_dir = paths[0].display().to_string(),
             Pick::ExportFolder => self.export_dir = paths[0].display().to_string(),
+            Pick::Ledger => {
+                let dataset = self.image_dir();
+                self.open_ledger(&paths[0], dataset.as_deref());
+            }
+            Pick::SweepImages => {
+                self.sweep.images_field = paths[0].display().to_string();
+                self.sweep.out_field = super::sweep::default_out(&paths[0]).display().to_string();
+            }
+            Pick::SweepOut => self.sweep.out_field = paths[0].display().to_string(),
         }
     }
+}
+
+/// The images of a folder, or, when it holds none, those of its sub-folders (a dataset kept one
+/// folder per site or group, as a sweep groups it), sorted by path.
+fn images_in(dir: &Path) -> anyhow::Result<Vec<PathBuf>> {
+    let here = crate::feed::list_images(dir)?;
+    if !here.is_empty() {
+        return Ok(here);
+    }
+    let mut subs: Vec<PathBuf> = std::fs::read_dir(dir)?.filter_map(|e| e.ok().map(|e| e.path())).filter(|p| p.is_dir()).collect();
+    subs.sort();
+    let mut out = vec![];
+    for s in subs {
+        out.extend(crate::feed::list_images(&s)?);
+    }
+    Ok(out)
 }
 
 /// Whether a file named as an image can be opened as one, judged by its ending (the worker that

@@ -33,7 +33,7 @@ impl Inspector {
     pub fn wanted_key(&self) -> Result<Key, String> {
         let img = self.current_image().ok_or("no image selected")?;
         let request = self.form.request(self.image_dir().as_deref())?;
-        Ok(Key::new(&img.path, request))
+        Ok(Key::new(&img.path, request, self.ledger.drawn_of(&img.path)))
     }
 
     pub fn current_shown(&self) -> Option<(Key, Arc<Shown>)> {
@@ -42,7 +42,9 @@ impl Inspector {
         Some((k, s))
     }
 
-    /// Starts a reading for `key` unless it is cached or already running.
+    /// Starts a reading for `key` unless it is cached or already running. When the same
+    /// reading is done under other drawn regions, only its figures are computed again; while it
+    /// is being computed, nothing starts (its end brings this back).
     pub(crate) fn request(&mut self, key: &Key, for_slide: bool) -> Option<JobId> {
         if let Some(slot) = self.cache.slots.get(key) {
             return match slot {
@@ -55,13 +57,25 @@ impl Inspector {
             ImageState::Ready(p) => Some(p.clone()),
             _ => None,
         })?;
+        let earlier = self.cache.same_reading_done(key).cloned();
+        if earlier.is_none() && self.cache.same_reading_pending(key) {
+            return None;
+        }
         let (k, failed) = (key.clone(), key.clone());
-        let label = format!("{} · {}", short_name(&key.image), key.request.describe());
+        let label = format!(
+            "{} · {}{}",
+            short_name(&key.image),
+            if earlier.is_some() { "figures with the drawn regions · " } else { "" },
+            key.request.describe()
+        );
         let (id, _) = self.workers.spawn(
             label,
             true,
             move |ctl, _| {
-                let r = super::engine::read(&session, &prepared, &k.request, ctl);
+                let r = match &earlier {
+                    Some(shown) => super::engine::reassess(&session, &prepared, shown, &k.drawn),
+                    None => super::engine::read(&session, &prepared, &k.request, &k.drawn, ctl),
+                };
                 let cancelled = r.as_ref().err().is_some_and(crate::model::is_cancelled) || ctl.is_cancelled();
                 Done::Reading { key: k, result: r.map_err(|e| format!("{e:#}")), cancelled }
             },
@@ -81,7 +95,7 @@ impl Inspector {
         let Ok(key) = wanted else { return };
         // A slide job for a key nobody wants any more is stopped, so its cores go to the new one.
         if let Some((k, id)) = self.slide_job.clone()
-            && k != key
+            && !k.same_reading(&key)
         {
             let strip_needs = self.strip.wanted.as_ref().is_some_and(|p| p.keys().contains(&k));
             if !strip_needs && self.workers.is_running(id) {
@@ -111,7 +125,7 @@ impl Inspector {
             );
             return;
         }
-        let plan = StripPlan::new(&img_path, &self.form, self.image_dir().as_deref());
+        let plan = StripPlan::new(&img_path, &self.form, self.image_dir().as_deref(), &self.ledger.drawn_of(&img_path));
         self.strip.wanted = Some(plan.clone());
         if let Some(id) = self.strip_job.take() {
             self.workers.cancel(id);
@@ -133,7 +147,7 @@ impl Inspector {
                 if ctl.is_cancelled() {
                     break;
                 }
-                let r = super::engine::read(&session, &prepared, &k.request, ctl);
+                let r = super::engine::read(&session, &prepared, &k.request, &k.drawn, ctl);
                 let cancelled = r.as_ref().err().is_some_and(crate::model::is_cancelled) || ctl.is_cancelled();
                 outbox.send(Done::Reading { key: k, result: r.map_err(|e| format!("{e:#}")), cancelled });
             }

@@ -13,7 +13,8 @@ use crate::methods::agree::{Agreement, Spread};
 use crate::sign::Sign;
 
 use crate::model::Model;
-use crate::regions::{Assessment, Region};
+use crate::regions::drawn::DrawnShape;
+use crate::regions::{Assessment, DrawnFile, Region};
 
 use crate::methods::{BaselineKind, Request};
 
@@ -64,29 +65,71 @@ pub struct Shown {
     pub map: Array2<f32>,
     /// The signed map's values sorted, for the hover percentile.
     pub spread: Spread,
-    /// Region figures and the flag (the regions module's rule, on the supporting part).
+    /// Region figures and the flag (the regions module's rule, on the supporting part), over
+    /// the found regions and then the drawn ones.
     pub assessment: Assessment,
+    /// The drawn regions' outlines as pixel-edge segments (as they were rasterised).
+    pub drawn_edges: Vec<Vec<[[f32; 2]; 2]>>,
+    /// With drawn regions: the picture with every region, found and drawn, painted out (what
+    /// the removal of all regions ran the model on), and the fills used.
+    pub painted: Option<(egui::ColorImage, String)>,
 }
 
-/// A reading's identity: which image, which request. Equal keys give the same reading.
+/// The regions a person drew on an image, as the ledger holds them, with their canonical text
+/// (what keys compare by, the same text the sweep's cache keys take).
+#[derive(Clone, Debug, Default)]
+pub struct Drawn {
+    pub file: Option<Arc<DrawnFile>>,
+    text: String,
+}
+
+impl Drawn {
+    pub fn new(file: Option<DrawnFile>) -> Drawn {
+        let file = file.filter(|f| !f.regions.is_empty());
+        let text = crate::sweep::read::drawn_extra(file.as_ref());
+        Drawn { file: file.map(Arc::new), text }
+    }
+
+    pub fn shapes(&self) -> &[DrawnShape] {
+        self.file.as_ref().map_or(&[], |f| f.regions.as_slice())
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.file.is_none()
+    }
+
+    pub fn text(&self) -> &str {
+        &self.text
+    }
+}
+
+/// A reading's identity: which image, which request, which drawn regions. Equal keys give the
+/// same reading and figures.
 #[derive(Clone, Debug)]
 pub struct Key {
     pub image: PathBuf,
     pub request: Request,
+    pub drawn: Drawn,
     /// The request's canonical text, which is what keys compare and hash by.
     text: String,
 }
 
 impl Key {
-    pub fn new(image: &Path, request: Request) -> Key {
+    pub fn new(image: &Path, request: Request, drawn: Drawn) -> Key {
         let text = request.key_text();
-        Key { image: image.to_path_buf(), request, text }
+        Key { image: image.to_path_buf(), request, drawn, text }
+    }
+
+    /// Whether `other` is the same reading, whatever regions were drawn (the map is the same;
+    /// only the figures differ).
+    pub fn same_reading(&self, other: &Key) -> bool {
+        self.image == other.image && self.text == other.text
     }
 }
 
 impl PartialEq for Key {
     fn eq(&self, other: &Key) -> bool {
-        self.image == other.image && self.text == other.text
+        self.same_reading(other) && self.drawn.text == other.drawn.text
     }
 }
 
@@ -96,6 +139,7 @@ impl std::hash::Hash for Key {
     fn hash<H: std::hash::Hasher>(&self, h: &mut H) {
         self.image.hash(h);
         self.text.hash(h);
+        self.drawn.text.hash(h);
     }
 }
 
@@ -119,6 +163,21 @@ impl ReadingCache {
             Some(Slot::Done(s)) => Some(s),
             _ => None,
         }
+    }
+
+    /// A finished reading of the same image and request as `key` under other drawn regions
+    /// (its map serves; only the figures need computing again).
+    pub fn same_reading_done(&self, key: &Key) -> Option<&Arc<Shown>> {
+        self.slots.iter().find_map(|(k, s)| match s {
+            Slot::Done(s) if k.same_reading(key) => Some(s),
+            _ => None,
+        })
+    }
+
+    /// Whether a reading of the same image and request as `key` is being computed (under any
+    /// drawn regions).
+    pub fn same_reading_pending(&self, key: &Key) -> bool {
+        self.slots.iter().any(|(k, s)| matches!(s, Slot::Pending(_)) && k.same_reading(key))
     }
 }
 
@@ -201,11 +260,11 @@ pub struct StripPlan {
 }
 
 impl StripPlan {
-    pub fn new(image: &Path, form: &Form, image_dir: Option<&Path>) -> StripPlan {
+    pub fn new(image: &Path, form: &Form, image_dir: Option<&Path>, drawn: &Drawn) -> StripPlan {
         let tiles = form
             .strip_baselines(image_dir)
             .into_iter()
-            .map(|(kind, b)| (kind, b.map(|b| Key::new(image, form.request_with(b)))))
+            .map(|(kind, b)| (kind, b.map(|b| Key::new(image, form.request_with(b), drawn.clone()))))
             .collect();
         StripPlan { image: image.to_path_buf(), tiles }
     }
@@ -247,4 +306,48 @@ pub enum NoteKind {
 /// the current folder, shown relative so the panel names no machine's paths.
 pub fn default_export_dir() -> PathBuf {
     PathBuf::from("spurion-export")
+}
+
+/// Drawing regions on the slide.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum DrawMode {
+    /// Dragging pans the slide.
+    #[default]
+    Off,
+    /// Dragging draws a box from corner to corner.
+    Box,
+    /// Dragging draws a freehand outline, closed when the button is let go.
+    Outline,
+}
+
+/// The drawing tool: its mode, the label new regions get, the shape being drawn.
+#[derive(Clone, Debug)]
+pub struct DrawState {
+    pub mode: DrawMode,
+    pub label: String,
+    /// The shape being drawn, in image pixels (a box's two corners, or the outline's points).
+    pub points: Vec<[f32; 2]>,
+}
+
+impl Default for DrawState {
+    fn default() -> Self {
+        DrawState { mode: DrawMode::Off, label: "mark".into(), points: Vec::new() }
+    }
+}
+
+/// Where the slide put the picture: image pixel (x, y) is at `origin + (x, y)·zoom` on screen.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct SlidePlace {
+    pub origin: egui::Pos2,
+    pub zoom: f32,
+}
+
+impl SlidePlace {
+    pub fn to_screen(&self, p: [f32; 2]) -> egui::Pos2 {
+        egui::pos2(self.origin.x + p[0] * self.zoom, self.origin.y + p[1] * self.zoom)
+    }
+
+    pub fn to_image(&self, s: egui::Pos2) -> [f32; 2] {
+        [(s.x - self.origin.x) / self.zoom, (s.y - self.origin.y) / self.zoom]
+    }
 }

@@ -18,8 +18,9 @@ use super::work::Done;
 #[derive(Default)]
 pub(crate) struct Textures {
     pub base: HashMap<PathBuf, TextureHandle>,
-    /// The pictures with their found regions painted out.
-    pub painted: HashMap<PathBuf, TextureHandle>,
+    /// The pictures with their regions painted out, by path and drawn regions' text (empty:
+    /// the found regions only).
+    pub painted: HashMap<(PathBuf, String), TextureHandle>,
     /// DICOM pictures through display windows, by path and window (`None` while being drawn).
     pub display: HashMap<(PathBuf, String), Option<TextureHandle>>,
     pub layer: Option<(LayerKey, TextureHandle)>,
@@ -44,16 +45,20 @@ impl Inspector {
         self.tex.display.values().filter(|t| t.is_some()).count()
     }
 
-    /// The slide's picture: as it is, or with its found regions painted out when the view asks
-    /// for that and there are any.
-    pub(crate) fn slide_texture(&mut self, path: &Path, prepared: &Prepared) -> TextureHandle {
-        match (&prepared.painted, self.view.painted_out) {
+    /// The slide's picture: as it is, or with its regions painted out when the view asks for
+    /// that and there are any (found ones from the image, and drawn ones from the reading's
+    /// figures once they are in).
+    pub(crate) fn slide_texture(&mut self, path: &Path, prepared: &Prepared, shown: Option<&Shown>) -> TextureHandle {
+        let drawn = self.ledger.drawn_of(path);
+        let with_drawn = shown.and_then(|s| s.painted.as_ref()).filter(|_| !drawn.is_empty());
+        match (with_drawn.or(prepared.painted.as_ref()), self.view.painted_out) {
             (Some((img, _)), true) => {
-                if let Some(t) = self.tex.painted.get(path) {
+                let key = (path.to_path_buf(), if with_drawn.is_some() { drawn.text().to_string() } else { String::new() });
+                if let Some(t) = self.tex.painted.get(&key) {
                     return t.clone();
                 }
                 let t = self.ctx.load_texture(format!("painted {}", path.display()), img.clone(), egui::TextureOptions::NEAREST);
-                self.tex.painted.insert(path.to_path_buf(), t.clone());
+                self.tex.painted.insert(key, t.clone());
                 t
             }
             _ => match (&self.view.display_window, &prepared.picture.dicom) {

@@ -27,6 +27,12 @@ pub enum Done {
     Display { path: PathBuf, key: String, result: Result<egui::ColorImage, String> },
     /// The review panel's and the strip curves' jobs (src/gui/review.rs).
     Review(super::review::ReviewDone),
+    /// A ledger opened (read) on a worker, ready to be kept by its own saving thread.
+    Ledger { path: PathBuf, result: Result<crate::ledger::Store, String> },
+    /// A sweep run here or read back from its files (`id` tells which start it answers).
+    Sweep { id: u64, result: Result<super::sweep::SweepDone, String>, cancelled: bool },
+    /// One thumbnail of the sweep `sweep`'s table.
+    Thumb { sweep: u64, rel: String, result: Result<egui::ColorImage, String> },
     /// A job that sent its results through its outbox has ended.
     Finished,
     /// A job with nothing of its own to report failed (the text says what failed).
@@ -43,6 +49,9 @@ pub enum Pick {
     MeanFolder,
     DrawsFolder,
     ExportFolder,
+    Ledger,
+    SweepImages,
+    SweepOut,
 }
 
 impl Pick {
@@ -55,6 +64,9 @@ impl Pick {
             Pick::MeanFolder => "Choose the folder for the dataset mean",
             Pick::DrawsFolder => "Choose the folder expected gradients draw baselines from",
             Pick::ExportFolder => "Choose where exports go",
+            Pick::Ledger => "Choose the ledger file, or the folder it is in",
+            Pick::SweepImages => "Choose the folder of images to sweep",
+            Pick::SweepOut => "Choose where the sweep's files and cache go",
         }
     }
 }

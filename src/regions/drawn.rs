@@ -3,7 +3,8 @@
 //! The ledger ([`crate::ledger`]) keeps drawn regions per image in these shapes; `spurion ledger
 //! draw` adds them from the command line, and `spurion explain --ledger` reads them alongside
 //! the found regions (figures, removal, flag). This file form stays as a way to bring shapes in
-//! and out (`spurion ledger draw --from` / `--to`). The inspector does not draw them yet.
+//! and out (`spurion ledger draw --from` / `--to`). The inspector draws them on the slide (a box
+//! or a freehand outline) and keeps them in its ledger.
 //!
 //! # File format (`*.drawn.json`, spurion's own; not `spurion regions`' `regions.json`)
 //!

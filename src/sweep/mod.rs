@@ -8,6 +8,7 @@
 //! `report::sweep`'s.
 
 pub mod cache;
+pub mod ledger;
 pub mod merge;
 pub mod plan;
 pub mod read;
@@ -17,6 +18,7 @@ pub mod stats;
 pub mod summary;
 
 pub use cache::Cache;
+pub use ledger::SweepLedger;
 pub use merge::merge;
 pub use plan::{Exclude, Groups, Item, Shard, plan};
 pub use read::Setup;

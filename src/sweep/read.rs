@@ -48,7 +48,7 @@ impl Setup<'_> {
     /// What besides the settings and the image's content decides one image's result: the
     /// regions drawn on it (empty text when none).
     pub fn image_extra(&self, item: &Item) -> String {
-        self.drawn.get(&item.rel).filter(|d| !d.regions.is_empty()).map(|d| json!(d).to_string()).unwrap_or_default()
+        drawn_extra(self.drawn.get(&item.rel))
     }
 
     /// Reads one image.
@@ -96,6 +96,12 @@ impl Setup<'_> {
         };
         Ok(Entry { row, grid })
     }
+}
+
+/// The part of an image's cache key that its drawn regions make (empty text when none), so a
+/// front end that looks a result up finds the one the sweep stored.
+pub fn drawn_extra(drawn: Option<&DrawnFile>) -> String {
+    drawn.filter(|d| !d.regions.is_empty()).map(|d| json!(d).to_string()).unwrap_or_default()
 }
 
 /// A map on the model-input tensor summed over every axis but the two spatial ones: the map on

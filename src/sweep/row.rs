@@ -52,3 +52,36 @@ impl Row {
         Row { seconds: 0.0, ..self.clone() }
     }
 }
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::Row;
+
+    /// A row with every figure empty, for tests to fill in.
+    pub fn blank() -> Row {
+        Row {
+            path: String::new(),
+            group: String::new(),
+            top: 0,
+            top_label: String::new(),
+            top_score: 0.0,
+            target: 0,
+            target_label: String::new(),
+            target_score: 0.0,
+            mark_share: None,
+            lift: None,
+            removal_drop: None,
+            removal_probability_drop: None,
+            top_after_removal: None,
+            suspect: false,
+            evidence: String::new(),
+            regions: 0,
+            region_labels: String::new(),
+            completeness_gap: None,
+            steps: None,
+            burned_in_annotation: None,
+            verdict: None,
+            seconds: 0.0,
+        }
+    }
+}

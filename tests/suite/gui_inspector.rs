@@ -21,7 +21,7 @@ use spurion::model::{LoadOptions, Model};
 
 pub(crate) const STEPS: usize = 8;
 
-fn root() -> PathBuf {
+pub(crate) fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
 }
 
@@ -63,7 +63,7 @@ pub(crate) fn wait_for(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, do
 pub(crate) fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Inspector> {
     let mut app = Inspector::new(
         egui::Context::default(),
-        GuiOptions { model: Some(model_path()), paths: images },
+        GuiOptions { model: Some(model_path()), paths: images, ledger: None },
         InspectorConfig::headless(dir),
     );
     // Keep the test quick: few fixed IG steps (the figures are compared for the same

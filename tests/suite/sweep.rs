@@ -352,3 +352,29 @@ fn unreadable_files_are_listed_with_their_reason_and_the_sweep_goes_on() {
     }
     assert!(String::from_utf8_lossy(&o.stdout).contains("could not read 2 images"), "{}", String::from_utf8_lossy(&o.stdout));
 }
+
+#[test]
+fn a_ledger_named_by_its_folder_gives_the_verdicts_and_leaves_out_the_excluded() {
+    let f = fixture();
+    let dir = tempfile::tempdir().unwrap();
+    // The ledger kept beside the images, given as its folder (README: the file, or a folder).
+    let ledger = dir.path().join("ledger");
+    std::fs::create_dir(&ledger).unwrap();
+    let rels: Vec<String> = std::fs::read_to_string(f.whole.join("sweep.csv")).unwrap().lines().skip(1).map(|l| l.split(',').next().unwrap().to_string()).collect();
+    let (excluded, marked) = (&rels[0], &rels[1]);
+    let root = f.images.to_str().unwrap();
+    for (image, verdict) in [(excluded, "exclude"), (marked, "marked")] {
+        let img = f.images.join(image);
+        ok(&spurion(&["ledger", "set", "--ledger", ledger.to_str().unwrap(), "--root", root, "--image", img.to_str().unwrap(), "--verdict", verdict]));
+    }
+    let out = dir.path().join("out");
+    let mut args = sweep_args(root, out.to_str().unwrap());
+    args.extend(["--ledger", ledger.to_str().unwrap(), "--leave-out-excluded"]);
+    ok(&spurion(&args));
+    let rows: Vec<serde_json::Value> =
+        std::fs::read_to_string(out.join("sweep.jsonl")).unwrap().lines().map(|l| serde_json::from_str(l).unwrap()).collect();
+    assert_eq!(rows.len(), N - 1, "the image marked exclude is left out");
+    assert!(!rows.iter().any(|r| r["path"] == excluded.as_str()));
+    let verdicts: Vec<(&str, &str)> = rows.iter().filter_map(|r| Some((r["path"].as_str()?, r["verdict"].as_str()?))).collect();
+    assert_eq!(verdicts, [(marked.as_str(), "marked")]);
+}

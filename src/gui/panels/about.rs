@@ -41,3 +41,34 @@ pub fn drop_hint(ui: &mut egui::Ui) {
     painter.text(rect.center(), Align2::CENTER_CENTER, "drop to open: .onnx as the model, images and folders as images", FontId::proportional(20.0), look::CHALK);
 }
 
+
+/// When the window was asked to close while the ledger could not save: what is not saved, and
+/// the choices (it closes by itself once the save works).
+pub fn unsaved_on_close(ui: &mut egui::Ui, app: &mut Inspector, _out: &mut Vec<Intent>) {
+    if !app.closing {
+        return;
+    }
+    let Some(crate::ledger::Status::Unsaved(u)) = app.ledger.status() else { return };
+    egui::Window::new("The ledger is not saved").collapsible(false).resizable(false).default_width(460.0).show(ui.ctx(), |ui| {
+        ui.label(RichText::new(u.message()).color(look::SIGNAL));
+        ui.add_space(6.0);
+        ui.horizontal(|ui| {
+            if ui.button("Try again now").clicked()
+                && let Some(s) = &app.ledger.store
+            {
+                s.retry();
+            }
+            if ui.button("Keep the inspector open").clicked() {
+                app.closing = false;
+            }
+            let n = if u.changes == 1 { "1 change".to_string() } else { format!("{} changes", u.changes) };
+            if ui.button(format!("Close, losing {n}")).clicked() {
+                // The user was told; dropping the store ends its thread without a last save.
+                app.ledger.store = None;
+                app.closing = false;
+                ui.send_viewport_cmd(egui::ViewportCommand::Close);
+            }
+        });
+        ui.label(RichText::new("The window closes by itself once the ledger is saved.").small().color(look::ASH));
+    });
+}

@@ -88,17 +88,24 @@ pub fn top_bar(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
 pub fn status_bar(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     egui::Panel::bottom("status").show(ui, |ui| {
         ui.add_space(2.0);
-        for r in &app.workers.running {
-            ui.horizontal(|ui| {
-                let f = r.ctl.fraction();
-                let (d, t) = r.ctl.progress();
-                let text = if t > 0 { format!("{} — {d}/{t}", r.label) } else { r.label.clone() };
-                ui.add(egui::ProgressBar::new(f).desired_width(ui.available_width() - 90.0).fill(look::LILAC.gamma_multiply(0.6)).text(text));
-                if r.cancellable && ui.button("Cancel").clicked() {
-                    out.push(Intent::Cancel(r.id));
-                }
-            });
-        }
+        // One row for the work, however much runs, so nothing above moves when a job starts or ends.
+        ui.horizontal(|ui| {
+            let running = &app.workers.running;
+            let Some(first) = running.iter().find(|r| r.cancellable).or(running.first()) else {
+                ui.label(RichText::new("nothing running").color(look::ASH));
+                return;
+            };
+            let more = running.len() - 1;
+            let room = ui.available_width() - if more > 0 { 190.0 } else { 90.0 };
+            job_progress(ui, first, room, out);
+            if more > 0 {
+                ui.menu_button(format!("{more} more"), |ui| {
+                    for r in running.iter().filter(|r| r.id != first.id) {
+                        ui.horizontal(|ui| job_progress(ui, r, 420.0, out));
+                    }
+                });
+            }
+        });
         if let Some(n) = app.notes.last() {
             let c = match n.kind {
                 NoteKind::Info => look::CHALK,
@@ -110,6 +117,15 @@ pub fn status_bar(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>)
         ui.label(RichText::new(crate::CAUTION).small().color(look::ASH));
         ui.add_space(2.0);
     });
+}
+
+fn job_progress(ui: &mut egui::Ui, r: &crate::gui::work::Running, width: f32, out: &mut Vec<Intent>) {
+    let (d, t) = r.ctl.progress();
+    let text = if t > 0 { format!("{} — {d}/{t}", r.label) } else { r.label.clone() };
+    ui.add(egui::ProgressBar::new(r.ctl.fraction()).desired_width(width).fill(look::LILAC.gamma_multiply(0.6)).text(text));
+    if r.cancellable && ui.button("Cancel").clicked() {
+        out.push(Intent::Cancel(r.id));
+    }
 }
 
 // -------------------------------------------------------------------- image list

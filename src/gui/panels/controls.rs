@@ -194,13 +194,19 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
             if let Some(d) = app.current_prepared().and_then(|p| p.picture.dicom.clone()) {
                 display_window(ui, &mut app.view.display_window, &d);
             }
+            let drawn = app.current_image().is_some_and(|e| !app.ledger.drawn_of(&e.path).is_empty());
             let painted = app.current_prepared().and_then(|p| p.painted.as_ref().map(|(_, f)| f.clone()));
-            ui.add_enabled_ui(painted.is_some(), |ui| {
-                ui.checkbox(&mut app.view.painted_out, "found regions painted out").on_hover_text(format!(
-                    "Shows the image the removal figures ran the model on: every found region painted out ({}).",
-                    painted.as_deref().unwrap_or("no region found")
+            let fill = match (&painted, drawn) {
+                (_, true) => "found and drawn regions".to_string(),
+                (Some(f), false) => f.clone(),
+                (None, false) => "no region found or drawn".to_string(),
+            };
+            ui.add_enabled_ui(painted.is_some() || drawn, |ui| {
+                ui.checkbox(&mut app.view.painted_out, "regions painted out").on_hover_text(format!(
+                    "Shows the image the removal figures ran the model on: every region painted out ({fill})."
                 ));
             });
+
 
             ui.separator();
             ui.heading("Export");
@@ -222,6 +228,9 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                     out.push(Intent::Export(ExportWhat::Json));
                 }
             });
+
+            ui.separator();
+            super::ledger::ledger_section(ui, app, out);
 
             if let Some((_, shown)) = app.current_shown() {
                 ui.separator();

@@ -7,16 +7,62 @@ mod controls;
 mod plot;
 mod review;
 mod review_strip;
+mod curate;
+mod ledger;
 mod slide;
 mod strip;
+mod sweep;
 
-pub use about::{about, drop_hint};
+pub use about::{about, drop_hint, unsaved_on_close};
 pub use bars::{image_list, status_bar, top_bar};
 pub use controls::controls;
 pub use review::{cascade_text, convergence_text, deletion_text, insertion_text, review_panel, shapley_sum_text};
 pub use review_strip::{TILE_KEYS, tile_key_name};
+pub use curate::{shape_of, verdict_word};
 pub use slide::slide;
-pub use strip::{agreement_cell_overlap, agreement_cell_rho, strip_panel};
+pub use strip::{agreement_cell_overlap, agreement_cell_rho};
+
+use crate::gui::app::Inspector;
+use crate::gui::intents::Intent;
+use crate::gui::sweep::BottomTab;
+
+/// The bottom panel: the baseline strip or the sweep, one tab each (each keeps its own height).
+pub fn bottom_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
+    let tab = app.sweep.tab;
+    if tab == BottomTab::Strip {
+        review_strip::keys(ui, app, out);
+    }
+    // With curves under the maps the strip is a taller panel of its own (its own remembered size).
+    let curves = app.strip.wanted.as_ref().is_some_and(|p| review_strip::curves_shown(app, p));
+    let (id, size) = match tab {
+        BottomTab::Strip if curves => ("strip with curves", 255.0 + review_strip::CURVES_HEIGHT),
+        BottomTab::Strip => ("strip", 255.0),
+        BottomTab::Sweep => ("sweep", 380.0),
+    };
+    egui::Panel::bottom(id).resizable(true).default_size(size).min_size(120.0).show(ui, |ui| {
+        // A panel is as tall as its content: fill the height it was given (default or dragged),
+        // else it settles at whatever its first, empty frame needed.
+        ui.set_min_height(ui.available_height());
+        ui.add_space(4.0);
+        ui.horizontal_wrapped(|ui| {
+            for (t, name) in [(BottomTab::Strip, "Baseline strip"), (BottomTab::Sweep, "Sweep")] {
+                let text = egui::RichText::new(name).heading();
+                if ui.selectable_label(tab == t, text).clicked() && tab != t {
+                    out.push(Intent::Tab(t));
+                }
+            }
+            ui.separator();
+            match tab {
+                BottomTab::Strip => strip::strip_controls(ui, app, out),
+                BottomTab::Sweep => sweep::sweep_controls(ui, app, out),
+            }
+        });
+        match tab {
+            BottomTab::Strip => strip::strip_body(ui, app, out),
+            BottomTab::Sweep => sweep::sweep_body(ui, app, out),
+        }
+    });
+}
 
 fn fmt_value(v: f32) -> String {
     crate::render::format_value(v, true)

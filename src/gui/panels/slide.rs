@@ -1,9 +1,10 @@
 //! The slide: the image with its reading tinted over it, zoom, pan and the hover readout.
 
-use egui::{Color32, FontId, Pos2, Rect, RichText, Sense, Stroke, pos2, vec2};
+use egui::{Color32, Rect, RichText, Sense, Stroke, pos2, vec2};
 
-use super::{fmt_opt, fmt_value, removal_text};
+use super::fmt_value;
 use crate::gui::app::Inspector;
+use crate::gui::intents::Intent;
 use crate::gui::textures::LayerKey;
 use crate::gui::look;
 use crate::gui::short_name;
@@ -11,21 +12,6 @@ use crate::gui::state::*;
 use crate::sign::Sign;
 
 // -------------------------------------------------------------------- slide
-
-/// Screen placement of the picture: image pixel (x, y) ↦ `origin + (x, y)·zoom`.
-struct Placement {
-    origin: Pos2,
-    zoom: f32,
-}
-
-impl Placement {
-    fn to_screen(&self, p: [f32; 2]) -> Pos2 {
-        pos2(self.origin.x + p[0] * self.zoom, self.origin.y + p[1] * self.zoom)
-    }
-    fn to_image(&self, s: Pos2) -> [f32; 2] {
-        [(s.x - self.origin.x) / self.zoom, (s.y - self.origin.y) / self.zoom]
-    }
-}
 
 /// What a DICOM or 16-bit picture is and how it is fed and shown, in one line (no
 /// patient-identifying attribute: only the file's technical facts).
@@ -89,7 +75,7 @@ fn legend(ui: &mut egui::Ui, app: &mut Inspector, scale: f32, sign: Sign) {
     });
 }
 
-pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
+pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     egui::CentralPanel::default().frame(egui::Frame::new().fill(look::DEEP).inner_margin(8.0)).show(ui, |ui| {
         let Some(entry) = app.current_image() else {
             ui.centered_and_justified(|ui| {
@@ -98,6 +84,9 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
             return;
         };
         let path = entry.path.clone();
+        // The verdict bar first: an image that cannot be opened can still be given its verdict.
+        super::curate::curator_bar(ui, app, &path, out);
+        let Some(entry) = app.current_image() else { return };
         let prepared = match &entry.state {
             ImageState::Ready(p) => p.clone(),
             ImageState::Failed(m) => {
@@ -170,7 +159,7 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
                 app.view.centre = centre;
             }
         }
-        if resp.dragged() {
+        if resp.dragged() && app.draw.mode == DrawMode::Off {
             let d = resp.drag_delta();
             centre = [centre[0] - d.x / zoom, centre[1] - d.y / zoom];
             app.view.zoom = Some(zoom);
@@ -179,11 +168,13 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
         if resp.double_clicked() {
             app.view.zoom = None;
         }
-        let place = Placement { origin: pos2(rect.center().x - centre[0] * zoom, rect.center().y - centre[1] * zoom), zoom };
+        let place = SlidePlace { origin: pos2(rect.center().x - centre[0] * zoom, rect.center().y - centre[1] * zoom), zoom };
+        app.slide_place = Some(place);
+        super::curate::draw_drag(app, &resp, &place, &path, [w as usize, h as usize], out);
         let img_rect = Rect::from_min_max(place.to_screen([0.0, 0.0]), place.to_screen([w, h]));
         let painter = ui.painter_at(rect);
         let uv = Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0));
-        let base = app.slide_texture(&path, &prepared);
+        let base = app.slide_texture(&path, &prepared, shown.as_deref());
         painter.image(base.id(), img_rect, uv, Color32::WHITE);
 
         let mut scale = 0.0;
@@ -211,24 +202,18 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector) {
             }
         }
 
+        let mut taken = Vec::new();
         if app.view.show_regions {
             let stroke = Stroke::new(1.4, look::REGION);
             for (i, (r, edges)) in prepared.regions.iter().zip(&prepared.region_edges).enumerate() {
                 painter.extend(edges.iter().map(|[a, b]| egui::Shape::line_segment([place.to_screen(*a), place.to_screen(*b)], stroke)));
-                let figures = shown.as_ref().and_then(|s| s.assessment.regions.get(i).map(|rr| (s, rr))).map(|(s, rr)| {
-                    let removal = rr.removal.as_ref().map(|x| format!(" · {}", removal_text(x, s.reading.target.index))).unwrap_or_default();
-                    format!(" · share {} · lift {}{removal}", fmt_opt(rr.figures.mark_share, 2), fmt_opt(rr.figures.lift, 1))
-                });
-                let text = format!("{}{}", r.label(), figures.unwrap_or_default());
+                let figures = shown.as_ref().and_then(|s| super::curate::figures_text(s, i));
                 // Label inside the image near the region's corner, clamped to the panel.
                 let at = place.to_screen([r.bbox[0] as f32, r.bbox[3] as f32]);
-                let at = pos2(at.x.clamp(rect.left() + 2.0, rect.right() - 160.0), (at.y + 2.0).clamp(rect.top() + 2.0, rect.bottom() - 16.0));
-                let galley = painter.layout_no_wrap(text, FontId::proportional(12.0), look::REGION);
-                let bg = Rect::from_min_size(at, galley.size() + vec2(6.0, 2.0));
-                painter.rect_filled(bg, 2.0, Color32::from_black_alpha(190));
-                painter.galley(at + vec2(3.0, 1.0), galley, look::REGION);
+                super::curate::region_label(&painter, rect, at, format!("{}{}", r.label(), figures.unwrap_or_default()), look::REGION, &mut taken);
             }
         }
+        super::curate::paint_drawn(&painter, rect, app, &place, &path, shown.as_deref(), prepared.regions.len(), &mut taken);
 
         // Hover readout.
         let readout = resp.hover_pos().filter(|p| img_rect.contains(*p)).map(|p| {
