@@ -22,7 +22,7 @@ fn main() {
     std::fs::create_dir_all(&tmp).unwrap();
     let mut app = Inspector::new(
         egui::Context::default(),
-        GuiOptions { model: Some(root.join("sample-models/shortcut.onnx")), paths: vec![images[0].clone()] },
+        GuiOptions { model: Some(root.join("sample-models/shortcut.onnx")), paths: vec![images[0].clone()], ledger: None },
         InspectorConfig::headless(&tmp),
     );
     app.form.steps = steps;
