@@ -18,7 +18,12 @@ batch), writes the input OUT_DIR/x.npy, then times REPEATS runs of each setting:
 
 Thread counts: THREADS for both runtimes (torch.set_num_threads, onnxruntime intra-op threads),
 or each count in the environment's SPURION_BENCH_PEER_THREADS (comma-separated) to check
-others. onnxruntime keeps its default graph optimisation (all levels) and one inter-op thread.
+others; onnxruntime also runs at one thread. onnxruntime keeps its default graph optimisation
+(all levels) and one inter-op thread.
+
+The network: torchvision's ResNet-18 with random weights and random batch-norm statistics
+(see below: with torchvision's initial batch norm the path from a black baseline is straight and
+the completeness gap is 0 at any step count).
 
 Prints one JSON object on stdout: library versions, every setting's times and median, and the
 results (IG attribution sums, occlusion map in OUT_DIR/occlusion-ort.npy) for the bench to compare
@@ -58,8 +63,24 @@ def timed(fn, repeats):
 def main():
     out, threads, repeats = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
     thread_counts = [int(t) for t in os.environ.get("SPURION_BENCH_PEER_THREADS", str(threads)).split(",")]
+    # onnxruntime's intra-op pool spins while it waits; on a shared machine one thread has been
+    # faster than two, so its runs also try one thread (PyTorch's best one-thread setting was
+    # 1.7x slower than its best two-thread one; see DEVELOPERS.md, 'Benchmarks').
+    ort_thread_counts = sorted(set(thread_counts) | {1})
     torch.manual_seed(18)
     net = torchvision.models.resnet18(weights=None, num_classes=1000).eval()
+    # torchvision initialises batch norm to the identity with zero shift, which leaves a network
+    # of convolutions, ReLUs and pools without a bias before the last layer: positively
+    # homogeneous, so F(a x) = a F'(x) + b and the path from a black baseline is a straight line
+    # on which every quadrature is exact (the completeness gap is 0 at any step count). Random
+    # batch-norm statistics and shifts make the path curve, as a trained network's does.
+    with torch.no_grad():
+        for m in net.modules():
+            if isinstance(m, torch.nn.BatchNorm2d):
+                m.weight.uniform_(0.5, 1.5)
+                m.bias.normal_(0.0, 0.2)
+                m.running_mean.normal_(0.0, 0.2)
+                m.running_var.uniform_(0.5, 1.5)
     rng = np.random.default_rng(18)
     x = rng.uniform(-1.0, 1.0, size=(1, 3, 224, 224)).astype(np.float32)
     np.save(os.path.join(out, "x.npy"), x)
@@ -127,7 +148,7 @@ def main():
         return o
 
     occ_runs, occ_map = [], None
-    for th in thread_counts:
+    for th in ort_thread_counts:
         so = ort.SessionOptions()
         so.intra_op_num_threads = th
         so.inter_op_num_threads = 1

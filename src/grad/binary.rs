@@ -80,41 +80,93 @@ impl ReverseStep for BinStep {
                 let b = cx.input(1)?;
                 let a = bcast(&a, &out)?;
                 let b = bcast(&b, &out)?;
-                let zip_ab = |f: &dyn Fn(f32, f32, f32) -> f32| -> ArrayD<f32> {
-                    let mut g = ArrayD::<f32>::zeros(IxDyn(&out));
-                    Zip::from(&mut g).and(&dy).and(&a).and(&b).for_each(|g, &d, &a, &b| *g = f(d, a, b));
-                    g
-                };
-                // d(out)/da and d(out)/db as functions of (dy, a, b).
-                type F = fn(f32, f32, f32) -> f32;
-                let (fa, fb): (F, F) = match self.0 {
-                    Kind::Mul => (|d, _a, b| d * b, |d, a, _b| d * a),
-                    Kind::Div => (|d, _a, b| d / b, |d, a, b| -d * a / (b * b)),
+                // d(out)/da and d(out)/db as functions of (dy, a, b), each loop monomorphised.
+                let shapes = (sa.as_slice(), sb.as_slice());
+                (ga, gb) = match self.0 {
+                    Kind::Mul => operands(dy, &a, &b, (act_a, act_b), shapes, |d, _a, b| d * b, |d, a, _b| d * a)?,
+                    Kind::Div => operands(dy, &a, &b, (act_a, act_b), shapes, |d, _a, b| d / b, |d, a, b| -d * a / (b * b))?,
                     // Ties split the gradient evenly (as torch.maximum/minimum do).
-                    Kind::Max => (
+                    Kind::Max => operands(
+                        dy,
+                        &a,
+                        &b,
+                        (act_a, act_b),
+                        shapes,
                         |d, a, b| if a > b { d } else if a == b { 0.5 * d } else { 0.0 },
                         |d, a, b| if b > a { d } else if a == b { 0.5 * d } else { 0.0 },
-                    ),
-                    Kind::Min => (
+                    )?,
+                    Kind::Min => operands(
+                        dy,
+                        &a,
+                        &b,
+                        (act_a, act_b),
+                        shapes,
                         |d, a, b| if a < b { d } else if a == b { 0.5 * d } else { 0.0 },
                         |d, a, b| if b < a { d } else if a == b { 0.5 * d } else { 0.0 },
-                    ),
-                    Kind::Pow => (
+                    )?,
+                    Kind::Pow => operands(
+                        dy,
+                        &a,
+                        &b,
+                        (act_a, act_b),
+                        shapes,
                         |d, a, b| if b == 0.0 { 0.0 } else { d * b * a.powf(b - 1.0) },
                         |d, a, b| if a > 0.0 { d * a.powf(b) * a.ln() } else { 0.0 },
-                    ),
+                    )?,
                     _ => unreachable!(),
                 };
-                if act_a {
-                    ga = Some(unbroadcast(zip_ab(&fa), sa)?);
-                }
-                if act_b {
-                    gb = Some(unbroadcast(zip_ab(&fb), sb)?);
-                }
             }
         }
         Ok(vec![ga, gb])
     }
+}
+
+/// The gradients of the active operands, `fa(dy, a, b)` and `fb(dy, a, b)` element-wise over
+/// the output (a and b broadcast to it), each summed back to its operand's shape. The last one
+/// computed is written over `dy` itself.
+fn operands(
+    dy: ArrayD<f32>,
+    a: &ArrayViewD<f32>,
+    b: &ArrayViewD<f32>,
+    (act_a, act_b): (bool, bool),
+    (sa, sb): (&[usize], &[usize]),
+    fa: impl Fn(f32, f32, f32) -> f32,
+    fb: impl Fn(f32, f32, f32) -> f32,
+) -> Result<(Option<ArrayD<f32>>, Option<ArrayD<f32>>)> {
+    let ga = match (act_a, act_b) {
+        (false, _) => None,
+        (true, true) => Some(map3(dy.clone(), a, b, sa, fa)?),
+        (true, false) => return Ok((Some(map3(dy, a, b, sa, fa)?), None)),
+    };
+    let gb = if act_b { Some(map3(dy, a, b, sb, fb)?) } else { None };
+    Ok((ga, gb))
+}
+
+/// `f(g, a, b)` written over `g` element-wise, then summed back to `shape`.
+fn map3(mut g: ArrayD<f32>, a: &ArrayViewD<f32>, b: &ArrayViewD<f32>, shape: &[usize], f: impl Fn(f32, f32, f32) -> f32) -> Result<ArrayD<f32>> {
+    // One operand a single value broadcast (relu's Max(x, 0), a scale) and the other laid out
+    // like `g`: a plain loop over slices, which the compiler vectorises; ndarray's Zip walks a
+    // broadcast operand element by element.
+    let single = |v: &ArrayViewD<f32>| {
+        let one = v.shape().iter().zip(v.strides()).all(|(&n, &s)| n <= 1 || s == 0);
+        one.then(|| v.first().copied()).flatten()
+    };
+    if let Some(gs) = g.as_slice_mut() {
+        if let (Some(bv), Some(aa)) = (single(b), a.as_slice()) {
+            for (g, &a) in gs.iter_mut().zip(aa) {
+                *g = f(*g, a, bv);
+            }
+            return unbroadcast(g, shape);
+        }
+        if let (Some(av), Some(bb)) = (single(a), b.as_slice()) {
+            for (g, &b) in gs.iter_mut().zip(bb) {
+                *g = f(*g, av, b);
+            }
+            return unbroadcast(g, shape);
+        }
+    }
+    Zip::from(&mut g).and(a).and(b).for_each(|g, &a, &b| *g = f(*g, a, b));
+    unbroadcast(g, shape)
 }
 
 /// `Iff(cond, t, f)`: the gradient goes to whichever branch was selected.

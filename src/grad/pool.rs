@@ -147,31 +147,38 @@ impl ReverseStep for PoolStep {
             Kind::Max => {
                 let x = cx.input(0)?;
                 let x4 = as_nchw(x, fmt, rank)?;
+                // The in-range input rows (columns) of each output row (column), in scan order.
+                let valid = |g: &AxisGeo| -> Vec<Vec<usize>> {
+                    (0..g.out)
+                        .map(|o| taps(g, o).filter(|(i, _)| inside(*i, g.len)).map(|(i, _)| i as usize).collect())
+                        .collect()
+                };
+                let (rows, cols) = (valid(&gh), valid(&gw));
                 for b in 0..n {
                     for ch in 0..c {
                         let xs = x4.slice(ndarray::s![b, ch, .., ..]);
+                        let xs = xs.as_standard_layout();
+                        let xs = xs.as_slice().expect("standard layout");
+                        let ds = dy4.slice(ndarray::s![b, ch, .., ..]);
+                        let ds = ds.as_standard_layout();
+                        let ds = ds.as_slice().expect("standard layout");
                         let mut d = dx.slice_mut(ndarray::s![b, ch, .., ..]);
-                        for oh in 0..gh.out {
-                            for ow in 0..gw.out {
+                        let d = d.as_slice_mut().expect("a fresh array is contiguous");
+                        for (oh, rs) in rows.iter().enumerate() {
+                            for (ow, cs) in cols.iter().enumerate() {
                                 // First maximum in scan order takes the gradient (as PyTorch does).
-                                let mut best: Option<(usize, usize, f32)> = None;
-                                for (ih, _) in taps(&gh, oh) {
-                                    if !inside(ih, gh.len) {
-                                        continue;
-                                    }
-                                    for (iw, _) in taps(&gw, ow) {
-                                        if !inside(iw, gw.len) {
-                                            continue;
-                                        }
-                                        let v = xs[[ih as usize, iw as usize]];
-                                        if best.is_none_or(|(_, _, m)| v > m) {
-                                            best = Some((ih as usize, iw as usize, v));
+                                let (Some(&h0), Some(&w0)) = (rs.first(), cs.first()) else { continue };
+                                let (mut at, mut m) = (h0 * gw.len + w0, xs[h0 * gw.len + w0]);
+                                for &ih in rs {
+                                    let row = &xs[ih * gw.len..(ih + 1) * gw.len];
+                                    for &iw in cs {
+                                        let v = row[iw];
+                                        if v > m {
+                                            (at, m) = (ih * gw.len + iw, v);
                                         }
                                     }
                                 }
-                                if let Some((ih, iw, _)) = best {
-                                    d[[ih, iw]] += dy4[[b, ch, oh, ow]];
-                                }
+                                d[at] += ds[oh * gw.out + ow];
                             }
                         }
                     }

@@ -526,23 +526,38 @@ fn meet(a: isize, n: usize, b: isize, m: usize) -> Option<(isize, isize)> {
 fn extract(clean: &ArrayD<f32>, patch: Option<&Patch>, r0: [isize; 2], size: [usize; 2], fill: f32) -> ArrayD<f32> {
     let c = clean.shape()[1];
     let mut crop = ArrayD::from_elem(IxDyn(&[1, c, size[0], size[1]]), fill);
-    let mut copy = |src: &ArrayD<f32>, at: [isize; 2]| {
+    let copy = |crop: &mut ArrayD<f32>, src: &ArrayD<f32>, at: [isize; 2]| {
         let (h, w) = (src.shape()[2], src.shape()[3]);
         let (Some(ys), Some(xs)) = (meet(r0[0], size[0], at[0], h), meet(r0[1], size[1], at[1], w)) else { return };
+        let rows = (ys.1 - ys.0) as usize;
+        let cols = (xs.1 - xs.0) as usize;
+        let (dy, dx) = ((ys.0 - r0[0]) as usize, (xs.0 - r0[1]) as usize);
+        let (sy, sx) = ((ys.0 - at[0]) as usize, (xs.0 - at[1]) as usize);
+        // Row by row over plain slices (both are fresh, standard-layout arrays).
+        if let (Some(d), Some(s)) = (crop.as_slice_mut(), src.as_slice()) {
+            for ch in 0..c {
+                for r in 0..rows {
+                    let di = (ch * size[0] + dy + r) * size[1] + dx;
+                    let si = (ch * h + sy + r) * w + sx;
+                    d[di..di + cols].copy_from_slice(&s[si..si + cols]);
+                }
+            }
+            return;
+        }
         crop.slice_each_axis_mut(|ax| match ax.axis.index() {
-            2 => Slice::from((ys.0 - r0[0]) as usize..(ys.1 - r0[0]) as usize),
-            3 => Slice::from((xs.0 - r0[1]) as usize..(xs.1 - r0[1]) as usize),
+            2 => Slice::from(dy..dy + rows),
+            3 => Slice::from(dx..dx + cols),
             _ => Slice::from(..),
         })
         .assign(&src.slice_each_axis(|ax| match ax.axis.index() {
-            2 => Slice::from((ys.0 - at[0]) as usize..(ys.1 - at[0]) as usize),
-            3 => Slice::from((xs.0 - at[1]) as usize..(xs.1 - at[1]) as usize),
+            2 => Slice::from(sy..sy + rows),
+            3 => Slice::from(sx..sx + cols),
             _ => Slice::from(..),
         }));
     };
-    copy(clean, [0, 0]);
+    copy(&mut crop, clean, [0, 0]);
     if let Some(p) = patch {
-        copy(&p.data, [p.at[0] as isize, p.at[1] as isize]);
+        copy(&mut crop, &p.data, [p.at[0] as isize, p.at[1] as isize]);
     }
     crop
 }
