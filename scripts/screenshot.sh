@@ -7,8 +7,8 @@
 #
 #   scripts/screenshot.sh [seconds-to-wait]
 #
-# SPURION_INSPECTOR_STRIP=1 makes the inspector fill the baseline strip once the first reading is
-# in, so the picture shows it; SPURION_FRAME_LOG names a file for the UI pass times.
+# The inspector fills the baseline strip once the first reading is in (SPURION_INSPECTOR_STRIP=0 stops it)
+# so the picture shows it; SPURION_FRAME_LOG names a file for the UI pass times.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 for tool in Xvfb import; do

@@ -11,7 +11,8 @@ pub struct InspectorConfig {
     pub recent_file: Option<PathBuf>,
     /// Use rfd dialogs (off in headless tests: no desktop to show them on).
     pub dialogs: bool,
-    /// Fill the baseline strip once the first reading is in (for the README screenshot).
+    /// Fill the baseline strip once the first reading is in, so the first view already compares
+    /// baselines (on the desktop unless SPURION_INSPECTOR_STRIP=0; off in headless tests).
     pub strip_on_start: bool,
     /// Write UI pass times (median, p90, max) to this file every 100 frames.
     pub frame_log: Option<PathBuf>,
@@ -22,7 +23,7 @@ impl InspectorConfig {
         InspectorConfig {
             recent_file: recent::default_file(),
             dialogs: true,
-            strip_on_start: std::env::var_os("SPURION_INSPECTOR_STRIP").is_some_and(|v| v != "0"),
+            strip_on_start: std::env::var_os("SPURION_INSPECTOR_STRIP").is_none_or(|v| v != "0"),
             frame_log: std::env::var_os("SPURION_FRAME_LOG").map(PathBuf::from),
         }
     }
