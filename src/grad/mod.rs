@@ -17,6 +17,7 @@ mod lrn;
 mod pool;
 mod reduce;
 mod shape;
+mod split;
 mod unary;
 
 use std::collections::HashMap;
@@ -27,6 +28,8 @@ use ndarray::{Array1, ArrayD, ArrayViewD, Axis, IxDyn};
 use tract_onnx::prelude::*;
 
 use crate::graph::{Plan, optimized_plan};
+
+pub(crate) use split::AffineSplit;
 
 /// One op family's reverse step for one node.
 pub(crate) trait ReverseStep: Send + Sync {

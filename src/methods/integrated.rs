@@ -2,7 +2,7 @@
 //! integral, or the midpoint rule refined until the completeness gap is small enough.
 
 use anyhow::Result;
-use ndarray::ArrayD;
+use ndarray::{Array1, ArrayD};
 
 use super::{Job, Outcome, Rule, gap_of};
 
@@ -11,18 +11,9 @@ pub const MAX_REFINED_STEPS: usize = 2187;
 
 /// Sum over (alpha, weight) nodes of weight · ∂F/∂x at x′ + alpha (x − x′).
 fn path_sum(job: &Job, xb: &ArrayD<f32>, nodes: &[(f64, f64)]) -> Result<ArrayD<f32>> {
+    let s = job.scorer;
     let diff = job.x - xb;
-    let mut acc = ArrayD::<f32>::zeros(job.x.raw_dim());
-    // Chunks bound memory on large inputs and let cancel act between them.
-    for chunk in nodes.chunks(16) {
-        job.ctl.check()?;
-        let pts: Vec<ArrayD<f32>> = chunk.iter().map(|(a, _)| xb + &(&diff * *a as f32)).collect();
-        let gs = job.grads(&pts)?;
-        for (g, (_, w)) in gs.iter().zip(chunk) {
-            acc.scaled_add(*w as f32, &g.grad);
-        }
-    }
-    Ok(acc)
+    job.model.gradient_path_sum(xb, &diff, nodes, s.tap, &move |v: &Array1<f32>| s.seed(v), job.ctl)
 }
 
 pub(super) fn integrated_gradients(job: &Job, xb: &ArrayD<f32>, steps: usize, rule: Rule, adaptive: Option<f32>) -> Result<Outcome> {

@@ -9,6 +9,7 @@
 
 mod load;
 mod occlude;
+mod path;
 
 pub use load::input_dims;
 
@@ -109,6 +110,8 @@ pub struct Model {
     /// Optimized plan whose outputs are `[output]` or `[output, before_softmax]`.
     plan: Plan,
     reverse: [OnceLock<std::result::Result<Arc<ReversePass>, String>>; 2],
+    /// The affine head cut off for path sums (`None`: the graph has none worth cutting).
+    split: [OnceLock<std::result::Result<Option<Arc<grad::AffineSplit>>, String>>; 2],
 }
 
 impl Model {
@@ -177,6 +180,7 @@ impl Model {
             output_len,
             plan,
             reverse: [OnceLock::new(), OnceLock::new()],
+            split: [OnceLock::new(), OnceLock::new()],
         })
     }
 
