@@ -378,3 +378,45 @@ fn a_ledger_named_by_its_folder_gives_the_verdicts_and_leaves_out_the_excluded()
     let verdicts: Vec<(&str, &str)> = rows.iter().filter_map(|r| Some((r["path"].as_str()?, r["verdict"].as_str()?))).collect();
     assert_eq!(verdicts, [(marked.as_str(), "marked")]);
 }
+
+#[test]
+fn two_real_sweeps_of_one_folder_compare_paired_in_every_group() {
+    // compare-sweeps on two sweeps spurion wrote (the review tests use hand-made rows): the same
+    // folder under the shortcut and the control model, so every image pairs with itself. The
+    // figures are recounted here from the two sweep.jsonl files.
+    let f = fixture();
+    let dir = tempfile::tempdir().unwrap();
+    let control = dir.path().join("control");
+    let mut args = sweep_args(f.images.to_str().unwrap(), control.to_str().unwrap());
+    let ctl_model = model("control");
+    args[2] = &ctl_model;
+    ok(&spurion(&args));
+    let cmp = dir.path().join("cmp");
+    ok(&spurion(&["compare-sweeps", f.whole.to_str().unwrap(), control.to_str().unwrap(), "--out", cmp.to_str().unwrap()]));
+    let j: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(cmp.join("compare.json")).unwrap()).unwrap();
+    let rows = |d: &Path| -> Vec<serde_json::Value> {
+        std::fs::read_to_string(d.join("sweep.jsonl")).unwrap().lines().map(|l| serde_json::from_str(l).unwrap()).collect()
+    };
+    let (first, second) = (rows(&f.whole), rows(&control));
+    let groups = j["groups"].as_array().unwrap();
+    let names: Vec<&str> = groups.iter().map(|g| g["group"].as_str().unwrap()).collect();
+    assert_eq!(names, ["hillmoor", "north-quay", "saltmarsh"]);
+    for g in groups {
+        let name = g["group"].as_str().unwrap();
+        let suspects = |rs: &[serde_json::Value]| rs.iter().filter(|r| r["group"] == name && r["suspect"] == true).count() as u64;
+        let n = first.iter().filter(|r| r["group"] == name).count();
+        assert_eq!(g["paired"].as_u64(), Some(n as u64), "{name}: every image pairs with itself");
+        assert_eq!((g["suspect_first"].as_u64(), g["suspect_second"].as_u64()), (Some(suspects(&first)), Some(suspects(&second))), "{name}");
+        let want = (suspects(&second) as f64 - suspects(&first) as f64) / n as f64;
+        let got = g["suspect_rate"]["difference"]["estimate"].as_f64().unwrap();
+        assert!((got - want).abs() < 1e-12, "{name}: suspect-rate difference {got}, recounted {want}");
+        // Mark shares, paired image by image (a missing share counts as 0, as in groups.json).
+        let share = |rs: &[serde_json::Value], p: &serde_json::Value| {
+            rs.iter().find(|r| &r["path"] == p).and_then(|r| r["mark_share"].as_f64()).unwrap_or(0.0)
+        };
+        let paths: Vec<&serde_json::Value> = first.iter().filter(|r| r["group"] == name).map(|r| &r["path"]).collect();
+        let want_share = paths.iter().map(|p| share(&second, p) - share(&first, p)).sum::<f64>() / n as f64;
+        let got_share = g["mark_share"]["difference"]["estimate"].as_f64().unwrap();
+        assert!((got_share - want_share).abs() < 1e-9, "{name}: mark-share difference {got_share}, recounted {want_share}");
+    }
+}
