@@ -1,5 +1,5 @@
 //! Hand-worked figures on small arrays. The definitions:
-//! - mark share and lift: spurion's vocabulary (/work/shared/VOCABULARY.md): share of the
+//! - mark share and lift: spurion's vocabulary (../shared/VOCABULARY.md beside the repo): share of the
 //!   supporting attribution inside the region; share / (region area / image area).
 //! - relevance mass accuracy = R_within / R_total, and relevance rank accuracy =
 //!   |top-K pixels ∩ ground truth| / K with K = |ground truth|: Arras, Osman, Samek (2022),
