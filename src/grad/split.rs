@@ -17,14 +17,14 @@
 //! an einsum); a head of element-wise constants alone would save nothing.
 
 use anyhow::{Context, Result, anyhow};
-use ndarray::{Array1, ArrayD, IxDyn};
+use ndarray::{Array1, ArrayD};
 use tract_onnx::prelude::*;
 use tract_onnx::tract_core::ops::array::{Pad, PadMode, Slice};
 use tract_onnx::tract_core::ops::binary::TypedBinOp;
 use tract_onnx::tract_core::ops::cnn::Conv;
 use tract_onnx::tract_core::ops::einsum::EinSum;
 
-use super::{PassState, ReversePass};
+use super::ReversePass;
 use crate::graph::{Plan, optimized_plan, to_array};
 
 /// Whether `node`, fed by `slot` from the head and by constants elsewhere, is affine in that
@@ -124,18 +124,12 @@ impl AffineSplit {
         to_array(&out[0])
     }
 
-    /// Jᵀ·g: a cotangent at the cut taken back to the input.
-    pub fn head_transpose(&self, state: &mut PassState, x: &ArrayD<f32>, g: &ArrayD<f32>) -> Result<ArrayD<f32>> {
-        let flat: Array1<f32> = g
-            .as_standard_layout()
-            .into_owned()
-            .into_shape_with_order(IxDyn(&[g.len()]))?
-            .into_dimensionality()?;
-        let (_, dx) = self.head_reverse.run(state, x, &|_| Ok(flat.clone()))?;
+    /// Jᵀ·g: a cotangent at the cut taken back to the input (the head is affine, so any `x`
+    /// of the input's shape gives the same).
+    pub fn head_transpose(&self, x: &ArrayD<f32>, g: &ArrayD<f32>) -> Result<ArrayD<f32>> {
+        let flat: Array1<f32> = g.iter().copied().collect();
+        let mut state = self.head_reverse.spawn()?;
+        let (_, dx) = self.head_reverse.run(&mut state, x, &|_| Ok(flat.clone()))?;
         Ok(dx)
-    }
-
-    pub fn head_state(&self) -> Result<PassState> {
-        self.head_reverse.spawn()
     }
 }

@@ -16,6 +16,7 @@ pub use load::input_dims;
 /// The ONNX protobuf types a model is read from (re-exported for [`Model::load_proto`]).
 pub use tract_onnx::pb;
 
+use std::borrow::Cow;
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, OnceLock};
 
@@ -276,12 +277,19 @@ impl Model {
 
     fn reverse_pass(&self, tap: Tap) -> Result<Arc<ReversePass>> {
         let target = self.tap_outlet(tap)?;
-        let slot = &self.reverse[tap as usize];
+        self.built_once(&self.reverse[tap as usize], |input| ReversePass::build(&self.graph, input, target).map(Arc::new))
+    }
+
+    /// What `build` makes from the graph's input, made once and kept in `slot` (a failure too, so
+    /// it is not retried); a failure says gradients are not available for this model.
+    fn built_once<T: Clone>(
+        &self,
+        slot: &OnceLock<std::result::Result<T, String>>,
+        build: impl FnOnce(OutletId) -> Result<T>,
+    ) -> Result<T> {
         let built = slot.get_or_init(|| {
             let input = self.graph.input_outlets().map_err(|e| e.to_string())?[0];
-            ReversePass::build(&self.graph, input, target)
-                .map(Arc::new)
-                .map_err(|e| format!("{e:#}"))
+            build(input).map_err(|e| format!("{e:#}"))
         });
         built.clone().map_err(|msg| {
             anyhow!("gradients are not available for {}: {msg}", self.path.display())
@@ -456,13 +464,28 @@ impl Model {
             self.check_input(x)?;
         }
         let pass = self.reverse_pass(tap)?;
-        xs.par_iter()
+        self.gradients_of(&pass, xs.len(), &|i| Cow::Borrowed(&xs[i]), seed, ctl)
+    }
+
+    /// The gradients through `pass` at `point(0)`, …, `point(n − 1)`, over rayon workers with one
+    /// pass state each, order kept; `ctl` advances by one per point and a cancel stops between
+    /// points with [`Cancelled`].
+    fn gradients_of<'a>(
+        &self,
+        pass: &ReversePass,
+        n: usize,
+        point: &(dyn Fn(usize) -> Cow<'a, ArrayD<f32>> + Sync),
+        seed: &(dyn Fn(&Array1<f32>) -> Array1<f32> + Sync),
+        ctl: &Control,
+    ) -> Result<Vec<Gradient>> {
+        (0..n)
+            .into_par_iter()
             .map_init(
                 || pass.spawn(),
-                |state, x| -> Result<Gradient> {
+                |state, i| -> Result<Gradient> {
                     ctl.check().map_err(anyhow::Error::new)?;
                     let state = state.as_mut().map_err(|e| anyhow!("{e:#}"))?;
-                    let g = self.gradient_with(&pass, state, x, seed)?;
+                    let g = self.gradient_with(pass, state, &point(i), seed)?;
                     ctl.advance(1);
                     Ok(g)
                 },

@@ -5,18 +5,18 @@
 //! point runs the whole reverse pass. `SPURION_NO_AFFINE_SPLIT=1` forces the plain way, for
 //! comparison.
 
+use std::borrow::Cow;
 use std::sync::Arc;
 
-use anyhow::{Result, anyhow};
-use ndarray::{Array1, ArrayD};
-use rayon::prelude::*;
+use anyhow::Result;
+use ndarray::{Array1, ArrayD, Zip};
 
 use super::{Model, Tap};
 use crate::control::Control;
-use crate::grad::{AffineSplit, PassState, ReversePass};
+use crate::grad::AffineSplit;
 
-/// Most bytes of cut gradients held at once (one per point of a chunk, kept so that the sum runs
-/// in point order and a reading is the same from run to run).
+/// Most bytes of points and gradients held at once per chunk (kept so that the sum runs in point
+/// order and a reading is the same from run to run).
 const CHUNK_BYTES: usize = 128 << 20;
 /// Most points per chunk: a cancel acts between chunks.
 const CHUNK_POINTS: usize = 16;
@@ -27,12 +27,9 @@ impl Model {
             return Ok(None);
         }
         let target = self.tap_outlet(tap)?;
-        let slot = &self.split[tap as usize];
-        let built = slot.get_or_init(|| {
-            let input = self.graph.input_outlets().map_err(|e| e.to_string())?[0];
-            AffineSplit::build(&self.graph, input, target).map(|s| s.map(Arc::new)).map_err(|e| format!("{e:#}"))
-        });
-        built.clone().map_err(|msg| anyhow!("gradients are not available for {}: {msg}", self.path.display()))
+        self.built_once(&self.split[tap as usize], |input| {
+            AffineSplit::build(&self.graph, input, target).map(|s| s.map(Arc::new))
+        })
     }
 
     /// How many nodes of the graph's affine head a path sum skips per point (0: none, every
@@ -56,48 +53,34 @@ impl Model {
     ) -> Result<ArrayD<f32>> {
         self.check_input(x0)?;
         self.check_input(d)?;
-        let Some(split) = self.affine_split(tap)? else {
-            // The plain way: whole gradients at every point.
-            let mut acc = ArrayD::<f32>::zeros(x0.raw_dim());
-            for chunk in nodes.chunks(CHUNK_POINTS) {
-                ctl.check()?;
-                let pts: Vec<ArrayD<f32>> = chunk.iter().map(|(a, _)| x0 + &(d * *a as f32)).collect();
-                let gs = self.gradient_many(&pts, tap, seed, ctl)?;
-                for (g, (_, w)) in gs.iter().zip(chunk) {
-                    acc.scaled_add(*w as f32, &g.grad);
-                }
+        let split = self.affine_split(tap)?;
+        // The path where the pass starts: the input's, or the cut's, whose values at the points
+        // in between lie on the line joining its values at both ends.
+        let (pass, start, along) = match &split {
+            Some(s) => {
+                let z0 = s.head(x0)?;
+                let dz = s.head(&(x0 + d))? - &z0;
+                (&s.tail, Cow::Owned(z0), Cow::Owned(dz))
             }
-            return Ok(acc);
+            None => (&*self.reverse_pass(tap)?, Cow::Borrowed(x0), Cow::Borrowed(d)),
         };
-        // The head's values at both ends; the points in between are on the line joining them.
-        let z0 = split.head(x0)?;
-        let dz = split.head(&(x0 + d))? - &z0;
-        let cut_bytes = dz.len() * std::mem::size_of::<f32>();
-        let per_chunk = (CHUNK_BYTES / cut_bytes.max(1)).clamp(2, CHUNK_POINTS);
-        let tail: &ReversePass = &split.tail;
-        let mut acc = ArrayD::<f32>::zeros(dz.raw_dim());
+        let point_bytes = along.len() * std::mem::size_of::<f32>();
+        let per_chunk = (CHUNK_BYTES / point_bytes.max(1)).clamp(2, CHUNK_POINTS);
+        let mut acc = ArrayD::<f32>::zeros(along.raw_dim());
         for chunk in nodes.chunks(per_chunk) {
             ctl.check()?;
-            let gs: Vec<ArrayD<f32>> = chunk
-                .par_iter()
-                .map_init(
-                    || tail.spawn(),
-                    |state, (a, _)| -> Result<ArrayD<f32>> {
-                        ctl.check().map_err(anyhow::Error::new)?;
-                        let state: &mut PassState = state.as_mut().map_err(|e| anyhow!("{e:#}"))?;
-                        let a = *a as f32;
-                        let z = ndarray::Zip::from(&z0).and(&dz).map_collect(|z, d| z + a * d);
-                        let g = self.gradient_with(tail, state, &z, seed)?;
-                        ctl.advance(1);
-                        Ok(g.grad)
-                    },
-                )
-                .collect::<Result<_>>()?;
+            let point = |i: usize| {
+                let a = chunk[i].0 as f32;
+                Cow::Owned(Zip::from(&*start).and(&*along).map_collect(|z, d| z + a * d))
+            };
+            let gs = self.gradients_of(pass, chunk.len(), &point, seed, ctl)?;
             for (g, (_, w)) in gs.iter().zip(chunk) {
-                acc.scaled_add(*w as f32, g);
+                acc.scaled_add(*w as f32, &g.grad);
             }
         }
-        let mut state = split.head_state()?;
-        split.head_transpose(&mut state, x0, &acc)
+        match &split {
+            Some(s) => s.head_transpose(x0, &acc),
+            None => Ok(acc),
+        }
     }
 }
