@@ -4,7 +4,8 @@
 //! the same kernel. Rather than re-deriving im2col/col2im, each Conv node gets a small tract graph
 //! holding a `Deconv` with the conv's own `PoolSpec` (padding made explicit, plus the output
 //! adjustment that restores the input size), optimized once; tract then runs it with its packed
-//! matrix kernels.
+//! matrix kernels. A 3×3 stride-1 convolution on a large plane runs its adjoint by Winograd's
+//! F(2×2, 3×3) instead (`graph::winograd`).
 
 use anyhow::{Context, Result, anyhow, bail};
 use ndarray::ArrayD;
@@ -12,6 +13,7 @@ use tract_onnx::prelude::*;
 use tract_onnx::tract_core::ops::cnn::{Conv, Deconv, PaddingSpec, PoolSpec};
 
 use super::{Cx, NodeFacts, ReverseStep};
+use crate::graph::winograd::{self, Winograd};
 use crate::graph::{Plan, geometry, plan, run_sub};
 
 pub(super) fn build(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
@@ -19,12 +21,20 @@ pub(super) fn build(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
     if op.q_params.is_some() {
         return Some(Err(anyhow!("quantized convolution")));
     }
-    Some(Ok(Box::new(ConvStep { op: op.clone(), plan: None })))
+    Some(Ok(Box::new(ConvStep { op: op.clone(), plan: None, winograd: None })))
 }
 
 struct ConvStep {
     op: Conv,
     plan: Option<Plan>,
+    /// When the convolution has a Winograd form ([`winograd::for_conv`]): its adjoint, run
+    /// instead of `plan`.
+    winograd: Option<Winograd>,
+}
+
+/// Number of 2×2 tiles on the plane of an NCHW shape.
+fn tiles(shape: &[usize]) -> usize {
+    shape[2..].iter().map(|d| d.div_ceil(2)).product()
 }
 
 /// The `Deconv` whose output is the conv's input gradient, for an input of spatial size
@@ -88,6 +98,11 @@ impl ReverseStep for ConvStep {
         let kernel = f.konst.get(1).cloned().flatten().context(
             "convolution with a kernel that is not a constant after simplification",
         )?;
+        let forward = winograd::for_conv(&self.op, &kernel, None, &f.in_shapes[0], &f.out_shape)?;
+        self.winograd = forward.map(|w| w.adjoint(tiles(&f.in_shapes[0]))).transpose()?;
+        if self.winograd.is_some() {
+            return Ok(());
+        }
         let deconv = transposed(&self.op, &f.in_shapes[0], &f.out_shape)?;
         let kernel = deconv_kernel(&kernel, &self.op)?;
         let mut m = TypedModel::default();
@@ -105,6 +120,16 @@ impl ReverseStep for ConvStep {
     }
 
     fn back(&self, _cx: &Cx, dy: ArrayD<f32>) -> Result<Vec<Option<ArrayD<f32>>>> {
+        if let Some(adjoint) = &self.winograd {
+            let dy = dy.as_standard_layout();
+            let flat = dy.as_slice().context("conv reverse step: dy not contiguous")?;
+            let &[n, _, h, w] = dy.shape() else { bail!("conv reverse step: dy of rank {}", dy.ndim()) };
+            let (xh, xw) = adjoint.output_hw(h, w)?;
+            let dx = adjoint.run(flat, n, h, w)?;
+            let shape = ndarray::IxDyn(&[n, adjoint.out_channels(), xh, xw]);
+            let dx = ArrayD::from_shape_vec(shape, dx).map_err(|e| anyhow!("{e}"))?;
+            return Ok(vec![Some(dx), None, None]);
+        }
         let plan = self.plan.as_ref().context("conv reverse step not prepared")?;
         Ok(vec![Some(run_sub(plan, vec![Tensor::from(dy)])?), None, None])
     }

@@ -27,7 +27,7 @@ use anyhow::{Context, Result, anyhow, bail};
 use ndarray::{Array1, ArrayD, ArrayViewD, Axis, IxDyn};
 use tract_onnx::prelude::*;
 
-use crate::graph::{Plan, optimized_plan};
+use crate::graph::{Plan, optimized_plan, winograd};
 
 pub(crate) use split::AffineSplit;
 
@@ -281,7 +281,11 @@ impl ReversePass {
             };
             entries.push(Entry { facts, inputs, output: OutletId::new(n, 0), values, out_value, step });
         }
-        let tape = optimized_plan(g, &taped).context("preparing the forward pass that keeps values")?;
+        // The taped forward runs large 3×3 convolutions by Winograd where that changes nothing
+        // but rounding (see `winograd::substitute`).
+        let mut fast = g.clone();
+        winograd::substitute(&mut fast)?;
+        let tape = optimized_plan(&fast, &taped).context("preparing the forward pass that keeps values")?;
         Ok(ReversePass {
             input,
             input_shape: concrete(g, input)?,

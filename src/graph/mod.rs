@@ -5,6 +5,7 @@
 //! It sits below both so that neither imports the other for these.
 
 pub mod geometry;
+pub mod winograd;
 
 use std::sync::Arc;
 

@@ -36,6 +36,9 @@ fn family_networks_match_pytorch_autograd() {
     let nets = manifest["nets"].as_object().expect("nets");
     assert_eq!(nets.len(), 8, "the fixture set has eight networks");
     let mut failures = vec![];
+    // Whether some network runs convolutions by Winograd both in the taped forward and in the
+    // reverse pass, so that this comparison covers them.
+    let (mut exercised, mut winograd) = (false, vec![]);
     for (name, meta) in nets {
         let target = meta["target"].as_u64().unwrap() as usize;
         let m = Model::load(&dir().join(format!("{name}.onnx")), &LoadOptions::default())
@@ -49,6 +52,9 @@ fn family_networks_match_pytorch_autograd() {
             .gradient(&x, Tap::Output, &move |_: &Array1<f32>| Array1::from_shape_fn(n, |i| (i == target) as u8 as f32))
             .unwrap_or_else(|e| panic!("{name}: gradient: {e:#}"));
         assert_eq!(g.grad.shape(), want_g.shape(), "{name}: gradient shape");
+        let (wf, wr) = m.winograd_convolutions().unwrap();
+        winograd.push(format!("{name} {wf}/{wr}"));
+        exercised |= wf > 0 && wr > 0;
         let ey = rel(&y.iter().map(|v| *v as f64).collect::<Vec<_>>(), want_y.as_slice().unwrap());
         let eg = rel(&g.grad.iter().map(|v| *v as f64).collect::<Vec<_>>(), want_g.as_slice().unwrap());
         eprintln!(
@@ -64,4 +70,6 @@ fn family_networks_match_pytorch_autograd() {
         }
     }
     assert!(failures.is_empty(), "beyond 1e-4 relative of PyTorch autograd:\n{}", failures.join("\n"));
+    eprintln!("Winograd convolutions (taped forward / reverse): {}", winograd.join(", "));
+    assert!(exercised, "no network runs a Winograd convolution: {}", winograd.join(", "));
 }
