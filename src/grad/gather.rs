@@ -54,7 +54,7 @@ impl ReverseStep for GatherStep {
         let idx = indices(cx, &[data[ax]])?;
         let pre: usize = data[..ax].iter().product();
         let post: usize = data[ax + 1..].iter().product();
-        let dy = dy.as_standard_layout().into_owned();
+        let dy = super::standard(dy);
         let dy3 = dy.into_shape_with_order((pre, idx.len(), post))?;
         let mut dx = ndarray::Array3::<f32>::zeros((pre, data[ax], post));
         for (k, &i) in idx.iter().enumerate() {
@@ -89,7 +89,7 @@ impl ReverseStep for GatherNdStep {
         let rest: usize = data[bd + n..].iter().product();
         let per_batch: usize = ix_shape[bd..ix_shape.len() - 1].iter().product();
         let idx = idx.as_standard_layout().into_owned().into_shape_with_order((batch, per_batch, n))?;
-        let dy = dy.as_standard_layout().into_owned().into_shape_with_order((batch, per_batch, rest))?;
+        let dy = super::standard(dy).into_shape_with_order((batch, per_batch, rest))?;
         let mut dx = ndarray::Array3::<f32>::zeros((batch, picked, rest));
         for b in 0..batch {
             for r in 0..per_batch {

@@ -31,6 +31,11 @@ use crate::graph::{Plan, optimized_plan, winograd};
 
 pub(crate) use split::AffineSplit;
 
+/// `a` in standard (row-major) order, copied only when it is not already.
+pub(crate) fn standard(a: ArrayD<f32>) -> ArrayD<f32> {
+    if a.is_standard_layout() { a } else { a.as_standard_layout().into_owned() }
+}
+
 /// One op family's reverse step for one node.
 pub(crate) trait ReverseStep: Send + Sync {
     /// Reads the values of the node's non-constant inputs.

@@ -81,7 +81,7 @@ impl ReverseStep for AxisStep {
                 }
                 dy.permuted_axes(IxDyn(&inv)).as_standard_layout().into_owned()
             }
-            _ => dy.as_standard_layout().into_owned().into_shape_with_order(IxDyn(in_shape))?,
+            _ => super::standard(dy).into_shape_with_order(IxDyn(in_shape))?,
         };
         Ok(vec![Some(dx)])
     }
@@ -197,7 +197,7 @@ impl ReverseStep for ResizeStep {
             None => out_shape.iter().zip(in_shape).map(|(o, i)| *o as f32 / *i as f32).collect(),
         };
         let mut shape: Vec<usize> = out_shape.clone();
-        let mut g = dy.as_standard_layout().into_owned();
+        let mut g = super::standard(dy);
         for axis in (0..in_shape.len()).rev() {
             let (len_in, len_out) = (in_shape[axis], out_shape[axis]);
             if len_in == len_out && scales[axis] == 1.0 {
@@ -247,7 +247,7 @@ impl ReverseStep for UpsampleStep {
             split.push(n);
             split.push(self.0[a]);
         }
-        let mut g = dy.as_standard_layout().into_owned().into_shape_with_order(IxDyn(&split))?;
+        let mut g = super::standard(dy).into_shape_with_order(IxDyn(&split))?;
         for a in (0..in_shape.len()).rev() {
             g = g.sum_axis(Axis(2 * a + 1));
         }

@@ -508,6 +508,37 @@ mod tests {
     }
 
     #[test]
+    fn every_compiled_variant_gives_the_same_numbers() {
+        // The transforms only add and subtract element by element, so vector width cannot
+        // change a result: the AVX-512, AVX2 and baseline builds must agree to the bit.
+        let (n, c, o, h, w) = (2, 5, 6, 15, 17);
+        let x = noise(n * c * h * w, 11);
+        let k = noise(o * c * 9, 12);
+        let wg = Winograd::new(&k, o, c, None, [1, 1, 1, 1], 16).unwrap();
+        let (ho, wo) = wg.output_hw(h, w).unwrap();
+        let mut base = vec![0f32; n * o * ho * wo];
+        wg.run_body(&x, n, h, w, &mut base).unwrap();
+        let mut variants = 0;
+        #[cfg(target_arch = "x86_64")]
+        {
+            if std::arch::is_x86_feature_detected!("avx2") {
+                let mut y = vec![0f32; base.len()];
+                unsafe { wg.run_avx2(&x, n, h, w, &mut y) }.unwrap();
+                assert_eq!(y, base, "AVX2 build");
+                variants += 1;
+            }
+            if std::arch::is_x86_feature_detected!("avx512f") {
+                let mut y = vec![0f32; base.len()];
+                unsafe { wg.run_avx512(&x, n, h, w, &mut y) }.unwrap();
+                assert_eq!(y, base, "AVX-512 build");
+                variants += 1;
+            }
+        }
+        eprintln!("{variants} vector builds checked against the baseline one");
+        assert_eq!(wg.run(&x, n, h, w).unwrap(), base, "the dispatched run");
+    }
+
+    #[test]
     fn the_adjoint_is_the_transpose() {
         // <conv(x), y> = <x, adjoint(y)> for random x and y.
         let (n, c, o, h, w, pad) = (1, 6, 4, 9, 7, [1, 1, 1, 1]);

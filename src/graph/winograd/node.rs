@@ -82,30 +82,35 @@ pub fn for_conv(
 }
 
 /// Whether `node` picks among its input's values by comparing them: max-pools, max/min
-/// reductions and arg-max, and a max or min of two computed values (not ReLU's max with a
-/// constant).
+/// reductions and arg-max, top-k, and a max, min or comparison of two computed values (its
+/// boolean output may steer a select). Not a comparison with a constant, as ReLU's max with
+/// 0: a value computed as exactly the constant is as rare with one convolution as the other.
 fn selects(g: &TypedModel, node: &TypedNode) -> bool {
     use tract_onnx::tract_core::ops::binary::TypedBinOp;
     use tract_onnx::tract_core::ops::cnn::MaxPool;
     use tract_onnx::tract_core::ops::nn::{Reduce, Reducer};
+    let computed = || {
+        node.inputs
+            .iter()
+            .filter(|i| g.outlet_fact(**i).is_ok_and(|f| f.konst.is_none() && f.datum_type.is_float()))
+            .count()
+    };
     if node.op_is::<MaxPool>() {
         return true;
     }
     if let Some(r) = node.op_as::<Reduce>() {
-        return !matches!(
-            r.reducer,
-            Reducer::Sum | Reducer::Prod | Reducer::MeanOfSquares
-        );
+        return !matches!(r.reducer, Reducer::Sum | Reducer::Prod | Reducer::MeanOfSquares);
     }
     if let Some(op) = node.op_as::<TypedBinOp>() {
-        let computed = node
-            .inputs
-            .iter()
-            .filter(|i| g.outlet_fact(**i).is_ok_and(|f| f.konst.is_none()));
-        return matches!(op.0.name(), "Max" | "Min") && computed.count() > 1;
+        if matches!(op.0.name(), "Max" | "Min") && computed() > 1 {
+            return true;
+        }
     }
-    let name = node.op.name();
-    name.contains("TopK") || name.contains("ArgM")
+    if node.outputs.iter().any(|o| o.fact.datum_type == bool::datum_type()) && computed() > 1 {
+        return true;
+    }
+    let name = node.op.name().to_lowercase();
+    name.contains("topk") || name.contains("argm")
 }
 
 /// Puts [`WinogradConv`] in place of the convolutions of `g` that [`for_conv`] takes, except
@@ -155,6 +160,9 @@ pub fn substitute(g: &mut TypedModel) -> Result<usize> {
         ) else {
             continue;
         };
+        if fact(0)?.datum_type != f32::datum_type() {
+            continue;
+        }
         if let Some(w) = for_conv(op, &kernel, Some(&bias), &x, &y)? {
             g.node_mut(id).op = Box::new(WinogradConv::new(w));
             count += 1;
