@@ -34,7 +34,7 @@ fn main() -> anyhow::Result<()> {
         .ok()
         .and_then(|s| s.parse().ok())
         .unwrap_or(40);
-    println!("plane      tract ms   Winograd ms  ratio   adjoint ms  ratio   largest difference");
+    println!("plane      tract ms   Winograd ms  ratio   adjoint ms  ratio   largest difference  kernel");
     for (c, hw) in [(64usize, 56usize), (128, 28), (256, 14), (512, 7)] {
         let k: Vec<f32> = (0..c * c * 9)
             .map(|i| ((i * 7919) % 1000) as f32 / 1000.0 - 0.5)
@@ -80,13 +80,14 @@ fn main() -> anyhow::Result<()> {
         let t_wino = time(repeats, || drop(wino.run(&x, 1, hw, hw).unwrap()));
         let t_adj = time(repeats, || drop(adjoint.run(&x, 1, hw, hw).unwrap()));
         println!(
-            "{c:3} @ {hw:2}²  {:9.3}  {:11.3}  {:5.2}×  {:10.3}  {:5.2}×   {:.1e} of {scale:.2}",
+            "{c:3} @ {hw:2}²  {:9.3}  {:11.3}  {:5.2}×  {:10.3}  {:5.2}×   {:.1e} of {scale:.2}   {}",
             t_tract * 1e3,
             t_wino * 1e3,
             t_wino / t_tract,
             t_adj * 1e3,
             t_adj / t_tract,
-            worst
+            worst,
+            wino.kernel_name()
         );
     }
     Ok(())
