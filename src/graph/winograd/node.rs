@@ -17,8 +17,8 @@ use crate::graph::geometry;
 /// The Winograd form of a convolution, when it has one worth taking: ungrouped 3×3 kernels
 /// with stride and dilation 1 in NCHW, padding at most 2, and an output plane of at least
 /// 14×14. Below that a plane has too few 2×2 tiles for 16 small matrix products to beat one
-/// large one: `cargo bench --bench winograd` (one thread, ResNet-18's stages) gave 0.56, 0.69
-/// and 0.72 of tract's time on 56², 28² and 14² planes, and 0.99 on 7².
+/// large one: `cargo bench --bench winograd` (one thread, ResNet-18's stages) gave about
+/// 0.5–0.6, 0.6–0.7 and 0.65–0.75 of tract's time on 56², 28² and 14² planes, and 1.0–1.3 on 7².
 /// `SPURION_NO_WINOGRAD=1` turns it off everywhere (for comparison).
 pub fn for_conv(
     op: &Conv,
