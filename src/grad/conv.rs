@@ -32,11 +32,6 @@ struct ConvStep {
     winograd: Option<Winograd>,
 }
 
-/// Number of 2×2 tiles on the plane of an NCHW shape.
-fn tiles(shape: &[usize]) -> usize {
-    shape[2..].iter().map(|d| d.div_ceil(2)).product()
-}
-
 /// The `Deconv` whose output is the conv's input gradient, for an input of spatial size
 /// `x_hw` and output `y_hw`.
 fn transposed(op: &Conv, x_shape: &[usize], y_shape: &[usize]) -> Result<Deconv> {
@@ -99,7 +94,7 @@ impl ReverseStep for ConvStep {
             "convolution with a kernel that is not a constant after simplification",
         )?;
         let forward = winograd::for_conv(&self.op, &kernel, None, &f.in_shapes[0], &f.out_shape)?;
-        self.winograd = forward.map(|w| w.adjoint(tiles(&f.in_shapes[0]))).transpose()?;
+        self.winograd = forward.map(|w| w.adjoint(winograd::tiles(&f.in_shapes[0]))).transpose()?;
         if self.winograd.is_some() {
             return Ok(());
         }

@@ -27,7 +27,7 @@ use anyhow::{Context, Result, anyhow, bail};
 use ndarray::{Array1, ArrayD, ArrayViewD, Axis, IxDyn};
 use tract_onnx::prelude::*;
 
-use crate::graph::{Plan, optimized_plan, winograd};
+use crate::graph::{Plan, plan, winograd};
 
 pub(crate) use split::AffineSplit;
 
@@ -290,7 +290,8 @@ impl ReversePass {
         // but rounding (see `winograd::substitute`).
         let mut fast = g.clone();
         winograd::substitute(&mut fast)?;
-        let tape = optimized_plan(&fast, &taped).context("preparing the forward pass that keeps values")?;
+        fast.select_output_outlets(&taped).map_err(|e| anyhow!("{e}"))?;
+        let tape = plan(fast).context("preparing the forward pass that keeps values")?;
         Ok(ReversePass {
             input,
             input_shape: concrete(g, input)?,

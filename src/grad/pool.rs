@@ -91,7 +91,7 @@ fn from_nchw(a: Array4<f32>, fmt: DataFormat, rank: usize, shape: &[usize]) -> R
         a = a.index_axis_move(Axis(0), 0);
     }
     // Already in order for NCHW: no copy.
-    let a = if a.is_standard_layout() { a } else { a.as_standard_layout().into_owned() };
+    let a = super::standard(a);
     if a.shape() != shape {
         bail!("pool reverse: layout round trip gave {:?}, expected {:?}", a.shape(), shape);
     }

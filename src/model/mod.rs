@@ -251,23 +251,7 @@ impl Model {
     /// How many convolutions a gradient runs by Winograd's F(2×2, 3×3) (`graph::winograd`): in
     /// its taped forward, and in its reverse pass.
     pub fn winograd_convolutions(&self) -> Result<(usize, usize)> {
-        use tract_onnx::tract_core::ops::cnn::Conv;
-        let g = &*self.graph;
-        let forward = crate::graph::winograd::substitute(&mut g.clone())?;
-        let mut reverse = 0;
-        for node in g.nodes() {
-            let Some(op) = node.op_as::<Conv>() else { continue };
-            let fact = |o: OutletId| g.outlet_fact(o).map_err(|e| anyhow!("{e}"));
-            let (Some(kernel), Some(x), Some(y)) = (
-                fact(node.inputs[1])?.konst.clone(),
-                fact(node.inputs[0])?.shape.as_concrete().map(|s| s.to_vec()),
-                fact(OutletId::new(node.id, 0))?.shape.as_concrete().map(|s| s.to_vec()),
-            ) else {
-                continue;
-            };
-            reverse += crate::graph::winograd::for_conv(op, &kernel, None, &x, &y)?.is_some() as usize;
-        }
-        Ok((forward, reverse))
+        crate::graph::winograd::count(&self.graph)
     }
 
     fn unsupported(&self, tap: Tap) -> Vec<UnsupportedNode> {

@@ -13,7 +13,7 @@
 mod node;
 
 use anyhow::{Result, anyhow, bail, ensure};
-pub use node::{WinogradConv, for_conv, substitute};
+pub use node::{WinogradConv, count, for_conv, substitute, tiles};
 use tract_onnx::prelude::*;
 use tract_onnx::tract_core::tract_linalg::mmm::{
     AsInputValue, FusedSpec, MMMInputValue, MatMatMul, MmmDispatch, Query, retain_best,

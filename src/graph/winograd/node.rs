@@ -77,8 +77,7 @@ pub fn for_conv(
         axes[0].pad_after,
         axes[1].pad_after,
     ];
-    let tiles = out_shape[2].div_ceil(2) * out_shape[3].div_ceil(2);
-    Ok(Some(Winograd::new(&flat, cout, cin, bias, pad, tiles)?))
+    Ok(Some(Winograd::new(&flat, cout, cin, bias, pad, tiles(out_shape))?))
 }
 
 /// Whether `node` picks among its input's values by comparing them: max-pools, max/min
@@ -101,16 +100,68 @@ fn selects(g: &TypedModel, node: &TypedNode) -> bool {
     if let Some(r) = node.op_as::<Reduce>() {
         return !matches!(r.reducer, Reducer::Sum | Reducer::Prod | Reducer::MeanOfSquares);
     }
-    if let Some(op) = node.op_as::<TypedBinOp>() {
-        if matches!(op.0.name(), "Max" | "Min") && computed() > 1 {
-            return true;
-        }
+    if let Some(op) = node.op_as::<TypedBinOp>()
+        && matches!(op.0.name(), "Max" | "Min")
+        && computed() > 1
+    {
+        return true;
     }
     if node.outputs.iter().any(|o| o.fact.datum_type == bool::datum_type()) && computed() > 1 {
         return true;
     }
     let name = node.op.name().to_lowercase();
     name.contains("topk") || name.contains("argm")
+}
+
+/// What [`for_conv`] reads of a float32 convolution node: its constant kernel and bias (the
+/// bias `None` when it is not a constant), and its concrete input and output shapes.
+struct ConvInputs<'g> {
+    op: &'g Conv,
+    kernel: Arc<Tensor>,
+    bias: Option<Arc<Tensor>>,
+    x: Vec<usize>,
+    y: Vec<usize>,
+}
+
+/// Node `id` as [`ConvInputs`], or `None` when it is not a float32 convolution with a constant
+/// kernel and concrete shapes.
+fn conv_inputs(g: &TypedModel, id: usize) -> Result<Option<ConvInputs<'_>>> {
+    let node = g.node(id);
+    let Some(op) = node.op_as::<Conv>() else { return Ok(None) };
+    if node.inputs.len() != 3 {
+        return Ok(None);
+    }
+    let fact = |o: OutletId| g.outlet_fact(o).map_err(|e| anyhow!("{e}"));
+    let input = fact(node.inputs[0])?;
+    let (Some(kernel), Some(x), Some(y)) = (
+        fact(node.inputs[1])?.konst.clone(),
+        input.shape.as_concrete().map(|s| s.to_vec()),
+        fact(OutletId::new(id, 0))?.shape.as_concrete().map(|s| s.to_vec()),
+    ) else {
+        return Ok(None);
+    };
+    if input.datum_type != f32::datum_type() {
+        return Ok(None);
+    }
+    let bias = fact(node.inputs[2])?.konst.clone();
+    Ok(Some(ConvInputs { op, kernel, bias, x, y }))
+}
+
+/// How many convolutions of `g` a gradient runs by Winograd: in its taped forward
+/// ([`substitute`]), and in its reverse pass (every one [`for_conv`] takes).
+pub fn count(g: &TypedModel) -> Result<(usize, usize)> {
+    let forward = substitute(&mut g.clone())?;
+    let mut reverse = 0;
+    for id in 0..g.nodes().len() {
+        let Some(c) = conv_inputs(g, id)? else { continue };
+        reverse += for_conv(c.op, &c.kernel, None, &c.x, &c.y)?.is_some() as usize;
+    }
+    Ok((forward, reverse))
+}
+
+/// Number of 2×2 tiles on the plane of an NCHW shape.
+pub fn tiles(shape: &[usize]) -> usize {
+    shape[2..].iter().map(|d| d.div_ceil(2)).product()
 }
 
 /// Puts [`WinogradConv`] in place of the convolutions of `g` that [`for_conv`] takes, except
@@ -139,31 +190,9 @@ pub fn substitute(g: &mut TypedModel) -> Result<usize> {
     }
     let mut count = 0;
     for id in (0..g.nodes().len()).filter(|id| !feeds_selection[*id]) {
-        let node = g.node(id);
-        let Some(op) = node.op_as::<Conv>() else {
-            continue;
-        };
-        if node.inputs.len() != 3 {
-            continue;
-        }
-        let fact = |slot: usize| g.outlet_fact(node.inputs[slot]).map_err(|e| anyhow!("{e}"));
-        let (Some(kernel), Some(bias)) = (fact(1)?.konst.clone(), fact(2)?.konst.clone()) else {
-            continue;
-        };
-        let (Some(x), Some(y)) = (
-            fact(0)?.shape.as_concrete().map(|s| s.to_vec()),
-            g.outlet_fact(OutletId::new(id, 0))
-                .map_err(|e| anyhow!("{e}"))?
-                .shape
-                .as_concrete()
-                .map(|s| s.to_vec()),
-        ) else {
-            continue;
-        };
-        if fact(0)?.datum_type != f32::datum_type() {
-            continue;
-        }
-        if let Some(w) = for_conv(op, &kernel, Some(&bias), &x, &y)? {
+        let Some(c) = conv_inputs(g, id)? else { continue };
+        let Some(bias) = &c.bias else { continue };
+        if let Some(w) = for_conv(c.op, &c.kernel, Some(bias), &c.x, &c.y)? {
             g.node_mut(id).op = Box::new(WinogradConv::new(w));
             count += 1;
         }
