@@ -84,33 +84,77 @@ fn parse_sign(s: &str) -> Result<Sign> {
     Sign::parse(s).with_context(|| format!("unknown sign \"{s}\"; use both, supporting, opposing or magnitude"))
 }
 
+/// What one `explain` computes before anything is written: shared by the command and the
+/// Python package, so both give the same reading of the same image.
+pub struct Explained {
+    pub input: Input,
+    pub reading: methods::Reading,
+    pub assessment: Option<crate::regions::Assessment>,
+}
+
+/// The reading the command makes for these flags: model, input, drawn regions from the ledger,
+/// the method and the assessment of its regions.
+pub fn compute(a: &ExplainArgs, ctl: &Control) -> Result<Explained> {
+    let req = a.reading.request()?;
+    let model = a.model.load_for(&a.input)?;
+    let (input, card) = load_input(&model, &a.model, &a.input)?;
+    let drawn = drawn_regions(a, &input)?;
+    compute_on(&model, card.as_ref(), input, drawn, &req, ctl)
+}
+
+/// The reading of an input already fed, with the regions drawn on it.
+pub fn compute_on(
+    model: &crate::model::Model,
+    card: Option<&crate::feed::FeedCard>,
+    input: Input,
+    drawn: Vec<Region>,
+    req: &methods::Request,
+    ctl: &Control,
+) -> Result<Explained> {
+    let reading = methods::explain(model, card, &input, req, ctl)?;
+    let assessment = methods::assess_input(model, card, &input, &reading, drawn, &Default::default(), &Default::default())?;
+    Ok(Explained { input, reading, assessment })
+}
+
+/// The regions `--ledger` draws on the image being read (none without it).
+pub fn drawn_regions(a: &ExplainArgs, input: &Input) -> Result<Vec<Region>> {
+    match &a.ledger {
+        Some(l) => drawn_from_ledger(l, &a.input, input),
+        None => Ok(Vec::new()),
+    }
+}
+
+/// reading.json's content.
+pub fn reading_json(e: &Explained, with_patient_data: bool) -> Result<serde_json::Value> {
+    ReadingFile::new(&e.reading, e.assessment.clone()).with_input(&e.input, with_patient_data).to_json()
+}
+
+/// Writes reading.json, map.npy, map.png and overlay.png into `out`.
+pub fn write_files(a: &ExplainArgs, e: &Explained, out: &Path) -> Result<()> {
+    let sign = parse_sign(&a.sign)?;
+    std::fs::create_dir_all(out).with_context(|| format!("cannot create output folder {}", out.display()))?;
+    let map2 = e.reading.map2d();
+    write_json(&out.join("reading.json"), &reading_json(e, a.with_patient_data)?)?;
+    crate::feed::write_tensor(&out.join("map.npy"), &e.reading.map)?;
+    crate::render::write_map_png(&out.join("map.png"), &map2, sign)?;
+    let backdrop = backdrop(&e.input, &map2);
+    crate::render::write_overlay_png(&out.join("overlay.png"), &backdrop, &map2, sign, a.opacity)
+}
+
 pub fn run(a: &ExplainArgs) -> Result<()> {
     let req = a.reading.request()?;
-    let sign = parse_sign(&a.sign)?;
+    parse_sign(&a.sign)?;
     if !(0.0..=1.0).contains(&a.opacity) {
         bail!("--opacity must be between 0 and 1");
     }
-    let model = a.model.load_for(&a.input)?;
-    let (input, card) = load_input(&model, &a.model, &a.input)?;
-    let drawn = match &a.ledger {
-        Some(l) => drawn_from_ledger(l, &a.input, &input)?,
-        None => Vec::new(),
-    };
     let bar = if a.quiet { ProgressBar::hidden() } else { progress_bar(req.method.name()) };
     let ctl = control_for(&bar);
-    let reading = methods::explain(&model, card.as_ref(), &input, &req, &ctl)?;
+    let e = compute(a, &ctl)?;
     bar.finish_and_clear();
-
-    let out = a.out.clone().unwrap_or_else(|| default_out(&input, &reading.method));
-    std::fs::create_dir_all(&out).with_context(|| format!("cannot create output folder {}", out.display()))?;
-    let map2 = reading.map2d();
-    let assessment = methods::assess_input(&model, card.as_ref(), &input, &reading, drawn, &Default::default(), &Default::default())?;
-    let suspect = assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
-    write_json(&out.join("reading.json"), &ReadingFile::new(&reading, assessment).with_input(&input, a.with_patient_data).to_json()?)?;
-    crate::feed::write_tensor(&out.join("map.npy"), &reading.map)?;
-    crate::render::write_map_png(&out.join("map.png"), &map2, sign)?;
-    let backdrop = backdrop(&input, &map2);
-    crate::render::write_overlay_png(&out.join("overlay.png"), &backdrop, &map2, sign, a.opacity)?;
+    let out = a.out.clone().unwrap_or_else(|| default_out(&e.input, &e.reading.method));
+    write_files(a, &e, &out)?;
+    let reading = &e.reading;
+    let suspect = e.assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
 
     println!("{} on {} ({}), target {} \"{}\"", reading.method, reading.input, reading.model_file, reading.target.index, reading.target.label);
     if let Some(b) = &reading.baseline {

@@ -129,7 +129,7 @@ pub struct DrawArgs {
 
 pub fn run(a: &LedgerArgs) -> Result<()> {
     match &a.command {
-        LedgerCommand::Set(a) => set(a),
+        LedgerCommand::Set(a) => set_verdict(a).map(|said| println!("{said}")),
         LedgerCommand::Show(a) => show(a),
         LedgerCommand::Export(a) => export(a),
         LedgerCommand::Import(a) => import(a),
@@ -196,7 +196,8 @@ fn commit<T>(path: &Path, root: Option<&Path>, what: &str, f: impl FnOnce(&mut L
         .map_err(|e| anyhow::anyhow!("{e} The {what} was NOT saved; the ledger on disk is as it was."))
 }
 
-fn set(a: &SetArgs) -> Result<()> {
+/// `ledger set`: returns the line to tell once the change is on disk.
+pub fn set_verdict(a: &SetArgs) -> Result<String> {
     let (path, ledger) = for_change(&a.ledger)?;
     let key = existing_image(&ledger, &a.image)?;
     let at = Stamp::now();
@@ -213,8 +214,7 @@ fn set(a: &SetArgs) -> Result<()> {
     let what = if a.verdict.is_some() { "verdict" } else { "note" };
     let (saved, ()) = commit(&path, a.ledger.root.as_deref(), what, |l| changes.iter().for_each(|c| l.apply(c)))?;
     let verdict = saved.verdict(&key).map_or("no verdict", Verdict::name);
-    println!("{key}: {verdict} (saved in {})", path.display());
-    Ok(())
+    Ok(format!("{key}: {verdict} (saved in {})", path.display()))
 }
 
 fn show(a: &ShowArgs) -> Result<()> {

@@ -2,13 +2,13 @@
 //! and what to do; exit codes: 0 done, 1 bad input or failed computation, 2 usage error, 130
 //! cancelled with Ctrl-C.
 
-mod explain;
+pub mod explain;
 mod feed;
-mod ledger;
+pub mod ledger;
 mod reading_args;
 mod regions;
-mod review;
-mod sweep;
+pub mod review;
+pub mod sweep;
 
 pub use reading_args::ReadingArgs;
 
@@ -127,7 +127,8 @@ impl ModelArgs {
         })
     }
 
-    fn card_path(&self) -> Option<PathBuf> {
+    /// The feed card file in use: the one named, or the sidecar where it exists.
+    pub fn card_path(&self) -> Option<PathBuf> {
         self.feed.clone().or_else(|| {
             let p = crate::feed::FeedCard::sidecar_path(&self.model);
             p.exists().then_some(p)
@@ -300,7 +301,7 @@ fn info(a: &InfoArgs) -> Result<()> {
 }
 
 /// The model-input tensor for an image or a tensor file, with the card used (if any).
-pub(crate) fn load_input(
+pub fn load_input(
     model: &Model,
     margs: &ModelArgs,
     input: &InputArgs,

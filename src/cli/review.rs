@@ -150,6 +150,27 @@ impl ReviewArgs {
 }
 
 pub fn run(a: &ReviewArgs) -> Result<()> {
+    let bar = if a.quiet { ProgressBar::hidden() } else { progress_bar("reading") };
+    let ctl = control_for(&bar);
+    let phase_bar = bar.clone();
+    let (r, against, out) = compute_and_write(a, &ctl, &move |p| phase_bar.set_message(p.title()))?;
+    bar.finish_and_clear();
+    print_summary(&r, against.as_ref());
+    println!("wrote {} (review.json, review.png)", out.display());
+    Ok(())
+}
+
+/// `spurion review` without a terminal: the same work and files, progress and cancel through
+/// `ctl` (the Python package runs it so). Returns the output folder.
+pub fn run_with(a: &ReviewArgs, ctl: &crate::control::Control) -> Result<PathBuf> {
+    Ok(compute_and_write(a, ctl, &|_| {})?.2)
+}
+
+fn compute_and_write(
+    a: &ReviewArgs,
+    ctl: &crate::control::Control,
+    phase: &dyn Fn(review::Phase),
+) -> Result<(Review, Option<review::against::Against>, PathBuf)> {
     let req = a.reading.request()?;
     let sign = Sign::parse(&a.sign).with_context(|| format!("unknown sign \"{}\"; use both, supporting, opposing or magnitude", a.sign))?;
     let settings = a.settings()?;
@@ -165,19 +186,14 @@ pub fn run(a: &ReviewArgs) -> Result<()> {
         }
         None => None,
     };
-    let bar = if a.quiet { ProgressBar::hidden() } else { progress_bar("reading") };
-    let ctl = control_for(&bar);
-    let phase_bar = bar.clone();
-    let r = review::run(&model, card.as_ref(), &input, &req, &settings, &ctl, &move |p| phase_bar.set_message(p.title()))?;
+    let r = review::run(&model, card.as_ref(), &input, &req, &settings, ctl, phase)?;
     let against = match &second {
         Some((m2, c2)) => {
-            bar.set_message("second model");
             let case = review::Case::new(&model, card.as_ref(), &input, &req, &r.reading)?;
-            Some(review::against::against(&case, &r.reading, m2, c2.as_ref(), &r.regions, d::TOP_SHARE, &ctl)?)
+            Some(review::against::against(&case, &r.reading, m2, c2.as_ref(), &r.regions, d::TOP_SHARE, ctl)?)
         }
         None => None,
     };
-    bar.finish_and_clear();
 
     let out = a.out.clone().unwrap_or_else(|| {
         let name = input.name();
@@ -188,9 +204,7 @@ pub fn run(a: &ReviewArgs) -> Result<()> {
     write_json(&out.join("review.json"), &ReviewFile::new(&r, case.rule(), against.as_ref()).to_json()?)?;
     let pixels = backdrop(&input, &r.reading.map2d());
     crate::render::save(&out.join("review.png"), &crate::render::review_panel(&r, against.as_ref(), &pixels, sign))?;
-    print_summary(&r, against.as_ref());
-    println!("wrote {} (review.json, review.png)", out.display());
-    Ok(())
+    Ok((r, against, out))
 }
 
 fn f(v: Option<f64>) -> String {

@@ -106,6 +106,33 @@ fn progress_bar(quiet: bool) -> ProgressBar {
 }
 
 pub fn run(a: &SweepArgs) -> Result<()> {
+    let bar = progress_bar(a.quiet);
+    let ctl = super::explain::control_for(&bar);
+    let (result, groups, out, seconds) = match run_with(a, &ctl) {
+        Ok(r) => r,
+        Err(e) if crate::model::is_cancelled(&e) => {
+            bar.abandon();
+            eprintln!(
+                "spurion: the images read before the cancel are kept in the cache {}; run the same command again to go on",
+                cache_dir(a).display()
+            );
+            return Err(e);
+        }
+        Err(e) => return Err(e),
+    };
+    bar.finish_and_clear();
+    tell(&result, &groups, &out, seconds);
+    Ok(())
+}
+
+fn cache_dir(a: &SweepArgs) -> PathBuf {
+    a.cache.clone().unwrap_or_else(|| a.out.join("cache"))
+}
+
+/// `spurion sweep` without a terminal: the same work and files, progress and cancel through
+/// `ctl` (the Python package runs it so). Returns the result, each group's figures, the folder
+/// written and the seconds taken.
+pub fn run_with(a: &SweepArgs, ctl: &crate::control::Control) -> Result<(ShardResult, Vec<GroupSummary>, PathBuf, f64)> {
     let request = a.reading.request()?;
     let shard = shard_of(a)?;
     let exclude = Exclude::new(&a.exclude)?;
@@ -132,8 +159,7 @@ pub fn run(a: &SweepArgs) -> Result<()> {
     }
     let drawn: BTreeMap<String, DrawnFile> = in_ledger.as_ref().map(SweepLedger::drawn).unwrap_or_default();
     let out = if shard.count > 1 { a.out.join(shard.folder_name()) } else { a.out.clone() };
-    let cache_dir = a.cache.clone().unwrap_or_else(|| a.out.join("cache"));
-    let cache = Cache::open(&cache_dir)?;
+    let cache = Cache::open(&cache_dir(a))?;
     let open = OpenOptions { frame: a.frame, window: card.input.window.clone() };
     let setup = Setup {
         model: &model,
@@ -144,30 +170,15 @@ pub fn run(a: &SweepArgs) -> Result<()> {
         flag: Default::default(),
         drawn,
     };
-    let bar = progress_bar(a.quiet);
-    let ctl = super::explain::control_for(&bar);
     let started = Instant::now();
     let root = std::path::absolute(&a.images).unwrap_or_else(|_| a.images.clone());
-    let mut result = match sweep::run_shard(&setup, &items, &cache, shard, root, &ctl) {
-        Ok(r) => r,
-        Err(e) if crate::model::is_cancelled(&e) => {
-            bar.abandon();
-            eprintln!(
-                "spurion: the images read before the cancel are kept in the cache {}; run the same command again to go on",
-                cache_dir.display()
-            );
-            return Err(e);
-        }
-        Err(e) => return Err(e),
-    };
-    bar.finish_and_clear();
+    let mut result = sweep::run_shard(&setup, &items, &cache, shard, root, ctl)?;
     if let Some(l) = &in_ledger {
         l.set_verdicts(&mut result.rows);
     }
     let seconds = started.elapsed().as_secs_f64();
     let groups = files::write(&result, &out, seconds, Some(&ThumbSource { card: &card, open: &open }))?;
-    tell(&result, &groups, &out, seconds);
-    Ok(())
+    Ok((result, groups, out, seconds))
 }
 
 /// The folders a merge reads: each given folder that is a shard's, or the shard folders inside it.

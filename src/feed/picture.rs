@@ -77,7 +77,7 @@ impl Picture {
             if opts.frame != 0 {
                 bail!("{} is not a multi-frame DICOM file; there is only frame 0 (drop --frame)", path.display());
             }
-            Self::decode_with(&bytes, opts.window.as_ref()).with_context(|| format!("image {}", path.display()))?
+            Self::decode_with_window(&bytes, opts.window.as_ref()).with_context(|| format!("image {}", path.display()))?
         };
         p.path = Some(path.to_path_buf());
         Ok(p)
@@ -100,12 +100,12 @@ impl Picture {
 
     /// Decodes image bytes (format sniffed from the content) with the default window.
     pub fn decode(bytes: &[u8]) -> Result<Picture> {
-        Self::decode_with(bytes, None)
+        Self::decode_with_window(bytes, None)
     }
 
     /// Decodes PNG, JPEG, TIFF or BMP bytes; 16-bit images go through `window` (all values by
     /// default).
-    fn decode_with(bytes: &[u8], window: Option<&Windowing>) -> Result<Picture> {
+    pub fn decode_with_window(bytes: &[u8], window: Option<&Windowing>) -> Result<Picture> {
         let reader = image::ImageReader::new(std::io::Cursor::new(bytes))
             .with_guessed_format()
             .context("cannot read the image header")?;
