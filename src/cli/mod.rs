@@ -79,12 +79,25 @@ pub struct ModelArgs {
     /// Feed card to use instead of the sidecar MODEL.feed.toml.
     #[arg(long)]
     pub feed: Option<PathBuf>,
+    /// The model output to explain, by its ONNX name (`spurion info` lists them), for models
+    /// with several outputs; overrides the feed card's `[output] name`.
+    #[arg(long)]
+    pub output: Option<String>,
 }
 
 impl ModelArgs {
     /// The model with the input shape given, or its feed card's.
     pub fn load(&self) -> Result<Model> {
-        Model::load(&self.model, &LoadOptions { input_shape: self.given_shape() })
+        Model::load(&self.model, &self.options(self.given_shape()))
+    }
+
+    /// Load options: the input shape, and which output to score (`--output`, else the feed
+    /// card's `[output] name`; the card's label count picks among class-shaped outputs).
+    fn options(&self, input_shape: Option<Vec<usize>>) -> LoadOptions {
+        let card = self.card_path().and_then(|p| crate::feed::FeedCard::load(&p).ok());
+        let output = self.output.clone().or_else(|| card.as_ref().and_then(|c| c.output.name.clone()));
+        let classes = card.map(|c| c.output.labels.len()).filter(|&n| n > 0);
+        LoadOptions { input_shape, output, classes }
     }
 
     /// The model for `input`: where neither `--input-shape` nor a feed card fixes the graph's
@@ -94,7 +107,7 @@ impl ModelArgs {
             Some(s) => Some(s),
             None => self.shape_from_input(input)?,
         };
-        Model::load(&self.model, &LoadOptions { input_shape: shape })
+        Model::load(&self.model, &self.options(shape))
     }
 
     fn given_shape(&self) -> Option<Vec<usize>> {
@@ -273,7 +286,8 @@ fn info(a: &InfoArgs) -> Result<()> {
         println!("input    {}  {:?}", t.name, t.shape);
     }
     for t in &info.outputs {
-        println!("output   {}  {:?}", t.name, t.shape);
+        let scored = if t.name == info.scored_output && info.outputs.len() > 1 { "  (scored)" } else { "" };
+        println!("output   {}  {:?}{scored}", t.name, t.shape);
     }
     println!("ends in softmax: {}", if info.ends_in_softmax { "yes" } else { "no" });
     println!("\nONNX operators:");

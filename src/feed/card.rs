@@ -19,6 +19,7 @@
 //! [output]
 //! kind = "logits"            # logits | probabilities
 //! labels = ["no finding", "finding present"]
+//! name = "logits"            # which graph output holds the scores, for models with several
 //! ```
 
 use std::path::{Path, PathBuf};
@@ -27,7 +28,7 @@ use anyhow::{Context, Result, bail};
 use serde::{Deserialize, Serialize};
 
 use super::window::Windowing;
-use crate::model::Model;
+use crate::model::{LoadOptions, Model};
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
@@ -102,11 +103,16 @@ pub struct OutputCard {
     pub kind: OutputKind,
     #[serde(default)]
     pub labels: Vec<String>,
+    /// The graph output that holds the class scores, by its ONNX name. Needed only when the
+    /// model has several outputs and more than one (or none) is shaped [1, C] with C the
+    /// number of labels; `spurion info` lists the outputs.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub name: Option<String>,
 }
 
 impl Default for OutputCard {
     fn default() -> Self {
-        OutputCard { kind: OutputKind::Logits, labels: Vec::new() }
+        OutputCard { kind: OutputKind::Logits, labels: Vec::new(), name: None }
     }
 }
 
@@ -166,6 +172,20 @@ impl FeedCard {
         if p.exists() { Self::load(&p).map(Some) } else { Ok(None) }
     }
 
+    /// How to load the model at `model_path` as its sidecar card says: which output to score
+    /// (`[output] name`, else the one with as many classes as the card has labels). Default
+    /// options when there is no card.
+    pub fn sidecar_load_options(model_path: &Path) -> Result<LoadOptions> {
+        Ok(match Self::for_model(model_path)? {
+            Some(c) => LoadOptions {
+                output: c.output.name.clone(),
+                classes: (!c.output.labels.is_empty()).then_some(c.output.labels.len()),
+                ..Default::default()
+            },
+            None => LoadOptions::default(),
+        })
+    }
+
     /// The card beside the model, else one inferred from the graph.
     pub fn for_loaded(model: &Model) -> Result<FeedCard> {
         match Self::for_model(model.path())? {
@@ -217,7 +237,11 @@ impl FeedCard {
                 std: vec![1.0; c],
                 window: None,
             },
-            output: OutputCard { kind, labels: (0..model.output_len()).map(|i| format!("class {i}")).collect() },
+            output: OutputCard {
+                kind,
+                labels: (0..model.output_len()).map(|i| format!("class {i}")).collect(),
+                name: None,
+            },
         })
     }
 
@@ -280,6 +304,15 @@ impl FeedCard {
                 got,
                 model.path().display(),
                 want
+            );
+        }
+        if let Some(name) = self.output.name.as_deref().filter(|n| *n != model.output_name()) {
+            bail!(
+                "feed card {} names output '{name}' but model {} was loaded scoring output '{}'; \
+                 load it with --output {name} (or fix [output] name in the card)",
+                Self::sidecar_path(model.path()).display(),
+                model.path().display(),
+                model.output_name()
             );
         }
         if !self.output.labels.is_empty() && self.output.labels.len() != model.output_len() {

@@ -14,6 +14,7 @@ mod conv;
 mod einsum;
 mod gather;
 mod lrn;
+mod norm;
 mod pool;
 mod reduce;
 mod shape;
@@ -74,6 +75,7 @@ const FAMILIES: &[(&str, Build)] = &[
     ("shape", shape::build),
     ("gather", gather::build),
     ("lrn", lrn::build),
+    ("norm", norm::build),
 ];
 
 fn lookup(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {

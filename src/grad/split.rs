@@ -16,6 +16,8 @@
 //! about 1.8 GFLOP). The split is only made when the head holds a matrix op (a convolution or
 //! an einsum); a head of element-wise constants alone would save nothing.
 
+use std::collections::HashMap;
+
 use anyhow::{Context, Result, anyhow};
 use ndarray::{Array1, ArrayD};
 use tract_onnx::prelude::*;
@@ -23,6 +25,7 @@ use tract_onnx::tract_core::ops::array::{Pad, PadMode, Slice};
 use tract_onnx::tract_core::ops::binary::TypedBinOp;
 use tract_onnx::tract_core::ops::cnn::Conv;
 use tract_onnx::tract_core::ops::einsum::EinSum;
+use tract_onnx::tract_core::ops::konst::Const;
 
 use super::ReversePass;
 use crate::graph::{Plan, optimized_plan, to_array};
@@ -87,6 +90,49 @@ fn find_cut(g: &TypedModel, input: OutletId, target: OutletId) -> Result<Option<
     Ok(cut)
 }
 
+/// The rest of the graph after `cut`: a new graph whose source is the cut and which holds every
+/// node `target` needs beyond it, in the original's evaluation order. (Re-pointing the
+/// original's input at the cut and compacting it fails on graphs whose constants sit before
+/// the cut in node order, like a vision transformer's class token.) The head is read only
+/// through the cut (see [`find_cut`]).
+fn rest_graph(g: &TypedModel, cut: OutletId, target: OutletId) -> Result<(TypedModel, OutletId, OutletId)> {
+    let order = g.eval_order()?;
+    let mut needed = vec![false; g.nodes().len()];
+    needed[target.node] = true;
+    for &n in order.iter().rev() {
+        if needed[n] && n != cut.node {
+            for i in &g.node(n).inputs {
+                needed[i.node] = true;
+            }
+        }
+    }
+    let mut rest = TypedModel::default();
+    let mut map: HashMap<OutletId, OutletId> = HashMap::new();
+    for &n in order.iter().filter(|&&n| needed[n]) {
+        let node = g.node(n);
+        if n == cut.node {
+            let w = rest.add_source("cut", g.outlet_fact(cut)?.without_value())?;
+            map.insert(cut, w);
+            continue;
+        }
+        if let Some(k) = node.op_as::<Const>() {
+            map.insert(OutletId::new(n, 0), rest.add_const(&node.name, k.val().clone())?);
+            continue;
+        }
+        let wires: Vec<OutletId> = node
+            .inputs
+            .iter()
+            .map(|i| map.get(i).copied().ok_or_else(|| anyhow!("input of {} is not wired", node.name)))
+            .collect::<Result<_>>()?;
+        for (k, w) in rest.wire_node(&node.name, node.op.clone(), &wires)?.into_iter().enumerate() {
+            map.insert(OutletId::new(n, k), w);
+        }
+    }
+    let (input, output) = (map[&cut], map[&target]);
+    rest.select_output_outlets(&[output])?;
+    Ok((rest, input, output))
+}
+
 /// A graph cut after its affine head: the head's forward, the head's reverse (a cotangent at
 /// the cut to the input), and the rest's reverse pass from the cut to the target.
 pub(crate) struct AffineSplit {
@@ -104,13 +150,7 @@ impl AffineSplit {
         let Some((cut, head_len)) = find_cut(g, input, target)? else { return Ok(None) };
         let head = optimized_plan(g, &[cut]).context("preparing the affine head")?;
         let head_reverse = ReversePass::build(g, input, cut).context("the affine head's reverse pass")?;
-        // The rest: the same graph with the cut as its input; compaction turns the cut's node
-        // into a source and drops the head.
-        let mut rest = g.clone();
-        rest.select_output_outlets(&[target])?;
-        rest.set_input_outlets(&[cut])?;
-        let rest = rest.into_compact().map_err(|e| anyhow!("cutting off the affine head: {e:#}"))?;
-        let (rest_input, rest_target) = (rest.input_outlets()?[0], rest.output_outlets()?[0]);
+        let (rest, rest_input, rest_target) = rest_graph(g, cut, target).context("cutting off the affine head")?;
         let tail = ReversePass::build(&rest, rest_input, rest_target).context("the reverse pass after the affine head")?;
         Ok(Some(AffineSplit { head, head_reverse, tail, head_len }))
     }

@@ -11,14 +11,14 @@ use crate::control::Control;
 use crate::feed::{FeedCard, Feeder, Picture};
 use crate::methods::agree::Spread;
 use crate::methods::{self, Input, Reading, Request};
-use crate::model::{LoadOptions, Model, Tap};
+use crate::model::{Model, Tap};
 use crate::regions::{FinderSettings, FlagSettings, find_regions, paint_out_all};
 
 use super::paint;
 use super::state::{Drawn, Prepared, Session, Shown};
 
 pub fn load_session(path: &Path) -> Result<Session> {
-    let model = Model::load(path, &LoadOptions::default())?;
+    let model = Model::load(path, &FeedCard::sidecar_load_options(path)?)?;
     let beside = FeedCard::sidecar_path(path).exists();
     let card = FeedCard::for_loaded(&model)?;
     let labels = (0..model.output_len()).map(|i| card.label(i)).collect();

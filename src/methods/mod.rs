@@ -204,6 +204,7 @@ impl Job<'_> {
             elapsed_ms: started.elapsed().as_secs_f64() * 1e3,
             model_sha256: model.sha256().to_string(),
             model_file: model.path().file_name().map(|f| f.to_string_lossy().into_owned()).unwrap_or_default(),
+            model_output: model.output_name().to_string(),
             input: self.input.name(),
             input_shape: self.x.shape().to_vec(),
             scores: scores.to_vec(),

@@ -31,6 +31,9 @@ pub struct Reading {
     pub elapsed_ms: f64,
     pub model_sha256: String,
     pub model_file: String,
+    /// The ONNX name of the model output the reading scores.
+    #[serde(default)]
+    pub model_output: String,
     pub input: String,
     pub input_shape: Vec<usize>,
     /// The score vector at the input (the tapped output), for target lists.

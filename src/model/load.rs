@@ -236,6 +236,100 @@ pub(crate) fn concrete_input_shape(
     Ok(shape)
 }
 
+/// One output of the typed graph: where it is, its name and shape, whether it holds float32.
+pub(crate) struct GraphOutput {
+    pub outlet: OutletId,
+    pub info: super::TensorInfo,
+    pub f32: bool,
+}
+
+/// The graph's outputs in order, named as in the ONNX file.
+pub(crate) fn graph_outputs(g: &TypedModel) -> Result<Vec<GraphOutput>> {
+    g.output_outlets()?
+        .iter()
+        .map(|&o| {
+            let fact = g.outlet_fact(o)?;
+            Ok(GraphOutput {
+                outlet: o,
+                info: super::TensorInfo {
+                    name: g.outlet_label(o).map(str::to_string).unwrap_or_else(|| g.node(o.node).name.clone()),
+                    shape: fact.shape.as_concrete().map(|s| s.to_vec()).unwrap_or_default(),
+                },
+                f32: fact.datum_type == f32::datum_type(),
+            })
+        })
+        .collect()
+}
+
+/// Whether a shape holds one score per class for one image: [1, C] or [C], C ≥ 2.
+fn class_shaped(shape: &[usize]) -> bool {
+    match shape {
+        [1, c] | [c] => *c >= 2,
+        _ => false,
+    }
+}
+
+/// The output methods score: the one named in `opts`, else the only one, else the only float32
+/// output shaped like class scores ([1, C], with C the feed card's label count when it gives
+/// labels). Anything else is refused with the outputs listed and the ways to choose one: an
+/// intermediate tensor is never scored silently.
+pub(crate) fn scored_output(
+    path: &Path,
+    g: &TypedModel,
+    outputs: &[GraphOutput],
+    opts: &super::LoadOptions,
+) -> Result<(OutletId, String)> {
+    let list = || {
+        outputs
+            .iter()
+            .map(|o| format!("'{}' {:?}{}", o.info.name, o.info.shape, if o.f32 { "" } else { " (not float32)" }))
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    let how = "choose one with --output NAME, or with name = \"NAME\" under [output] in the feed card";
+    let chosen = if let Some(want) = &opts.output {
+        outputs.iter().find(|o| &o.info.name == want).ok_or_else(|| {
+            anyhow!("the model {} has no output named '{want}'; its outputs are {}", path.display(), list())
+        })?
+    } else if outputs.len() == 1 {
+        &outputs[0]
+    } else {
+        let fits = |o: &&GraphOutput| {
+            o.f32 && class_shaped(&o.info.shape) && opts.classes.is_none_or(|c| o.info.shape.last() == Some(&c))
+        };
+        let candidates: Vec<&GraphOutput> = outputs.iter().filter(fits).collect();
+        match candidates.as_slice() {
+            [one] => *one,
+            [] => bail!(
+                "the model {} has {} outputs and none is shaped like class scores ([1, C]{}): {}. \
+                 Say which output holds the scores: {how}",
+                path.display(),
+                outputs.len(),
+                opts.classes.map(|c| format!(" with the feed card's {c} labels")).unwrap_or_default(),
+                list()
+            ),
+            several => bail!(
+                "the model {} has {} outputs shaped like class scores ({}); spurion will not guess \
+                 which one to explain. All outputs: {}. {how}",
+                path.display(),
+                several.len(),
+                several.iter().map(|o| format!("'{}'", o.info.name)).collect::<Vec<_>>().join(", "),
+                list()
+            ),
+        }
+    };
+    if !chosen.f32 {
+        bail!(
+            "output '{}' of {} is {:?}; spurion scores float32 outputs only. Its outputs are {}",
+            chosen.info.name,
+            path.display(),
+            g.outlet_fact(chosen.outlet)?.datum_type,
+            list()
+        );
+    }
+    Ok((chosen.outlet, chosen.info.name.clone()))
+}
+
 fn hex(bytes: &[u8]) -> String {
     bytes.iter().map(|b| format!("{b:02x}")).collect()
 }

@@ -37,12 +37,18 @@ use crate::graph::{Plan, geometry, optimized_plan};
 pub struct LoadOptions {
     /// Full input shape including the batch axis (which must be 1). Overrides dynamic dims.
     pub input_shape: Option<Vec<usize>>,
+    /// The graph output to score, by its ONNX name (`--output`, or `name` under `[output]` in
+    /// the feed card). `None`: the only output, else the one shaped like class scores.
+    pub output: Option<String>,
+    /// How many classes the scored output must have (the feed card's label count), used to pick
+    /// among several outputs shaped like class scores.
+    pub classes: Option<usize>,
 }
 
 /// Which vector a method scores.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
 pub enum Tap {
-    /// Output 0 of the graph, flattened.
+    /// The graph's scored output (see [`LoadOptions::output`]), flattened.
     Output,
     /// The input of the graph's final softmax (its logits), flattened. An error if the graph
     /// does not end in a softmax.
@@ -63,6 +69,8 @@ pub struct ModelInfo {
     pub sha256: String,
     pub inputs: Vec<TensorInfo>,
     pub outputs: Vec<TensorInfo>,
+    /// The output methods score (its name).
+    pub scored_output: String,
     /// Operator types of the ONNX file, with counts.
     pub onnx_ops: Vec<OpCount>,
     /// Operators of the decluttered graph the reverse pass walks, with counts and whether each
@@ -102,10 +110,13 @@ pub struct Model {
     input_shape: Vec<usize>,
     input_name: String,
     onnx_ops: Vec<(String, usize)>,
+    /// Every output of the ONNX graph, in its order (the graph below keeps only the scored one).
+    outputs: Vec<TensorInfo>,
     /// The decluttered typed graph: what the reverse pass walks.
     graph: Arc<TypedModel>,
-    /// Outlet of output 0 and, when the graph ends in a softmax, the softmax's input.
+    /// Outlet of the scored output and, when it comes from a softmax, the softmax's input.
     output: OutletId,
+    output_name: String,
     before_softmax: Option<OutletId>,
     output_len: usize,
     /// Optimized plan whose outputs are `[output]` or `[output, before_softmax]`.
@@ -146,24 +157,19 @@ impl Model {
         let graph = typed.into_decluttered().map_err(|e| {
             anyhow!("tract could not simplify the graph of {}: {e:#}", path.display())
         })?;
+        let mut graph = graph;
         let input_name = graph.node(graph.input_outlets()?[0].node).name.clone();
-        let output = *graph
-            .output_outlets()?
-            .first()
-            .ok_or_else(|| anyhow!("the model {} has no output", path.display()))?;
+        let all_outputs = load::graph_outputs(&graph)?;
+        let (output, output_name) = load::scored_output(path, &graph, &all_outputs, opts)?;
+        // The graph keeps only the scored output: the other outputs are never computed, and no
+        // later step (the affine head cut, the taped forward) mistakes one for the score.
+        graph.select_output_outlets(&[output]).map_err(|e| anyhow!("{e}"))?;
         let out_fact = graph.outlet_fact(output)?;
         let output_len = out_fact
             .shape
             .as_concrete()
             .map(|s| s.iter().product::<usize>())
-            .ok_or_else(|| anyhow!("output 0 of {} has no concrete shape", path.display()))?;
-        if out_fact.datum_type != f32::datum_type() {
-            bail!(
-                "output 0 of {} is {:?}; spurion scores float32 outputs only",
-                path.display(),
-                out_fact.datum_type
-            );
-        }
+            .ok_or_else(|| anyhow!("output '{output_name}' of {} has no concrete shape", path.display()))?;
         let before_softmax = final_softmax_input(&graph, output);
         let mut outputs = vec![output];
         outputs.extend(before_softmax);
@@ -175,8 +181,10 @@ impl Model {
             input_shape,
             input_name,
             onnx_ops,
+            outputs: all_outputs.into_iter().map(|o| o.info).collect(),
             graph: Arc::new(graph),
             output,
+            output_name,
             before_softmax,
             output_len,
             plan,
@@ -201,6 +209,11 @@ impl Model {
         self.output_len
     }
 
+    /// The ONNX name of the output methods score.
+    pub fn output_name(&self) -> &str {
+        &self.output_name
+    }
+
     pub fn ends_in_softmax(&self) -> bool {
         self.before_softmax.is_some()
     }
@@ -221,21 +234,12 @@ impl Model {
         }
         ops.sort_by(|a, b| b.count.cmp(&a.count).then(a.op.cmp(&b.op)));
         let unsupported = self.unsupported(Tap::Output);
-        let outputs = g
-            .output_outlets()
-            .map(|o| o.to_vec())
-            .unwrap_or_default()
-            .iter()
-            .map(|o| TensorInfo {
-                name: g.outlet_label(*o).map(str::to_string).unwrap_or_else(|| g.node(o.node).name.clone()),
-                shape: g.outlet_fact(*o).ok().and_then(|f| f.shape.as_concrete().map(|s| s.to_vec())).unwrap_or_default(),
-            })
-            .collect();
         ModelInfo {
             path: self.path.clone(),
             sha256: self.sha256.clone(),
             inputs: vec![TensorInfo { name: self.input_name.clone(), shape: self.input_shape.clone() }],
-            outputs,
+            outputs: self.outputs.clone(),
+            scored_output: self.output_name.clone(),
             onnx_ops: self
                 .onnx_ops
                 .iter()
@@ -263,7 +267,7 @@ impl Model {
             .collect()
     }
 
-    /// Ok when every node between the input and output 0 has a reverse step.
+    /// Ok when every node between the input and the scored output has a reverse step.
     pub fn gradient_ready(&self) -> Result<()> {
         self.reverse_pass(Tap::Output).map(|_| ())
     }
@@ -523,7 +527,7 @@ fn check_finite(path: &Path, v: &[f32]) -> Result<()> {
     Ok(())
 }
 
-/// The input of a softmax that produces output 0, possibly through shape-only ops (flatten).
+/// The input of a softmax that produces the scored output, possibly through shape-only ops (flatten).
 fn final_softmax_input(g: &TypedModel, output: OutletId) -> Option<OutletId> {
     let mut at = output;
     loop {

@@ -148,6 +148,7 @@ mod tests {
             elapsed_ms: 0.0,
             model_sha256: String::new(),
             model_file: String::new(),
+            model_output: String::new(),
             input: String::new(),
             input_shape: vec![],
             scores: vec![],

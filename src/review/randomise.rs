@@ -148,7 +148,12 @@ pub fn cascade(case: &Case, reading: &Reading, settings: &CascadeSettings, ctl: 
             original: case.grid_map(r),
         })
         .collect();
-    let opts = LoadOptions { input_shape: Some(model.input_shape().to_vec()) };
+    // The same output as the model under review, whatever its feed card says.
+    let opts = LoadOptions {
+        input_shape: Some(model.input_shape().to_vec()),
+        output: Some(model.output_name().to_string()),
+        classes: None,
+    };
     for k in 1..=k_max {
         ctl.check()?;
         let chosen = &all[all.len() - k..];

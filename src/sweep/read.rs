@@ -39,6 +39,8 @@ impl Setup<'_> {
             "frame": self.open.frame,
             "window": self.open.window,
             "card": self.card,
+            // The output scored (`--output` may choose one the card does not name).
+            "output": self.model.output_name(),
             "finder": self.finder,
             "flag": self.flag,
         })

@@ -186,6 +186,54 @@ save("lrn_odd", [N("LRN", ["x"], ["l"], size=3, alpha=0.8, beta=0.75, bias=1.0),
 save("lrn_wide", [N("LRN", ["x"], ["l"], size=5, alpha=0.5, beta=0.6, bias=2.0), N("Mul", ["l", "c"], ["y"])], (1, 6, 2, 3),
      [const("c", w(6, 2, 3))], ["Lrn"])
 
+# Transformer pieces (issue 24). Layer normalisation reaches tract's RmsNorm from one op (opset
+# 17+) and from the ReduceMean/Sub/Pow/Sqrt/Div that older exports write; over two axes it stays
+# Reduce<MeanOfSquares>/Rsqrt. T is a token tensor (batch, tokens, width).
+T = (1, 6, 8)
+save("layernorm_op", [N("LayerNormalization", ["x", "g", "b"], ["y"], axis=-1, epsilon=1e-5)], T,
+     [const("g", w(8) + 1.0), const("b", w(8))], ["RmsNorm"])
+save("layernorm_two_axes", [N("LayerNormalization", ["x", "g", "b"], ["y"], axis=-2, epsilon=1e-3)], T,
+     [const("g", w(6, 8) + 1.0), const("b", w(6, 8))], ["Rsqrt"])
+save("layernorm_decomposed", [N("ReduceMean", ["x"], ["m"], axes=[-1], keepdims=1), N("Sub", ["x", "m"], ["d"]),
+                              N("Pow", ["d", "two"], ["p"]), N("ReduceMean", ["p"], ["v"], axes=[-1], keepdims=1),
+                              N("Add", ["v", "eps"], ["ve"]), N("Sqrt", ["ve"], ["s"]), N("Div", ["d", "s"], ["n"]),
+                              N("Mul", ["n", "g"], ["ng"]), N("Add", ["ng", "b"], ["y"])], T,
+     [const("two", 2.0), const("eps", 1e-5), const("g", w(8) + 1.0), const("b", w(8))], ["RmsNorm"], opset=13)
+# Channels-last layer norm on an NCHW map between transposes (ConvNeXt's LayerNorm2d).
+save("layernorm_channels", [N("Transpose", ["x"], ["t"], perm=[0, 2, 3, 1]),
+                            N("LayerNormalization", ["t", "g", "b"], ["n"], axis=-1, epsilon=1e-6),
+                            N("Transpose", ["n"], ["y"], perm=[0, 3, 1, 2])], X,
+     [const("g", w(3) + 1.0), const("b", w(3))], ["RmsNorm"])
+# Multi-head self-attention: MatMul of two computed tensors, softmax over the last axis.
+save("attention", [N("MatMul", ["x", "wq"], ["q"]), N("MatMul", ["x", "wk"], ["k"]), N("MatMul", ["x", "wv"], ["v"]),
+                   N("Reshape", ["q", "hs"], ["qh"]), N("Reshape", ["k", "hs"], ["kh"]), N("Reshape", ["v", "hs"], ["vh"]),
+                   N("Transpose", ["qh"], ["qt"], perm=[0, 2, 1, 3]), N("Transpose", ["kh"], ["kt"], perm=[0, 2, 3, 1]),
+                   N("Transpose", ["vh"], ["vt"], perm=[0, 2, 1, 3]), N("MatMul", ["qt", "kt"], ["s"]),
+                   N("Mul", ["s", "scale"], ["ss"]), N("Softmax", ["ss"], ["a"], axis=-1), N("MatMul", ["a", "vt"], ["o"]),
+                   N("Transpose", ["o"], ["ot"], perm=[0, 2, 1, 3]), N("Reshape", ["ot", "ts"], ["oc"]),
+                   N("MatMul", ["oc", "wo"], ["y"])], T,
+     [const("wq", w(8, 8)), const("wk", w(8, 8)), const("wv", w(8, 8)), const("wo", w(8, 8)),
+      I64("hs", [1, 6, 2, 4]), I64("ts", [1, 6, 8]), const("scale", 0.5)], ["EinSum", "Softmax"])
+# Swin's shifted windows: torch.roll as the exporter writes it (two slices and a concat per axis).
+save("roll", [N("Slice", ["x", "s0", "e0", "a2"], ["r1"]), N("Slice", ["x", "z", "s0", "a2"], ["r2"]),
+              N("Concat", ["r1", "r2"], ["r"], axis=2), N("Slice", ["r", "s1", "e0", "a3"], ["c1"]),
+              N("Slice", ["r", "z", "s1", "a3"], ["c2"]), N("Concat", ["c1", "c2"], ["c"], axis=3),
+              N("Mul", ["c", "k"], ["y"])], X,
+     [I64("s0", [2]), I64("s1", [4]), I64("e0", [6]), I64("z", [0]), I64("a2", [2]), I64("a3", [3]), const("k", w(3, 6, 6))],
+     ["Slice", "Concat"])
+# Swin V2's cosine attention normalises with F.normalize: x / max(‖x‖₂, ε).
+save("l2_normalize", [N("ReduceL2", ["x"], ["n"], axes=[-1], keepdims=1), N("Clip", ["n", "lo"], ["c"]),
+                      N("Div", ["x", "c"], ["y"])], T, [const("lo", 1e-12)], ["Sqrt", "Max", "Recip"], opset=13)
+# An Einsum op of two computed operands (MaxViT's relative attention writes one).
+save("einsum_two_inputs", [N("Tanh", ["x"], ["t"]), N("Einsum", ["x", "t"], ["e"], equation="bic,bjc->bij"),
+                           N("Mul", ["e", "k"], ["y"])], T, [const("k", w(6, 6))], ["EinSum"])
+# ViT takes the class token: x[:, 0].
+save("gather_token", [N("Gather", ["x", "i0"], ["g"], axis=1), N("Mul", ["g", "k"], ["y"])], T,
+     [I64("i0", 0), const("k", w(1, 8))], [])
+# Softmax over a middle axis of a rank-4 tensor.
+save("softmax_middle_axis", [N("Mul", ["x", "k"], ["m"]), N("Softmax", ["m"], ["y"], axis=1)], X,
+     [const("k", w(3, 1, 6) + 1.0)], ["Softmax"])
+
 with open(os.path.join(OUT, "ops.json"), "w") as f:
     json.dump(manifest, f, indent=1, sort_keys=True)
 print(len(manifest), "fixtures")

@@ -19,6 +19,23 @@ non-trivial values so folding matters):
               (Simonyan & Zisserman 2015)
   mixed       GELU, ELU, softplus, leaky ReLU, PReLU, tanh, nearest and bilinear upsampling,
               a final softmax (the activations the families above do not use)
+and six built from torchvision's own classes at small widths and depths (issue 24: layer
+normalisation, attention, GELU, shifted windows), every weight re-drawn (see `redraw`):
+  vit         VisionTransformer (Dosovitskiy et al. 2021): patch convolution, class token,
+              multi-head attention, LayerNormalization as one op (opset 17)
+  vit16       the same network at opset 16, where the exporter writes layer normalisation
+              out as ReduceMean/Sub/Pow/Sqrt/Div
+  swin        SwinTransformer (Liu et al. 2021): windows, shifted windows (torch.roll),
+              relative position bias, patch merging
+  swin2       SwinTransformer with the V2 block and merging (Liu et al. 2022): cosine
+              attention (F.normalize), the continuous position bias MLP
+  convnext    ConvNeXt (Liu et al. 2022): 7x7 depthwise convolutions, channels-last layer
+              norm between permutes, layer scale
+  maxvit      MaxVit (Tu et al. 2022): MBConv with batch norm and squeeze-excite, block and
+              grid attention, a tanh in the head
+
+Usage: torch_grad_fixtures.py [NAME ...] rebuilds only the networks named (default: all) and
+keeps the other entries of manifest.json. The dynamo exporter needs onnxscript.
 
 For each NAME it writes NAME.onnx (batch 1) and
   NAME.x.npy       the input (float32),
@@ -29,6 +46,7 @@ and manifest.json with the target class, exporter, opset and op types of each fi
 """
 import json
 import os
+import sys
 
 import numpy as np
 import onnx
@@ -249,6 +267,75 @@ NETS = [
     ("mixed", Mixed, "legacy", 16),
 ]
 
+# The torchvision classes at small widths and depths (input SIZE_TV², five classes).
+SIZE_TV = 32
+
+
+def tv_vit():
+    from torchvision.models.vision_transformer import VisionTransformer
+    return VisionTransformer(image_size=SIZE_TV, patch_size=8, num_layers=2, num_heads=2, hidden_dim=32,
+                             mlp_dim=64, num_classes=5)
+
+
+def tv_swin(v2=False):
+    from torchvision.models import swin_transformer as sw
+    extra = dict(block=sw.SwinTransformerBlockV2, downsample_layer=sw.PatchMergingV2) if v2 else {}
+    return sw.SwinTransformer(patch_size=[4, 4], embed_dim=16, depths=[2, 2], num_heads=[2, 2], window_size=[4, 4],
+                              num_classes=5, **extra)
+
+
+def tv_convnext():
+    from torchvision.models.convnext import CNBlockConfig, ConvNeXt
+    return ConvNeXt([CNBlockConfig(16, 32, 1), CNBlockConfig(32, None, 1)], layer_scale=0.5, num_classes=5)
+
+
+def tv_maxvit():
+    from torchvision.models.maxvit import MaxVit
+    return MaxVit(input_size=(SIZE_TV, SIZE_TV), stem_channels=8, partition_size=2, block_channels=[16, 32],
+                  block_layers=[1, 1], head_dim=8, stochastic_depth_prob=0.0, num_classes=5)
+
+
+def redraw(net):
+    """Re-draws every weight at a scale where each layer matters: torchvision's initialisations
+    leave ViT's head at zero, ConvNeXt's layer scale at 1e-6 and every norm at identity, which
+    would hide the ops under test."""
+    done = set()
+    with torch.no_grad():
+        for m in net.modules():
+            if isinstance(m, (nn.Linear, nn.Conv2d)):
+                fan_in = m.weight[0].numel()
+                m.weight.normal_(0, 1.0 / fan_in ** 0.5)
+                if m.bias is not None:
+                    m.bias.uniform_(-0.2, 0.2)
+            elif isinstance(m, (nn.LayerNorm, nn.BatchNorm2d)):
+                m.weight.uniform_(0.5, 1.5)
+                m.bias.uniform_(-0.2, 0.2)
+                if isinstance(m, nn.BatchNorm2d):
+                    m.running_mean.uniform_(-0.2, 0.2)
+                    m.running_var.uniform_(0.5, 1.5)
+            else:
+                continue
+            done.update(id(p) for p in m.parameters(recurse=False))
+        for name, p in net.named_parameters():
+            if id(p) in done or "logit_scale" in name:
+                continue
+            if "layer_scale" in name:
+                p.uniform_(0.3, 1.0)
+            else:  # class token, position embeddings, relative position bias tables
+                p.normal_(0, 0.5)
+    return net
+
+
+# name, builder, exporter, opset
+TV_NETS = [
+    ("vit", tv_vit, "legacy", 17),
+    ("vit16", tv_vit, "legacy", 16),
+    ("swin", tv_swin, "legacy", 17),
+    ("swin2", lambda: tv_swin(v2=True), "legacy", 17),
+    ("convnext", tv_convnext, "legacy", 17),
+    ("maxvit", tv_maxvit, "legacy", 17),
+]
+
 
 def export(net, x, path, exporter, opset):
     if exporter == "legacy":
@@ -262,16 +349,29 @@ def export(net, x, path, exporter, opset):
 
 def main():
     os.makedirs(OUT, exist_ok=True)
-    manifest = {"torch": torch.__version__, "torchvision": torchvision.__version__, "onnx": onnx.__version__,
-                "size": SIZE, "nets": {}}
-    for i, (name, cls, exporter, opset) in enumerate(NETS):
-        torch.manual_seed(100 + i)
+    only = set(sys.argv[1:])
+    mpath = os.path.join(OUT, "manifest.json")
+    manifest = {"nets": {}}
+    if only and os.path.exists(mpath):
+        with open(mpath) as f:
+            manifest = json.load(f)
+    manifest.update({"torch": torch.__version__, "torchvision": torchvision.__version__, "onnx": onnx.__version__,
+                     "size": SIZE})
+    nets = [(n, c, e, o, SIZE, False) for n, c, e, o in NETS] + [(n, c, e, o, SIZE_TV, True) for n, c, e, o in TV_NETS]
+    for i, (name, cls, exporter, opset, size, tv) in enumerate(nets):
+        if only and name not in only:
+            continue
+        # vit16 is vit at another opset: the same seed, so the same weights.
+        seed = i - 1 if name == "vit16" else i
+        torch.manual_seed(100 + seed)
         net = cls().eval()
-        rng = np.random.default_rng(200 + i)
+        if tv:
+            redraw(net)
+        rng = np.random.default_rng(200 + seed)
         # A smooth image-like input: low-frequency pattern plus mild noise, roughly unit scale.
-        yy, xx = np.mgrid[0:SIZE, 0:SIZE] / SIZE
+        yy, xx = np.mgrid[0:size, 0:size] / size
         base = np.stack([np.sin(2 * np.pi * (xx * (1 + c) + yy * (2 - c) / 2) + c) for c in range(3)])
-        x = (base + 0.3 * rng.standard_normal((3, SIZE, SIZE)))[None].astype(np.float32)
+        x = (base + 0.3 * rng.standard_normal((3, size, size)))[None].astype(np.float32)
         path = os.path.join(OUT, f"{name}.onnx")
         export(net, torch.from_numpy(x), path, exporter, opset)
         m = onnx.load(path)
@@ -287,9 +387,9 @@ def main():
         np.save(os.path.join(OUT, f"{name}.grad.npy"), g.numpy())
         ops = sorted({n.op_type for n in m.graph.node})
         manifest["nets"][name] = {"exporter": exporter, "opset": opset, "ops": ops, "target": target,
-                                  "bytes": os.path.getsize(path)}
+                                  "bytes": os.path.getsize(path), "size": size}
         print(f"{name:13s} {exporter:6s} opset {opset}  {os.path.getsize(path):7d} B  {' '.join(ops)}")
-    with open(os.path.join(OUT, "manifest.json"), "w") as f:
+    with open(mpath, "w") as f:
         json.dump(manifest, f, indent=1, sort_keys=True)
         f.write("\n")
 

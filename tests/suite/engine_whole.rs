@@ -207,7 +207,7 @@ fn a_trained_third_party_classifier_matches_onnxruntime() {
     );
     let path = pkg.join("models/ch_ppocr_mobile_v2.0_cls_infer.onnx");
     assert!(path.exists(), "{} missing: .ci/run installs tests/reference/requirements-models.txt", path.display());
-    let m = Model::load(&path, &LoadOptions { input_shape: Some(vec![1, 3, 48, 192]) }).unwrap();
+    let m = Model::load(&path, &LoadOptions { input_shape: Some(vec![1, 3, 48, 192]), ..Default::default() }).unwrap();
     m.gradient_ready().unwrap();
     // A line of dark glyph-like strokes on light paper, scaled as the package feeds it
     // ((v / 255 − 0.5) / 0.5, from memory of its preprocessing; any scaling serves the check).

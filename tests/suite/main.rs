@@ -37,4 +37,5 @@ mod regions_figures;
 mod regions_finders;
 mod regions_flag;
 mod sweep;
+mod transformers;
 mod window_values;

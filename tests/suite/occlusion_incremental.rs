@@ -53,6 +53,14 @@ fn incremental_occlusion_equals_plain_forwards() {
         // Windows of 8 every 5 pixels on 40×40: edges, overlaps and a ragged last window.
         check(name, &m, &x, 8, 5, Tap::Output, name != "mixed");
     }
+    // The transformer and layer-norm families (32×32): attention and global token mixing sit
+    // in the tail, which runs whole; ConvNeXt's depthwise stem and MaxViT's convolutional stem
+    // can still run on crops.
+    for name in ["vit", "swin", "swin2", "convnext", "maxvit"] {
+        let m = Model::load(&dir.join(format!("{name}.onnx")), &LoadOptions::default()).unwrap();
+        let x = read_tensor(&dir.join(format!("{name}.x.npy"))).unwrap();
+        check(name, &m, &x, 8, 5, Tap::Output, false);
+    }
     // A graph with nothing to crop (flatten and gemm) takes the plain-forward path.
     let linear = Model::load(&crate::common::fixture("methods/linear.onnx"), &LoadOptions::default()).unwrap();
     let x = ArrayD::from_shape_fn(ndarray::IxDyn(&[1, 1, 8, 8]), |i| ((i[2] * 8 + i[3]) as f32 * 0.37).sin());

@@ -41,7 +41,10 @@ fn compare(m: &Model, x: &ArrayD<f32>, xb: &ArrayD<f32>, tap: Tap) -> (f64, usiz
 #[test]
 fn path_sums_with_the_affine_head_cut_off_equal_whole_gradients() {
     let dir = crate::common::fixture("torch");
-    for name in ["resnet", "mobilenet2", "mobilenet3", "efficientnet", "densenet", "squeezenet", "vgg", "mixed"] {
+    for name in [
+        "resnet", "mobilenet2", "mobilenet3", "efficientnet", "densenet", "squeezenet", "vgg", "mixed", "vit", "swin", "swin2",
+        "convnext", "maxvit",
+    ] {
         let m = Model::load(&dir.join(format!("{name}.onnx")), &LoadOptions::default()).unwrap();
         let x = read_tensor(&dir.join(format!("{name}.x.npy"))).unwrap();
         let xb = x.mapv(|v| 0.25 * v - 0.1);
