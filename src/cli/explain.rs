@@ -92,6 +92,9 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     }
     let model = a.model.load_for(&a.input)?;
     let (input, card) = load_input(&model, &a.model, &a.input)?;
+    if let (Some(c), Some(_)) = (&card, &a.input.image) {
+        super::warn_guessed_feed(c, &model);
+    }
     let drawn = match &a.ledger {
         Some(l) => drawn_from_ledger(l, &a.input, &input)?,
         None => Vec::new(),
