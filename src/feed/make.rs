@@ -133,7 +133,14 @@ pub fn read_labels(path: &Path, outputs: usize) -> Result<Vec<String>> {
 /// The card's text: a header saying where it came from, then the TOML.
 pub fn card_text(card: &FeedCard, model: &Path, how: &str) -> Result<String> {
     let name = model.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
-    let body = toml::to_string(card).context("writing the feed card as TOML")?;
+    let mut table = toml::Table::try_from(card).context("writing the feed card as TOML")?;
+    // No labels given: none written (the card then names outputs "class N").
+    if card.output.labels.is_empty()
+        && let Some(out) = table.get_mut("output").and_then(|o| o.as_table_mut())
+    {
+        out.remove("labels");
+    }
+    let body = toml::to_string(&table).context("writing the feed card as TOML")?;
     Ok(format!(
         "# Feed card of {name}, written by `spurion card` ({how}).\n\
          # Size, layout and channels were read from the graph; check the rest against how the model\n\

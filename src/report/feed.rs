@@ -26,8 +26,8 @@ pub enum FeedRecord {
 pub struct PictureFeed {
     #[serde(flatten)]
     pub summary: FeedSummary,
-    /// The picture as decoded: rows, columns, channels, bits per sample.
-    pub picture: [usize; 4],
+    /// The picture as decoded, before resizing.
+    pub picture: PictureSize,
     /// The frame of a multi-frame DICOM file (0 for other images).
     pub frame: usize,
     /// How the picture's channels became the model's: same, replicate (grey to three) or luma.
@@ -42,6 +42,15 @@ pub struct PictureFeed {
     /// The card's input section exactly as used: with the picture and `frame` it makes the
     /// same tensor again, bit for bit (`spurion feed --from-reading`).
     pub input: InputCard,
+}
+
+/// A picture's size as decoded: rows, columns, channels, bits per sample in the file.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+pub struct PictureSize {
+    pub height: usize,
+    pub width: usize,
+    pub channels: usize,
+    pub bit_depth: u8,
 }
 
 const TENSOR_NOTE: &str = "a tensor file is fed exactly as given: no feed card, resizing or normalisation applies";
@@ -59,7 +68,7 @@ impl FeedRecord {
         let card = feeder.card();
         FeedRecord::Picture(Box::new(PictureFeed {
             summary: card.summary(model_file),
-            picture: [picture.height(), picture.width(), picture.channels(), picture.bit_depth as usize],
+            picture: PictureSize { height: picture.height(), width: picture.width(), channels: picture.channels(), bit_depth: picture.bit_depth },
             frame: picture.dicom.as_ref().map_or(0, |d| d.frame),
             channel_rule: feeder.channel_rule(),
             standardise: feeder.standardise(),
@@ -67,6 +76,24 @@ impl FeedRecord {
             tensor_shape: card.tensor_shape(),
             input: card.input.clone(),
         }))
+    }
+}
+
+impl PictureFeed {
+    /// What this picture made of the feed, as lines for people (the inspector's Feed window).
+    pub fn picture_lines(&self) -> Vec<String> {
+        let p = &self.picture;
+        let mut out = vec![
+            format!("picture       {}×{}, {} channel(s), {} bits (frame {})", p.width, p.height, p.channels, p.bit_depth, self.frame),
+            format!("channels      {}", serde_json::to_value(self.channel_rule).ok().and_then(|v| v.as_str().map(str::to_string)).unwrap_or_default()),
+        ];
+        if let Some(s) = self.standardise {
+            out.push(format!("per-image     mean {:.4}, std {:.4} (on 0..1 pixels)", s.mean, s.std));
+        }
+        if let Some(w) = &self.window_used {
+            out.push(format!("window used   {}", serde_json::to_string(&w.transform).unwrap_or_default()));
+        }
+        out
     }
 }
 
@@ -88,20 +115,17 @@ pub fn tensor_from_reading(json: &str, from: &Path, image: &Path) -> Result<ndar
     let card = FeedCard { input, output: Default::default(), origin: Default::default() };
     card.check().with_context(|| format!("the feed.input of {}", from.display()))?;
     let picture = Picture::open_with(image, &OpenOptions { frame, window: card.input.window.clone() })?;
-    if let Some(size) = feed.get("picture").and_then(|p| p.as_array()) {
-        let want: Vec<u64> = size.iter().take(3).filter_map(|x| x.as_u64()).collect();
-        let got = [picture.height() as u64, picture.width() as u64, picture.channels() as u64];
-        if want.len() == 3 && want != got {
+    let size = |k: &str| feed.get("picture").and_then(|p| p.get(k)).and_then(|v| v.as_u64());
+    if let (Some(h), Some(w), Some(c)) = (size("height"), size("width"), size("channels")) {
+        let got = (picture.height() as u64, picture.width() as u64, picture.channels() as u64);
+        if got != (h, w, c) {
             bail!(
-                "{} is {}×{} with {} channel(s) but the reading in {} read a picture of {}×{} with {}; give the image that was read",
+                "{} is {}×{} with {} channel(s) but the reading in {} read a picture of {w}×{h} with {c}; give the image that was read",
                 image.display(),
-                got[1],
-                got[0],
-                got[2],
-                from.display(),
-                want[1],
-                want[0],
-                want[2]
+                got.1,
+                got.0,
+                got.2,
+                from.display()
             );
         }
     }

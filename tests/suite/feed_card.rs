@@ -123,7 +123,7 @@ fn the_feed_in_reading_json_makes_the_read_tensor_again_bit_for_bit() {
         assert_eq!(feed["normalise"]["from"], "card");
         assert_eq!(feed["size"]["from"], "card", "spurion card writes the size it read from the graph");
         assert_eq!(feed["resize"]["value"], "shorter-side-crop");
-        assert_eq!(feed["picture"], serde_json::json!([50, 70, 3, 8]));
+        assert_eq!(feed["picture"], serde_json::json!({"height": 50, "width": 70, "channels": 3, "bit_depth": 8}));
         assert_eq!(feed["standardise"].is_object(), preset == "per-image", "{feed}");
         assert_eq!(reading["labels"], serde_json::json!(["clear", "hazy", "marked"]));
 
@@ -152,6 +152,11 @@ fn the_feed_in_reading_json_makes_the_read_tensor_again_bit_for_bit() {
         let y = spurion::methods::Input::picture(pic, &now).unwrap().model_tensor().unwrap();
         assert!(y.iter().zip(t.iter()).any(|(a, b)| a != b), "{preset}: the unit card fed the same tensor");
     }
+    // Another picture than the one read is refused, saying which.
+    let (other, _) = picture(dir.path(), "other", 40, 40);
+    let o = spurion(&["feed", "--from-reading", s(&dir.path().join("r-imagenet/reading.json")), "--image", s(&other), "--out", s(&dir.path().join("no.npy"))]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("give the image that was read"), "{}", String::from_utf8_lossy(&o.stderr));
     // A reading of a tensor file records that and refuses to be fed again.
     let out = dir.path().join("r-tensor");
     let x = dir.path().join("x.npy");

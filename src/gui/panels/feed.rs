@@ -22,6 +22,13 @@ pub fn feed_window(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
         for l in feed.lines() {
             ui.monospace(l);
         }
+        if let Some(crate::report::FeedRecord::Picture(p)) = app.current_prepared().map(|p| p.feed.clone()) {
+            ui.add_space(4.0);
+            ui.label(RichText::new("The picture on the slide").color(look::ASH));
+            for l in p.picture_lines() {
+                ui.monospace(l);
+            }
+        }
         if let Some(w) = &feed.warning {
             ui.add_space(4.0);
             ui.label(RichText::new(w).color(look::LILAC));
@@ -37,8 +44,8 @@ pub fn feed_window(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>
             ui.radio_value(&mut app.feed_window.preset, i, format!("{}: {}", p.name(), p.describe()));
         }
         ui.horizontal(|ui| {
-            ui.label("labels file (one per line, optional)");
-            ui.text_edit_singleline(&mut app.feed_window.labels);
+            let l = ui.label("labels file (one per line, optional)");
+            ui.add(egui::TextEdit::singleline(&mut app.feed_window.labels).hint_text("path/to/labels.txt").desired_width(220.0)).labelled_by(l.id);
         });
         if ui.button("Write the card and use it").clicked() {
             let labels = app.feed_window.labels.trim();
