@@ -98,6 +98,9 @@ pub fn compute(a: &ExplainArgs, ctl: &Control) -> Result<Explained> {
     let req = a.reading.request()?;
     let model = a.model.load_for(&a.input)?;
     let (input, card) = load_input(&model, &a.model, &a.input)?;
+    if let (Some(c), Some(_)) = (&card, &a.input.image) {
+        super::warn_guessed_feed(c, &model);
+    }
     let drawn = drawn_regions(a, &input)?;
     compute_on(&model, card.as_ref(), input, drawn, &req, ctl)
 }

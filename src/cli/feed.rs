@@ -1,5 +1,6 @@
 //! `spurion feed`: an image exactly as it is decoded and windowed for a model, before resizing
-//! and normalisation, so that users and tests can see what the model gets.
+//! and normalisation, so that users and tests can see what the model gets; with
+//! `--from-reading`, the model-input tensor a reading was made of, from its reading.json alone.
 
 use std::path::PathBuf;
 
@@ -16,17 +17,29 @@ pub struct FeedArgs {
     pub image: PathBuf,
     /// The feed card whose window to use (default: the file's own window for DICOM, all values
     /// for 16-bit images).
-    #[arg(long)]
+    #[arg(long, conflicts_with = "from_reading")]
     pub feed: Option<PathBuf>,
+    /// A reading.json (or review.json): write the model-input tensor that reading was made of,
+    /// resized, normalised and laid out by the feed it records (batch 1, float32), instead of
+    /// the decoded picture.
+    #[arg(long, value_name = "READING_JSON")]
+    pub from_reading: Option<PathBuf>,
     /// The frame of a multi-frame DICOM file, from 0.
     #[arg(long, default_value_t = 0)]
     pub frame: usize,
-    /// The .npy to write: float32, H×W×C, values 0..1.
+    /// The .npy to write: float32, H×W×C, values 0..1 (with --from-reading: the model's input).
     #[arg(long)]
     pub out: PathBuf,
 }
 
 pub fn run(a: &FeedArgs) -> Result<()> {
+    if let Some(r) = &a.from_reading {
+        let text = std::fs::read_to_string(r).with_context(|| format!("cannot read {}", r.display()))?;
+        let t = crate::report::tensor_from_reading(&text, r, &a.image)?;
+        write_tensor(&a.out, &t).with_context(|| format!("writing {}", a.out.display()))?;
+        println!("{}: the model-input tensor {:?} of the reading in {} → {}", a.image.display(), t.shape(), r.display(), a.out.display());
+        return Ok(());
+    }
     let window = match &a.feed {
         Some(p) => FeedCard::load(p)?.input.window,
         None => None,

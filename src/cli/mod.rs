@@ -2,6 +2,7 @@
 //! and what to do; exit codes: 0 done, 1 bad input or failed computation, 2 usage error, 130
 //! cancelled with Ctrl-C.
 
+mod card;
 pub mod explain;
 mod feed;
 pub mod ledger;
@@ -53,8 +54,12 @@ pub enum Command {
     /// Border bands and burned-in marks of an image, found without any model.
     Regions(RegionsArgs),
     /// An image exactly as it is decoded and windowed for the model (before resizing and
-    /// normalisation), as a float32 .npy.
+    /// normalisation), as a float32 .npy; with --from-reading, the model-input tensor a reading
+    /// was made of, again from its reading.json.
     Feed(feed::FeedArgs),
+    /// Writes a model's feed card (MODEL.feed.toml) in one step: size, layout and channels from
+    /// the graph, the normalisation from a preset or --mean/--std, labels from a text file.
+    Card(card::CardArgs),
     /// One reading per image over a folder: a table, each group's atlas and a self-contained
     /// report; resumable, and sliced into shards for a cluster's scheduler.
     Sweep(sweep::SweepArgs),
@@ -151,11 +156,7 @@ impl ModelArgs {
     /// The feed card: the one named, the sidecar, or one inferred from the graph.
     pub fn card(&self, model: &Model) -> Result<crate::feed::FeedCard> {
         match &self.feed {
-            Some(p) => {
-                let c = crate::feed::FeedCard::load(p)?;
-                c.check_against(model)?;
-                Ok(c)
-            }
+            Some(p) => crate::feed::FeedCard::load(p)?.for_model_graph(model),
             None => crate::feed::FeedCard::for_loaded(model),
         }
     }
@@ -267,17 +268,32 @@ pub fn run(command: Command) -> Result<()> {
         Command::Regions(a) => regions::run(&a.image, a.out.as_deref(), &Default::default()),
         Command::Demo(a) => demo(&a),
         Command::Feed(a) => feed::run(&a),
+        Command::Card(a) => card::run(&a),
         Command::Sweep(a) => sweep::run(&a),
         Command::SweepMerge(a) => sweep::merge(&a),
         Command::Ledger(a) => ledger::run(&a),
     }
 }
 
+/// Says once, on the terminal, that the feed is only guessed (see `FeedCard::guess_warning`).
+pub(crate) fn warn_guessed_feed(card: &crate::feed::FeedCard, model: &Model) {
+    if let Some(w) = card.guess_warning(model.path()) {
+        eprintln!("warning: {w}");
+    }
+}
+
 fn info(a: &InfoArgs) -> Result<()> {
     let m = a.model.load()?;
     let info = m.info();
+    // The feed a reading of an image would use (a model that takes no image has none).
+    let feed = a.model.card(&m).map(|c| c.summary(m.path()));
     if a.json {
-        println!("{}", serde_json::to_string_pretty(&info)?);
+        let mut v = serde_json::to_value(&info)?;
+        v["feed"] = match &feed {
+            Ok(f) => serde_json::to_value(f)?,
+            Err(e) => serde_json::json!({ "none": format!("{e:#}") }),
+        };
+        println!("{}", serde_json::to_string_pretty(&v)?);
         return Ok(());
     }
     println!("model    {}", info.path.display());
@@ -290,6 +306,18 @@ fn info(a: &InfoArgs) -> Result<()> {
         println!("output   {}  {:?}{scored}", t.name, t.shape);
     }
     println!("ends in softmax: {}", if info.ends_in_softmax { "yes" } else { "no" });
+    println!("\nfeed of an image (each value's origin in brackets: card, graph or default):");
+    match &feed {
+        Ok(f) => {
+            for l in f.lines() {
+                println!("  {l}");
+            }
+            if let Some(w) = &f.warning {
+                println!("warning: {w}");
+            }
+        }
+        Err(e) => println!("  none: {e:#}"),
+    }
     println!("\nONNX operators:");
     for o in &info.onnx_ops {
         println!("  {:<28} {:>5}", o.op, o.count);
@@ -347,6 +375,9 @@ pub fn load_input(
 fn predict(a: &PredictArgs) -> Result<()> {
     let m = a.model.load_for(&a.input)?;
     let (input, card) = load_input(&m, &a.model, &a.input)?;
+    if let (Some(c), Some(_)) = (&card, &a.input.image) {
+        warn_guessed_feed(c, &m);
+    }
     let x = input.model_tensor()?;
     let out = m.forward(&x, crate::model::Tap::Output)?;
     let labels: Vec<String> =

@@ -15,7 +15,7 @@ use super::reading_args::ReadingArgs;
 use super::{InputArgs, ModelArgs, load_input};
 use crate::methods::catalog::{MethodKind, method_names};
 use crate::methods::{Baseline, Method};
-use crate::report::ReviewFile;
+use crate::report::{FeedRecord, ReviewFile};
 use crate::review::convergence::ConvergenceSettings;
 use crate::review::curves::CurveSettings;
 use crate::review::randomise::CascadeSettings;
@@ -176,6 +176,9 @@ fn compute_and_write(
     let settings = a.settings()?;
     let model = a.model.load_for(&a.input)?;
     let (input, card) = load_input(&model, &a.model, &a.input)?;
+    if let (Some(c), Some(_)) = (&card, &a.input.image) {
+        super::warn_guessed_feed(c, &model);
+    }
     // The second model is loaded before any work, so a bad path fails at once.
     let second = match &a.against {
         Some(p) => {
@@ -201,7 +204,7 @@ fn compute_and_write(
     });
     std::fs::create_dir_all(&out).with_context(|| format!("cannot create output folder {} (check permissions or choose another --out)", out.display()))?;
     let case = review::Case::new(&model, card.as_ref(), &input, &req, &r.reading)?;
-    write_json(&out.join("review.json"), &ReviewFile::new(&r, case.rule(), against.as_ref()).to_json()?)?;
+    write_json(&out.join("review.json"), &ReviewFile::new(&r, case.rule(), against.as_ref()).with_feed(FeedRecord::of_input(&input, model.path())).to_json()?)?;
     let pixels = backdrop(&input, &r.reading.map2d());
     crate::render::save(&out.join("review.png"), &crate::render::review_panel(&r, against.as_ref(), &pixels, sign))?;
     Ok((r, against, out))

@@ -148,6 +148,7 @@ pub fn run_with(a: &SweepArgs, ctl: &crate::control::Control) -> Result<(ShardRe
     }
     let model = a.model.load()?;
     let card = a.model.card(&model)?;
+    super::warn_guessed_feed(&card, &model);
     let mut items = sweep::plan(&a.images, &groups, &exclude, shard)?;
     let ledger = a.ledger.as_deref().map(|l| Ledger::open(&Ledger::file_for(l))).transpose()?;
     // Each image's key in the ledger (an image outside the ledger's root has none).

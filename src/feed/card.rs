@@ -14,6 +14,7 @@
 //! scale = "unit"             # unit: pixels 0..1 | byte: pixels 0..255
 //! mean = [0.5]               # per channel, subtracted after scaling
 //! std = [0.25]               # per channel, divided after the mean
+//! normalise = "fixed"        # fixed: mean and std above | per-image: the picture's own mean and std
 //! window = "file"            # DICOM / 16-bit: file | { file = N } | { center = C, width = W } | min-max | full-range
 //!
 //! [output]
@@ -27,6 +28,7 @@ use std::path::{Path, PathBuf};
 use anyhow::{Context, Result, bail};
 use serde::{Deserialize, Serialize};
 
+use super::origin::CardOrigin;
 use super::window::Windowing;
 use crate::model::{LoadOptions, Model};
 
@@ -62,6 +64,24 @@ pub enum Scale {
     Byte,
 }
 
+/// Where the mean and std come from.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Normalise {
+    /// The card's `mean` and `std`.
+    #[default]
+    Fixed,
+    /// The picture's own mean and standard deviation on the model grid, over all pixels and
+    /// channels (see `feed::prepare`); the card then gives no mean or std.
+    PerImage,
+}
+
+impl Normalise {
+    fn is_fixed(&self) -> bool {
+        *self == Normalise::Fixed
+    }
+}
+
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum OutputKind {
@@ -94,6 +114,10 @@ pub struct InputCard {
     /// and TIFF. 8-bit images are always v / 255.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub window: Option<Windowing>,
+    /// Fixed `mean`/`std`, or per-image standardisation. Left out of the written card when
+    /// fixed, so cards and sweep cache keys from before it read the same.
+    #[serde(default, skip_serializing_if = "Normalise::is_fixed")]
+    pub normalise: Normalise,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -123,6 +147,9 @@ pub struct FeedCard {
     pub input: InputCard,
     #[serde(default)]
     pub output: OutputCard,
+    /// Where the card and each of its fields came from (not part of the file).
+    #[serde(skip)]
+    pub origin: CardOrigin,
 }
 
 fn default_layout() -> Layout {
@@ -149,7 +176,7 @@ impl FeedCard {
     pub fn load(path: &Path) -> Result<FeedCard> {
         let text = std::fs::read_to_string(path)
             .with_context(|| format!("cannot read feed card {}", path.display()))?;
-        let card: FeedCard = toml::from_str(&text).map_err(|e| {
+        let mut card: FeedCard = toml::from_str(&text).map_err(|e| {
             anyhow::anyhow!(
                 "feed card {} is not valid: {}\nSee the example in DEVELOPERS.md (section \"Feed cards\").",
                 path.display(),
@@ -157,6 +184,7 @@ impl FeedCard {
             )
         })?;
         card.check().with_context(|| format!("feed card {}", path.display()))?;
+        card.origin = CardOrigin::of_file(path, &text);
         Ok(card)
     }
 
@@ -186,15 +214,23 @@ impl FeedCard {
         })
     }
 
-    /// The card beside the model, else one inferred from the graph.
+    /// The card beside the model, else one inferred from the graph; either way with what the
+    /// graph does to its input itself (see [`CardOrigin::graph_normalises`]).
     pub fn for_loaded(model: &Model) -> Result<FeedCard> {
-        match Self::for_model(model.path())? {
-            Some(c) => {
-                c.check_against(model)?;
-                Ok(c)
-            }
-            None => Self::infer(model),
+        let c = match Self::for_model(model.path())? {
+            Some(c) => c,
+            None => Self::infer(model)?,
+        };
+        c.for_model_graph(model)
+    }
+
+    /// A card read from a file, checked against `model`, with what the graph does to its input.
+    pub fn for_model_graph(mut self, model: &Model) -> Result<FeedCard> {
+        if self.origin.file.is_some() {
+            self.check_against(model)?;
         }
+        self.origin.graph_normalises = model.input_normalisation();
+        Ok(self)
     }
 
     /// A card guessed from the model's input shape: layout from where the 1 or 3 channel axis
@@ -236,12 +272,14 @@ impl FeedCard {
                 mean: vec![0.0; c],
                 std: vec![1.0; c],
                 window: None,
+                normalise: Normalise::Fixed,
             },
             output: OutputCard {
                 kind,
                 labels: (0..model.output_len()).map(|i| format!("class {i}")).collect(),
                 name: None,
             },
+            origin: CardOrigin { graph_normalises: model.input_normalisation(), ..CardOrigin::default() },
         })
     }
 
@@ -270,7 +308,7 @@ impl FeedCard {
         (expand(&self.input.mean, 0.0), expand(&self.input.std, 1.0))
     }
 
-    fn check(&self) -> Result<()> {
+    pub(crate) fn check(&self) -> Result<()> {
         let i = &self.input;
         if !matches!(i.channels, 1 | 3) {
             bail!("input.channels is {}; spurion feeds 1- or 3-channel images", i.channels);
@@ -288,6 +326,12 @@ impl FeedCard {
         }
         if i.std.iter().any(|s| *s == 0.0) {
             bail!("input.std has a zero; division by zero would make every input infinite");
+        }
+        if i.normalise == Normalise::PerImage && !(i.mean.is_empty() && i.std.is_empty()) {
+            bail!(
+                "input.normalise is \"per-image\", which takes the picture's own mean and std, but the card \
+                 also gives input.mean or input.std; remove them, or set normalise = \"fixed\""
+            );
         }
         Ok(())
     }

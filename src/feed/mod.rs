@@ -2,13 +2,17 @@
 
 mod card;
 pub mod dicom;
+mod make;
+mod origin;
 mod picture;
 mod prepare;
 pub mod window;
 
-pub use card::{FeedCard, GreyRule, InputCard, Layout, OutputCard, OutputKind, Resize, Scale};
+pub use card::{FeedCard, GreyRule, InputCard, Layout, Normalise, OutputCard, OutputKind, Resize, Scale};
+pub use make::{CardSpec, Preset, card_for, card_text, read_labels, write_card};
+pub use origin::{CardOrigin, FeedSummary, Origin};
+pub use prepare::{ChannelRule, Feeder, Standardise, axis_weights, grid_to_tensor};
 pub use picture::{IMAGE_ENDINGS, LUMA, OpenOptions, Picture, default_dicom_window, is_image_file, list_images, luminance};
-pub use prepare::{ChannelRule, Feeder, axis_weights, grid_to_tensor, tensor_to_grid};
 
 use std::path::Path;
 

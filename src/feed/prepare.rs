@@ -4,6 +4,11 @@
 //! normalisation: [`Feeder::prepare`] resamples the picture onto the model's grid (H×W×C, values
 //! still 0..1), [`Feeder::normalise`] scales, normalises and lays it out as the tensor.
 //!
+//! Per-image standardisation (`normalise = "per-image"`) takes the mean and standard deviation of
+//! the picture being read, on the model grid, once ([`Feeder::for_picture`]), and applies the
+//! same two numbers to every variant of it a method feeds (baselines, occluded and painted
+//! copies, path points): the feed stays one affine map, which the gradients go through.
+//!
 //! Resampling is linear, one weight matrix per axis whose rows sum to one: area averaging when
 //! shrinking (so 256→128 is an exact 2×2 mean), bilinear with half-pixel centres when growing.
 //! Mapping a map back uses the transpose of the same matrices, which keeps the map's total: a
@@ -13,11 +18,12 @@
 use anyhow::{Result, bail};
 use ndarray::{Array2, Array3, ArrayD, Axis, IxDyn, s};
 
-use super::card::{FeedCard, GreyRule, Layout, Resize, Scale};
+use super::card::{FeedCard, GreyRule, Layout, Normalise, Resize, Scale};
 use super::picture::{LUMA, Picture};
 
 /// How the picture's channels became the model's.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "kebab-case")]
 pub enum ChannelRule {
     Same,
     /// Gray picture replicated to three channels.
@@ -35,6 +41,27 @@ pub struct Feeder {
     rows: Array2<f32>,
     cols: Array2<f32>,
     channels: ChannelRule,
+    /// Per-image standardisation's mean and standard deviation, fixed from the picture read.
+    standardise: Option<Standardise>,
+}
+
+/// The mean and standard deviation per-image standardisation subtracts and divides by.
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct Standardise {
+    pub mean: f32,
+    pub std: f32,
+}
+
+impl Standardise {
+    /// The grid's mean and standard deviation over all pixels and channels, the deviation at
+    /// least 1/√N so that a flat picture is not divided by zero (the rule TensorFlow's
+    /// per_image_standardization documents). Sums in f64.
+    pub fn of(grid: &Array3<f32>) -> Standardise {
+        let n = grid.len().max(1) as f64;
+        let mean = grid.iter().map(|v| *v as f64).sum::<f64>() / n;
+        let var = grid.iter().map(|v| (*v as f64 - mean).powi(2)).sum::<f64>() / n;
+        Standardise { mean: mean as f32, std: var.sqrt().max(1.0 / n.sqrt()) as f32 }
+    }
 }
 
 /// Weight matrix (n_out × n_in) resampling one axis; every row sums to 1.
@@ -93,11 +120,27 @@ impl Feeder {
                 (r, c)
             }
         };
-        Ok(Feeder { card: card.clone(), src_h: h, src_w: w, rows, cols, channels })
+        Ok(Feeder { card: card.clone(), src_h: h, src_w: w, rows, cols, channels, standardise: None })
     }
 
+    /// Plans feeding `pic`; under per-image standardisation its mean and deviation are taken
+    /// here, for every variant of the picture fed later.
     pub fn for_picture(card: &FeedCard, pic: &Picture) -> Result<Feeder> {
-        Self::new(card, pic.height(), pic.width(), pic.channels())
+        let mut f = Self::new(card, pic.height(), pic.width(), pic.channels())?;
+        if card.input.normalise == Normalise::PerImage {
+            f.standardise = Some(Standardise::of(&f.prepare(&pic.pixels)?));
+        }
+        Ok(f)
+    }
+
+    /// How the picture's channels become the model's.
+    pub fn channel_rule(&self) -> ChannelRule {
+        self.channels
+    }
+
+    /// Per-image standardisation's numbers (`None` under a fixed mean and std).
+    pub fn standardise(&self) -> Option<Standardise> {
+        self.standardise
     }
 
     pub fn card(&self) -> &FeedCard {
@@ -133,7 +176,15 @@ impl Feeder {
 
     /// A model-grid array (th×tw×C, 0..1) as the input tensor: scaled, normalised, laid out.
     pub fn normalise(&self, grid: &Array3<f32>) -> ArrayD<f32> {
-        grid_to_tensor(&self.card, grid)
+        to_tensor(&self.card, grid, self.standardise)
+    }
+
+    /// The inverse of [`Feeder::normalise`]: a tensor back to a 0..1 grid.
+    pub fn to_grid(&self, t: &ArrayD<f32>) -> Result<Array3<f32>> {
+        let g = tensor_to_grid_layout(&self.card, t)?;
+        let (mean, std) = per_channel(&self.card, self.standardise);
+        let scale = scale_of(&self.card);
+        Ok(Array3::from_shape_fn(g.dim(), |(y, x, k)| (g[[y, x, k]] * std[k] + mean[k]) / scale))
     }
 
     /// `prepare` then `normalise`.
@@ -164,13 +215,32 @@ impl Feeder {
     }
 }
 
-/// Scales, normalises and lays out a grid (th×tw×C, 0..1) as the card's tensor.
-pub fn grid_to_tensor(card: &FeedCard, grid: &Array3<f32>) -> ArrayD<f32> {
-    let (mean, std) = card.mean_std();
-    let scale = match card.input.scale {
+fn scale_of(card: &FeedCard) -> f32 {
+    match card.input.scale {
         Scale::Unit => 1.0,
         Scale::Byte => 255.0,
+    }
+}
+
+/// The per-channel mean and std subtracted and divided by after scaling.
+fn per_channel(card: &FeedCard, standardise: Option<Standardise>) -> (Vec<f32>, Vec<f32>) {
+    match (card.input.normalise, standardise) {
+        (Normalise::PerImage, Some(s)) => {
+            let c = card.input.channels;
+            let k = scale_of(card);
+            (vec![s.mean * k; c], vec![s.std * k; c])
+        }
+        _ => card.mean_std(),
+    }
+}
+
+fn to_tensor(card: &FeedCard, grid: &Array3<f32>, standardise: Option<Standardise>) -> ArrayD<f32> {
+    let standardise = match card.input.normalise {
+        Normalise::PerImage => Some(standardise.unwrap_or_else(|| Standardise::of(grid))),
+        Normalise::Fixed => None,
     };
+    let (mean, std) = per_channel(card, standardise);
+    let scale = scale_of(card);
     let (h, w, c) = grid.dim();
     let v = |y: usize, x: usize, k: usize| (grid[[y, x, k]] * scale - mean[k]) / std[k];
     match card.input.layout {
@@ -179,15 +249,10 @@ pub fn grid_to_tensor(card: &FeedCard, grid: &Array3<f32>) -> ArrayD<f32> {
     }
 }
 
-/// The inverse of [`grid_to_tensor`]: a tensor back to a 0..1 grid (for showing baselines).
-pub fn tensor_to_grid(card: &FeedCard, t: &ArrayD<f32>) -> Result<Array3<f32>> {
-    let (mean, std) = card.mean_std();
-    let scale = match card.input.scale {
-        Scale::Unit => 1.0,
-        Scale::Byte => 255.0,
-    };
-    let g = tensor_to_grid_layout(card, t)?;
-    Ok(Array3::from_shape_fn(g.dim(), |(y, x, k)| (g[[y, x, k]] * std[k] + mean[k]) / scale))
+/// Scales, normalises and lays out a grid (th×tw×C, 0..1) as the card's tensor; per-image
+/// standardisation takes this grid's own mean and deviation.
+pub fn grid_to_tensor(card: &FeedCard, grid: &Array3<f32>) -> ArrayD<f32> {
+    to_tensor(card, grid, None)
 }
 
 /// Reorders a batch-1 tensor to th×tw×C without touching values.
@@ -222,8 +287,10 @@ mod tests {
                 mean: vec![10.0],
                 std: vec![2.0],
                 window: None,
+                normalise: Normalise::Fixed,
             },
             output: OutputCard::default(),
+            origin: Default::default(),
         }
     }
 
@@ -251,7 +318,7 @@ mod tests {
         assert_eq!(t.shape(), &[1, 2, 2, 3]);
         assert_eq!(t[[0, 0, 0, 2]], (255.0 - 10.0) / 2.0);
         assert_eq!(t[[0, 1, 1, 0]], -5.0);
-        let back = tensor_to_grid(&c, &t).unwrap();
+        let back = f.to_grid(&t).unwrap();
         assert!((back[[0, 0, 1]] - 1.0).abs() < 1e-6);
     }
 

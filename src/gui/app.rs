@@ -38,6 +38,8 @@ pub struct Inspector {
     pub path_field: String,
     pub export_dir: String,
     pub show_about: bool,
+    /// The feed window: the feed used and, without a card, writing one.
+    pub feed_window: FeedWindow,
     /// The slide's reading job, and the key it computes.
     pub slide_job: Option<(Key, JobId)>,
     pub strip_job: Option<JobId>,
@@ -58,6 +60,15 @@ pub struct Inspector {
     /// The window was asked to close: it closes once the ledger's changes are saved (or the
     /// user, told what is not saved, closes it anyway).
     pub closing: bool,
+}
+
+/// The feed window's state: shown or not, the preset chosen, a labels file typed.
+#[derive(Clone, Debug, Default)]
+pub struct FeedWindow {
+    pub open: bool,
+    /// An index into `feed::Preset::ALL`.
+    pub preset: usize,
+    pub labels: String,
 }
 
 impl Inspector {
@@ -86,6 +97,7 @@ impl Inspector {
             path_field: String::new(),
             export_dir: default_export_dir().display().to_string(),
             show_about: false,
+            feed_window: FeedWindow::default(),
             slide_job: None,
             strip_job: None,
             tex: Textures::default(),
@@ -166,6 +178,7 @@ impl Inspector {
         // The centre shows the slide, or the review of the slide's reading.
         if self.review.open { panels::review_panel(ui, self, &mut intents) } else { panels::slide(ui, self, &mut intents) }
         panels::about(ui, self, &mut intents);
+        panels::feed_window(ui, self, &mut intents);
         panels::unsaved_on_close(ui, self, &mut intents);
         panels::drop_hint(ui);
 

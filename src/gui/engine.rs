@@ -19,18 +19,20 @@ use super::state::{Drawn, Prepared, Session, Shown};
 
 pub fn load_session(path: &Path) -> Result<Session> {
     let model = Model::load(path, &FeedCard::sidecar_load_options(path)?)?;
-    let beside = FeedCard::sidecar_path(path).exists();
     let card = FeedCard::for_loaded(&model)?;
     let labels = (0..model.output_len()).map(|i| card.label(i)).collect();
-    let card_note = if beside {
+    let card_note = if !card.guessed() {
         "feed card beside the model".to_string()
-    } else {
+    } else if card.origin.graph_normalises.is_some() {
         format!(
-            "no {} beside the model, so the feed card is guessed from the graph; check it",
+            "no {} beside the model; the graph normalises its input itself, the rest of the feed is guessed from the graph",
             short(&FeedCard::sidecar_path(path))
         )
+    } else {
+        format!("no {} beside the model, so the feed is guessed; see Feed…", short(&FeedCard::sidecar_path(path)))
     };
-    Ok(Session { model: Arc::new(model), card: Arc::new(card), labels, card_note })
+    let feed = card.summary(path);
+    Ok(Session { model: Arc::new(model), card: Arc::new(card), labels, card_note, feed })
 }
 
 fn short(p: &Path) -> String {
@@ -56,7 +58,8 @@ pub fn prepare(session: &Session, path: &Path) -> Result<Prepared> {
         let (pixels, fill) = paint_out_all(&picture.pixels, &regions);
         (paint::picture_image(&picture.with_pixels(pixels)), fill)
     });
-    Ok(Prepared { picture: Arc::new(picture), scores, regions, region_edges, base_image, painted })
+    let feed = crate::report::FeedRecord::of_picture(&picture, &feeder, session.model.path());
+    Ok(Prepared { picture: Arc::new(picture), scores, regions, region_edges, base_image, painted, feed })
 }
 
 /// A DICOM picture's values through a display window, as a texture image (what is shown, not
@@ -100,4 +103,15 @@ fn assess(session: &Session, prepared: &Prepared, input: &Input, reading: Arc<Re
         (paint::picture_image(&prepared.picture.with_pixels(pixels)), fill)
     });
     Ok(Shown { reading, map, spread, assessment, drawn_edges, painted })
+}
+
+/// Writes a feed card beside the session's model from `preset` (and a labels file), then loads
+/// the model again so that the card is used. Refuses to replace a card that exists.
+pub fn write_card(session: &Session, preset: crate::feed::Preset, labels: Option<std::path::PathBuf>) -> Result<Session> {
+    let path = session.model.path();
+    let spec = crate::feed::CardSpec { preset: Some(preset), labels, ..Default::default() };
+    let card = crate::feed::card_for(&session.model, &spec)?;
+    let text = crate::feed::card_text(&card, path, &format!("preset {}, from the inspector", preset.name()))?;
+    crate::feed::write_card(&FeedCard::sidecar_path(path), &text, false)?;
+    load_session(path)
 }

@@ -174,7 +174,10 @@ pub fn strip_image(prepared: &Prepared, tiles: &[(String, Arc<Shown>)], sign: Si
 /// The reading as JSON: the same file `spurion explain` writes ([`crate::report::ReadingFile`]),
 /// with the regions and flag the inspector already found.
 pub fn reading_json(prepared: &Prepared, shown: &Shown) -> Result<serde_json::Value> {
-    ReadingFile::new(&shown.reading, Some(shown.assessment.clone())).with_picture(&prepared.picture, false).to_json()
+    ReadingFile::new(&shown.reading, Some(shown.assessment.clone()))
+        .with_picture(&prepared.picture, false)
+        .with_feed(prepared.feed.clone())
+        .to_json()
 }
 
 impl ExportJob {

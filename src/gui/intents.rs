@@ -24,6 +24,11 @@ pub enum Intent {
     ComputeStrip,
     Export(ExportWhat),
     About(bool),
+    /// Show or hide the feed window.
+    FeedWindow(bool),
+    /// Write a feed card beside the model with this preset (an index into `feed::Preset::ALL`)
+    /// and labels file, then load the model again with it.
+    WriteCard(usize, Option<PathBuf>),
     Review(super::review::ReviewIntent),
     /// Keys 1–4 (0 clears): the verdict of the image on the slide.
     Verdict(Option<Verdict>),
@@ -71,6 +76,8 @@ impl Inspector {
                 Intent::ComputeStrip => self.compute_strip(),
                 Intent::Export(what) => self.export(what),
                 Intent::About(show) => self.show_about = show,
+                Intent::FeedWindow(show) => self.feed_window.open = show,
+                Intent::WriteCard(preset, labels) => self.write_card(preset, labels),
                 Intent::Review(r) => self.apply_review(r),
                 Intent::Verdict(v) => match self.verdict_target() {
                     Some(p) => self.set_verdict(&p, v),

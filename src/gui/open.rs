@@ -25,6 +25,24 @@ impl Inspector {
         self.model_error = None;
     }
 
+    /// Writes a feed card beside the model on a worker, then loads the model again with it (as
+    /// opening it does: the readings of the old feed are dropped).
+    pub fn write_card(&mut self, preset: usize, labels: Option<PathBuf>) {
+        let (Some(session), Some(&preset)) = (self.session.clone(), crate::feed::Preset::ALL.get(preset)) else { return };
+        if let Some(id) = self.model_job.take() {
+            self.workers.cancel(id);
+        }
+        let (p, q) = (session.model.path().to_path_buf(), session.model.path().to_path_buf());
+        let (id, _) = self.workers.spawn(
+            format!("writing the feed card of {}", short_name(&p)),
+            false,
+            move |_ctl, _| Done::Model { result: super::engine::write_card(&session, preset, labels).map_err(|e| format!("{e:#}")), path: p },
+            move |msg| Done::Model { path: q, result: Err(msg) },
+        );
+        self.model_job = Some(id);
+        self.feed_window.open = false;
+    }
+
     /// Adds images and folders to the list (an `.onnx` among them opens as the model) and shows
     /// the first image named, so a dropped or typed image is the one on the slide. A file that is
     /// neither an image nor a model is refused with a note that says what to do instead.

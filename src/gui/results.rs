@@ -22,6 +22,11 @@ impl Inspector {
                                 NoteKind::Info,
                                 format!("model {} loaded ({}; {} outputs)", short_name(&path), s.card_note, s.labels.len()),
                             );
+                            // A guessed feed is said once, and the window that writes a card offered.
+                            if let Some(w) = &s.feed.warning {
+                                self.note(NoteKind::Warning, w.clone());
+                                self.feed_window.open = true;
+                            }
                             self.recent.add_model(&path);
                             self.save_recent();
                             self.session = Some(Arc::new(s));

@@ -28,6 +28,8 @@ pub struct Session {
     pub labels: Vec<String>,
     /// Where the card came from, for the header ("beside the model" or "inferred").
     pub card_note: String,
+    /// The feed, each value with its origin (the feed window shows it).
+    pub feed: crate::feed::FeedSummary,
 }
 
 /// An image after the worker opened it: pixels, the model's scores, the regions found in it.
@@ -43,6 +45,8 @@ pub struct Prepared {
     /// The picture with every found region painted out (what the removal figures ran the model
     /// on), and the fills used; `None` when no region was found.
     pub painted: Option<(egui::ColorImage, String)>,
+    /// How this picture was fed (what a JSON export writes as `feed`).
+    pub feed: crate::report::FeedRecord,
 }
 
 /// One entry of the image list.

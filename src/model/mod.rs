@@ -8,6 +8,7 @@
 //! runs.
 
 mod load;
+mod normalises;
 mod occlude;
 mod path;
 
@@ -216,6 +217,12 @@ impl Model {
 
     pub fn ends_in_softmax(&self) -> bool {
         self.before_softmax.is_some()
+    }
+
+    /// The shift and scale by constants the graph applies to its input itself, in words, or
+    /// `None` (see `normalises`).
+    pub fn input_normalisation(&self) -> Option<String> {
+        normalises::input_normalisation(&self.graph)
     }
 
     pub fn info(&self) -> ModelInfo {

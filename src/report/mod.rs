@@ -2,9 +2,11 @@
 //! built from the engine's results (so every front end writes the same file): a reading's
 //! `reading.json`, a review's `review.json`, and a sweep's tables, pictures and report.
 
+mod feed;
 mod reading;
 mod review;
 pub mod sweep;
 
+pub use feed::{FeedRecord, PictureFeed, tensor_from_reading};
 pub use reading::{PatientData, ReadingFile, SourceFacts};
 pub use review::{ReviewFile, StripFile};

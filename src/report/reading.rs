@@ -10,6 +10,8 @@ use crate::feed::Picture;
 use crate::methods::{Input, Reading};
 use crate::regions::Assessment;
 
+use super::FeedRecord;
+
 /// The content of `reading.json`. `spurion explain` writes it, the inspector's JSON export
 /// writes it too (with the regions it already found).
 #[derive(Clone, Debug, Serialize)]
@@ -26,6 +28,9 @@ pub struct ReadingFile<'a> {
     /// The file's patient-identifying attributes, only when the user asked for them.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub patient_data: Option<PatientData>,
+    /// How the input was fed, each value with its origin (see `report::feed`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub feed: Option<FeedRecord>,
 }
 
 /// How a picture's pixels were made from its file.
@@ -87,12 +92,13 @@ impl PatientData {
 
 impl<'a> ReadingFile<'a> {
     pub fn new(reading: &'a Reading, assessment: Option<Assessment>) -> ReadingFile<'a> {
-        ReadingFile { reading, caution: crate::CAUTION, assessment, source: None, patient_data: None }
+        ReadingFile { reading, caution: crate::CAUTION, assessment, source: None, patient_data: None, feed: None }
     }
 
     /// With the facts of the picture read (`input` a tensor: none), and its patient data when
     /// `with_patient_data`.
-    pub fn with_input(self, input: &Input, with_patient_data: bool) -> ReadingFile<'a> {
+    pub fn with_input(mut self, input: &Input, with_patient_data: bool) -> ReadingFile<'a> {
+        self.feed = Some(FeedRecord::of_input(input, std::path::Path::new(&self.reading.model_file)));
         match input {
             Input::Picture { picture, .. } => self.with_picture(picture, with_patient_data),
             Input::Tensor { .. } => self,
@@ -108,6 +114,12 @@ impl<'a> ReadingFile<'a> {
         self
     }
 
+    /// With the record of how the input was fed.
+    pub fn with_feed(mut self, feed: FeedRecord) -> ReadingFile<'a> {
+        self.feed = Some(feed);
+        self
+    }
+
     /// The file as a JSON value. Fails if two parts would write the same key (a field of the
     /// reading named like one of the assessment), rather than let one silently replace the other.
     pub fn to_json(&self) -> Result<serde_json::Value> {
@@ -116,7 +128,8 @@ impl<'a> ReadingFile<'a> {
             + 1
             + self.assessment.as_ref().map_or(Ok(0), |a| serde_json::to_value(a).map(count))?
             + self.source.is_some() as usize
-            + self.patient_data.is_some() as usize;
+            + self.patient_data.is_some() as usize
+            + self.feed.is_some() as usize;
         let v = serde_json::to_value(self)?;
         // A clash shows as fewer keys than the parts hold (the map keeps one of them).
         if count(v.clone()) != expected {

@@ -11,7 +11,8 @@
 //!   `convergence_detail`: all three rules and the step counts reaching the gap;
 //! - `shapley`: `{grid, cells: [{box, label, value, stderr}], sum, score_input, score_baseline,
 //!   permutations, exact, estimator, efficiency_error}` with boxes in image pixels;
-//! - `against`: the second model's side and the maps' agreement.
+//! - `against`: the second model's side and the maps' agreement;
+//! - `feed`: how the input was fed, as in `reading.json`.
 
 use serde::Serialize;
 
@@ -55,6 +56,9 @@ pub struct ReviewFile<'a> {
     pub skipped: &'a [Skipped],
     /// Seconds per phase, in the order they ran.
     pub seconds: Vec<(&'a str, f64)>,
+    /// How the input was fed, as in reading.json.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub feed: Option<super::FeedRecord>,
 }
 
 impl<'a> ReviewFile<'a> {
@@ -95,7 +99,14 @@ impl<'a> ReviewFile<'a> {
             warnings: &r.warnings,
             skipped: &r.skipped,
             seconds: r.seconds.iter().map(|(k, v)| (k.as_str(), *v)).collect(),
+            feed: None,
         }
+    }
+
+    /// With the record of how the input was fed.
+    pub fn with_feed(mut self, feed: super::FeedRecord) -> ReviewFile<'a> {
+        self.feed = Some(feed);
+        self
     }
 
     pub fn to_json(&self) -> anyhow::Result<serde_json::Value> {

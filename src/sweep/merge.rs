@@ -45,6 +45,7 @@ pub fn merge(parts: Vec<ShardResult>, dirs: &[PathBuf]) -> Result<ShardResult> {
         cached: 0,
         ranked_maps: BTreeMap::new(),
         thumbs: BTreeMap::new(),
+        feed: first.feed.clone(),
     };
     for p in parts {
         out.thumbs.extend(p.thumbs);

@@ -43,6 +43,9 @@ pub struct ShardResult {
     /// Thumbnails already drawn (the picture and its tinted map, PNG bytes), by image path:
     /// those of shards read back from their folders for merging.
     pub thumbs: BTreeMap<String, (Vec<u8>, Vec<u8>)>,
+    /// How the images were fed, each value with its origin (`run.json`'s `feed`); `None` for a
+    /// shard written before it was recorded.
+    pub feed: Option<crate::feed::FeedSummary>,
 }
 
 /// How many images the report ranks with thumbnails.
@@ -120,5 +123,6 @@ pub fn run_shard(setup: &Setup<'_>, items: &[Item], cache: &Cache, shard: Shard,
         cached: cached.into_inner(),
         ranked_maps,
         thumbs: BTreeMap::new(),
+        feed: Some(setup.card.summary(setup.model.path())),
     })
 }

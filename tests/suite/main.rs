@@ -13,6 +13,7 @@ mod dicom_write;
 mod engine_ops;
 mod engine_torch;
 mod engine_whole;
+mod feed_card;
 mod gui_curate;
 mod gui_inspector;
 mod gui_review;

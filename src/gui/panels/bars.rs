@@ -29,6 +29,12 @@ pub fn top_bar(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
             if ui.button("Model…").on_hover_text("open an ONNX model").clicked() {
                 out.push(Intent::Pick(Pick::Model));
             }
+            if let Some(s) = &app.session {
+                let text = if s.feed.warning.is_some() { RichText::new("Feed: guessed").color(look::LILAC) } else { RichText::new("Feed") };
+                if ui.button(text).on_hover_text("how pictures are fed to the model; write a feed card").clicked() {
+                    out.push(Intent::FeedWindow(!app.feed_window.open));
+                }
+            }
             if ui.button("Images…").clicked() {
                 out.push(Intent::Pick(Pick::Images));
             }

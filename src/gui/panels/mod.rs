@@ -8,6 +8,7 @@ mod plot;
 mod review;
 mod review_strip;
 mod curate;
+mod feed;
 mod ledger;
 mod slide;
 mod strip;
@@ -19,6 +20,7 @@ pub use controls::controls;
 pub use review::{cascade_text, convergence_text, deletion_text, insertion_text, review_panel, shapley_sum_text};
 pub use review_strip::{TILE_KEYS, tile_key_name};
 pub use curate::{shape_of, verdict_word};
+pub use feed::feed_window;
 pub use slide::slide;
 pub use strip::{agreement_cell_overlap, agreement_cell_rho};
 

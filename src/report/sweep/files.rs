@@ -9,7 +9,8 @@
 //! - `partial.json`: what merging needs (settings, images folder, shard, atlas counts).
 //! - `report.html`: the self-contained report.
 //! - `run.json`: this run's own facts (how many images it computed and took from the cache,
-//!   seconds); the one file that differs between runs.
+//!   seconds) and the feed the images were given (`feed`, each value with its origin); the one
+//!   file that differs between runs.
 
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -42,6 +43,9 @@ pub struct RunFacts {
     pub computed: usize,
     pub cached: usize,
     pub seconds: f64,
+    /// How the images were fed, each value with its origin (card, graph or default).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub feed: Option<crate::feed::FeedSummary>,
 }
 
 /// A group name as a file stem: letters, digits, `-` and `_` kept, anything else `_`, and a
@@ -129,6 +133,7 @@ pub fn write(result: &ShardResult, out: &Path, seconds: f64, thumbs: Option<&Thu
         computed: result.computed,
         cached: result.cached,
         seconds,
+        feed: result.feed.clone(),
     };
     write_atomic(&out.join("run.json"), (serde_json::to_string_pretty(&facts)? + "\n").as_bytes())?;
     Ok(groups)
@@ -187,5 +192,6 @@ pub fn read(dir: &Path) -> Result<ShardResult> {
         cached: run.as_ref().map_or(0, |r| r.cached),
         ranked_maps: BTreeMap::new(),
         thumbs,
+        feed: run.and_then(|r| r.feed),
     })
 }
