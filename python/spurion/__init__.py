@@ -116,14 +116,29 @@ class Model:
 
     ``path``: the .onnx file. ``feed``: a feed card (default: ``PATH.feed.toml`` beside the model,
     else one inferred from the graph). ``input_shape``: for graphs with dynamic input dimensions.
+    ``output``: the output to score, by its ONNX name, for models with several.
     """
 
-    def __init__(self, path: PathLike, feed: Optional[PathLike] = None, input_shape: Optional[list] = None):
+    def __init__(self, path: PathLike, feed: Optional[PathLike] = None, input_shape: Optional[list] = None,
+                 output: Optional[str] = None):
         self._handle = _engine.ModelHandle(
-            os.fspath(path), os.fspath(feed) if feed is not None else None, list(input_shape) if input_shape else None
+            os.fspath(path), os.fspath(feed) if feed is not None else None, list(input_shape) if input_shape else None,
+            output,
         )
         self.path = Path(os.fspath(path))
         self.feed = Path(os.fspath(feed)) if feed is not None else None
+        self.input_shape = list(input_shape) if input_shape else None
+        self.output = output
+
+    def _model_flags(self) -> list:
+        argv = ["--model", os.fspath(self.path)]
+        if self.feed is not None:
+            argv += ["--feed", os.fspath(self.feed)]
+        if self.input_shape:
+            argv += ["--input-shape", ",".join(str(d) for d in self.input_shape)]
+        if self.output is not None:
+            argv += ["--output", self.output]
+        return argv
 
     def __repr__(self) -> str:
         return f"spurion.Model({str(self.path)!r})"
@@ -256,9 +271,7 @@ def sweep(model: Model, folder: PathLike, *, out: PathLike, progress: Progress =
     sweep`` writes it (sweep.csv, sweep.jsonl, groups.json, report.html, the cache); resumable: a
     stopped sweep goes on where it stopped. Returns the rows as a pandas DataFrame when pandas is
     installed, a list of dicts otherwise. ``options``: the flags of ``spurion sweep``."""
-    argv = ["--model", os.fspath(model.path), "--images", os.fspath(folder), "--out", os.fspath(out)]
-    if model.feed is not None:
-        argv += ["--feed", os.fspath(model.feed)]
+    argv = model._model_flags() + ["--images", os.fspath(folder), "--out", os.fspath(out)]
     argv += _flags(options)
     done = _run(progress, "sweep", lambda hook: _engine.sweep(argv, hook))
     return _table(Path(done) / "sweep.jsonl")
@@ -270,9 +283,7 @@ def review(model: Model, x: PathLike, *, out: Optional[PathLike] = None, progres
     review.png to ``out`` (default: review-NAME) and returns review.json's content."""
     if not isinstance(x, (str, os.PathLike)):
         raise TypeError("review takes an image file; save the array first (e.g. as PNG)")
-    argv = ["--model", os.fspath(model.path), "--image", os.fspath(x)]
-    if model.feed is not None:
-        argv += ["--feed", os.fspath(model.feed)]
+    argv = model._model_flags() + ["--image", os.fspath(x)]
     if out is not None:
         argv += ["--out", os.fspath(out)]
     argv += _flags(options)

@@ -21,7 +21,9 @@ class SpurionError(Exception):
 class Model:
     path: Path
     feed: Optional[Path]
-    def __init__(self, path: PathLike, feed: Optional[PathLike] = ..., input_shape: Optional[list[int]] = ...) -> None: ...
+    input_shape: Optional[list[int]]
+    output: Optional[str]
+    def __init__(self, path: PathLike, feed: Optional[PathLike] = ..., input_shape: Optional[list[int]] = ..., output: Optional[str] = ...) -> None: ...
     @property
     def info(self) -> dict[str, Any]: ...
     @property

@@ -243,9 +243,9 @@ impl ModelHandle {
 #[pymethods]
 impl ModelHandle {
     #[new]
-    #[pyo3(signature = (path, feed=None, input_shape=None))]
-    fn new(py: Python<'_>, path: PathBuf, feed: Option<PathBuf>, input_shape: Option<Vec<usize>>) -> PyResult<Self> {
-        let args = ModelArgs { model: path, input_shape, feed };
+    #[pyo3(signature = (path, feed=None, input_shape=None, output=None))]
+    fn new(py: Python<'_>, path: PathBuf, feed: Option<PathBuf>, input_shape: Option<Vec<usize>>, output: Option<String>) -> PyResult<Self> {
+        let args = ModelArgs { model: path, input_shape, feed, output };
         py.detach(|| -> Result<ModelHandle> {
             let dims = spurion::model::input_dims(&args.model)?;
             let fixed = if args.input_shape.is_some() || dims.iter().skip(1).all(Option::is_some) || args.card_path().is_some() {
@@ -327,6 +327,9 @@ fn explain<'py>(
     }
     if let Some(s) = &model.args.input_shape {
         full.extend(["--input-shape".into(), s.iter().map(usize::to_string).collect::<Vec<_>>().join(",")]);
+    }
+    if let Some(o) = &model.args.output {
+        full.extend(["--output".into(), o.clone()]);
     }
     match &path {
         Some(p) => full.extend(["--image".into(), p.display().to_string()]),

@@ -39,6 +39,10 @@ pub struct CardArgs {
     /// Replace an existing card.
     #[arg(long)]
     pub force: bool,
+    /// The output to score, by its ONNX name, for models with several (`spurion info` lists
+    /// them); written into the card as `[output] name`.
+    #[arg(long)]
+    pub output: Option<String>,
 }
 
 pub fn run(a: &CardArgs) -> Result<()> {
@@ -50,7 +54,7 @@ pub fn run(a: &CardArgs) -> Result<()> {
             path.display()
         );
     }
-    let model = Model::load(&a.model, &LoadOptions { input_shape: a.input_shape.clone() })?;
+    let model = Model::load(&a.model, &LoadOptions { input_shape: a.input_shape.clone(), output: a.output.clone(), classes: None })?;
     let preset = a.preset.as_deref().map(Preset::parse).transpose()?;
     let spec = CardSpec {
         preset,
@@ -59,7 +63,8 @@ pub fn run(a: &CardArgs) -> Result<()> {
         labels: a.labels.clone(),
         resize: a.resize.as_deref().map(|r| if r == "stretch" { Resize::Stretch } else { Resize::ShorterSideCrop }),
     };
-    let card = crate::feed::card_for(&model, &spec)?;
+    let mut card = crate::feed::card_for(&model, &spec)?;
+    card.output.name = a.output.clone();
     let how = match (preset, &a.mean) {
         (Some(p), None) => format!("preset {}", p.name()),
         (Some(p), Some(_)) => format!("preset {} with the mean and std given", p.name()),
