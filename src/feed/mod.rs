@@ -11,7 +11,7 @@ pub mod window;
 pub use card::{FeedCard, GreyRule, InputCard, Layout, Normalise, OutputCard, OutputKind, Resize, Scale};
 pub use make::{CardSpec, Preset, card_for, card_text, read_labels, write_card};
 pub use origin::{CardOrigin, FeedSummary, Origin};
-pub use prepare::{ChannelRule, Feeder, Standardise, axis_weights, grid_to_tensor};
+pub use prepare::{ChannelRule, Feeder, Standardise, axis_weights, grid_to_tensor, tensor_to_grid};
 pub use picture::{IMAGE_ENDINGS, LUMA, OpenOptions, Picture, default_dicom_window, is_image_file, list_images, luminance};
 
 use std::path::Path;

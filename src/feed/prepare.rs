@@ -255,6 +255,18 @@ pub fn grid_to_tensor(card: &FeedCard, grid: &Array3<f32>) -> ArrayD<f32> {
     to_tensor(card, grid, None)
 }
 
+/// The inverse of [`grid_to_tensor`] under a fixed mean and std: a tensor back to a 0..1 grid
+/// (per-image standardisation needs the picture's numbers: use [`Feeder::to_grid`]).
+pub fn tensor_to_grid(card: &FeedCard, t: &ArrayD<f32>) -> Result<Array3<f32>> {
+    if card.input.normalise == Normalise::PerImage {
+        bail!("a per-image standardised tensor goes back to a grid only with its picture's numbers (Feeder::to_grid)");
+    }
+    let g = tensor_to_grid_layout(card, t)?;
+    let (mean, std) = card.mean_std();
+    let scale = scale_of(card);
+    Ok(Array3::from_shape_fn(g.dim(), |(y, x, k)| (g[[y, x, k]] * std[k] + mean[k]) / scale))
+}
+
 /// Reorders a batch-1 tensor to th×tw×C without touching values.
 fn tensor_to_grid_layout(card: &FeedCard, t: &ArrayD<f32>) -> Result<Array3<f32>> {
     let want = card.tensor_shape();
@@ -336,6 +348,26 @@ mod tests {
         for (y, x) in [(2, 4), (2, 5), (3, 4), (3, 5)] {
             assert!((back[[y, x, 0]] - 1.0).abs() < 1e-6);
         }
+    }
+
+    #[test]
+    fn per_image_numbers_come_from_the_picture_and_hold_for_its_variants() {
+        let mut c = card(1, 4, 4, Layout::Nchw, Resize::Stretch);
+        c.input.scale = Scale::Unit;
+        (c.input.mean, c.input.std, c.input.normalise) = (vec![], vec![], Normalise::PerImage);
+        // A checkerboard of 0 and 1: mean 0.5, population deviation 0.5 (above the floor 1/√16).
+        let px = Array3::from_shape_fn((4, 4, 1), |(y, x, _)| ((y + x) % 2) as f32);
+        let f = Feeder::for_picture(&c, &Picture::new(px.clone(), 8)).unwrap();
+        assert_eq!(f.standardise(), Some(Standardise { mean: 0.5, std: 0.5 }));
+        let t = f.tensor(&px).unwrap();
+        assert_eq!((t[[0, 0, 1, 0]], t[[0, 0, 0, 0]]), (1.0, -1.0));
+        // A black baseline goes through the picture's numbers, not its own (zero) spread.
+        let b = f.normalise(&Array3::zeros((4, 4, 1)));
+        assert_eq!(b[[0, 0, 2, 3]], -1.0);
+        // A flat picture's deviation is held at 1/√N.
+        assert_eq!(Standardise::of(&Array3::from_elem((2, 2, 1), 0.3)).std, 0.5);
+        assert!(tensor_to_grid(&c, &t).is_err(), "the inverse needs the picture's numbers");
+        assert_eq!(f.to_grid(&t).unwrap(), px);
     }
 
     #[test]

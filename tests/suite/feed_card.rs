@@ -210,6 +210,20 @@ fn a_guessed_feed_is_said_once_and_not_with_a_card_or_a_normalising_graph() {
     assert_eq!(r["feed"]["layout"]["from"], "graph");
     assert_eq!(r["feed"]["normalise"]["from"], "default");
 
+    // A review says it once too, and records the feed in review.json.
+    let out = dir.path().join("rv");
+    let o = ok(
+        spurion(&[
+            "review", "--model", s(&plain), "--image", s(&png), "--method", "gradient", "--skip", "curves,randomisation,convergence,shapley",
+            "--out", s(&out), "--quiet",
+        ]),
+        "review",
+    );
+    assert_eq!(String::from_utf8_lossy(&o.stderr).matches("warning: no feed card").count(), 1);
+    let rv: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(out.join("review.json")).unwrap()).unwrap();
+    assert_eq!(rv["feed"]["fed"], "picture");
+    assert_eq!(rv["feed"]["guessed"], true);
+
     // The graph normalises its own input (Sub, Div by constants after it): nothing to warn of.
     let normed = model_in(dir.path(), "graph_norm_rgb.onnx");
     let (err, r) = explain(&normed, "b");
