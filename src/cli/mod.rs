@@ -149,13 +149,21 @@ impl ModelArgs {
 
     /// The feed card: the one named, the sidecar, or one inferred from the graph.
     pub fn card(&self, model: &Model) -> Result<crate::feed::FeedCard> {
-        match &self.feed {
-            Some(p) => {
-                let c = crate::feed::FeedCard::load(p)?;
+        use crate::feed::FeedCard;
+        let file = match &self.feed {
+            Some(p) => Some(FeedCard::load(p)?),
+            None => FeedCard::for_model(&self.model)?,
+        };
+        match file {
+            Some(mut c) => {
+                // --output overrides the card's `[output] name` (the model was loaded so).
+                if self.output.is_some() {
+                    c.output.name = self.output.clone();
+                }
                 c.check_against(model)?;
                 Ok(c)
             }
-            None => crate::feed::FeedCard::for_loaded(model),
+            None => FeedCard::infer(model),
         }
     }
 }
