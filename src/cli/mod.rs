@@ -79,8 +79,8 @@ pub struct ModelArgs {
     /// Feed card to use instead of the sidecar MODEL.feed.toml.
     #[arg(long)]
     pub feed: Option<PathBuf>,
-    /// The model output to explain, by its ONNX name (`spurion info` lists them), for models
-    /// with several outputs; overrides the feed card's `[output] name`.
+    /// The model output to explain, by its ONNX name, for models with several outputs (when it
+    /// is needed, the refusal lists them); overrides the feed card's `[output] name`.
     #[arg(long)]
     pub output: Option<String>,
 }

@@ -58,11 +58,16 @@ FAMILIES = [
 ]
 
 
-def prepare(net):
+# torchvision initialises these from a truncated normal of std 0.01-0.1: the signal vanishes
+# (GoogLeNet's input gradient is about 1e-13, all float32 noise), so they are re-drawn He-normal.
+HE = {"googlenet", "inception_v3"}
+
+
+def prepare(net, name):
     with torch.no_grad():
         for m in net.modules():
-            if isinstance(m, (nn.Linear, nn.Conv2d)) and not m.weight.any():
-                m.weight.normal_(0, 1.0 / m.weight[0].numel() ** 0.5)
+            if isinstance(m, (nn.Linear, nn.Conv2d)) and (not m.weight.any() or name in HE):
+                m.weight.normal_(0, (2.0 if name in HE else 1.0) ** 0.5 / m.weight[0].numel() ** 0.5)
             if isinstance(m, nn.BatchNorm2d):
                 m.running_mean.uniform_(-0.1, 0.1)
                 m.running_var.uniform_(0.8, 1.2)
@@ -79,7 +84,7 @@ def image(size, seed):
 def one(a, name, build, i):
     size = 299 if name == "inception_v3" else a.size
     torch.manual_seed(1000 + i)
-    net = prepare(build(size))
+    net = prepare(build(size), name)
     x = image(size, 2000 + i)
     d = os.path.join(a.out, name)
     os.makedirs(d, exist_ok=True)
