@@ -2,6 +2,8 @@
 best setting.
 
 usage: peer_speed.py OUT_DIR THREADS REPEATS
+       peer_speed.py OUT_DIR THREADS REPEATS vit
+       peer_speed.py OUT_DIR THREADS 1 vit-peak BATCH CHANNELS_LAST
 
 Builds a ResNet-18 (torchvision's architecture, random weights from a fixed seed, no download),
 exports it to OUT_DIR/resnet18.onnx (batch 1, opset 17) and OUT_DIR/resnet18-batch.onnx (dynamic
@@ -28,7 +30,16 @@ the completeness gap is 0 at any step count).
 Prints one JSON object on stdout: library versions, every setting's times and median, and the
 results (IG attribution sums, occlusion map in OUT_DIR/occlusion-ort.npy) for the bench to compare
 with spurion's. Needs torch, torchvision, onnx and onnxruntime; run by hand (not part of CI).
+
+Mode `vit` (issue 24): torchvision's ViT-B/16 at 224² with random weights (its zero-initialised
+head re-drawn, or every score would be the bias), exported to OUT_DIR/vit_b_16.onnx with the input
+OUT_DIR/vit-x.npy; integrated gradients, 64 midpoint steps, black baseline, PyTorch CPU autograd
+in batches of 1, 8 and 16, NCHW and channels-last (which only touches the patch convolution).
+Mode `vit-peak` runs one such setting once in a fresh process and reports its peak resident
+memory (ru_maxrss: the interpreter, torch, the weights and autograd's tape at that batch), so
+that the bench can set it beside spurion's.
 """
+import resource
 import copy
 import json
 import os
@@ -60,8 +71,74 @@ def timed(fn, repeats):
     return ts, out
 
 
+def vit_setup(out, export):
+    torch.manual_seed(24)
+    net = torchvision.models.vit_b_16(weights=None).eval()
+    with torch.no_grad():
+        net.heads.head.weight.normal_(0.0, 768 ** -0.5)
+        net.heads.head.bias.uniform_(-0.1, 0.1)
+    rng = np.random.default_rng(24)
+    x = rng.uniform(-1.0, 1.0, size=(1, 3, 224, 224)).astype(np.float32)
+    xt = torch.from_numpy(x)
+    if export:
+        np.save(os.path.join(out, "vit-x.npy"), x)
+        torch.onnx.export(net, (xt,), os.path.join(out, "vit_b_16.onnx"), dynamo=False, opset_version=17,
+                          input_names=["x"], output_names=["y"], do_constant_folding=True)
+    with torch.no_grad():
+        logits = net(xt)[0]
+        target = int(torch.argmax(logits))
+        f_x, f_0 = float(logits[target]), float(net(torch.zeros_like(xt))[0, target])
+    return net, xt, target, f_x, f_0
+
+
+def ig_runner(net, xt, target):
+    nets = {False: net, True: copy.deepcopy(net).to(memory_format=torch.channels_last)}
+
+    def ig(steps, chunk, channels_last):
+        m = nets[channels_last]
+        alphas = (torch.arange(steps, dtype=torch.float32) + 0.5) / steps
+        total = torch.zeros_like(xt)
+        for a in alphas.split(chunk):
+            pts = a.view(-1, 1, 1, 1) * xt
+            if channels_last:
+                pts = pts.contiguous(memory_format=torch.channels_last)
+            pts.requires_grad_(True)
+            y = m(pts)[:, target].sum()
+            (g,) = torch.autograd.grad(y, pts)
+            total += g.sum(0, keepdim=True)
+        return xt * total / steps
+
+    return ig
+
+
+def vit_main(out, threads, repeats, mode):
+    torch.set_num_threads(threads)
+    if mode == "vit-peak":
+        batch, channels_last = int(sys.argv[5]), sys.argv[6] == "1"
+        net, xt, target, _, _ = vit_setup(out, export=False)
+        ig = ig_runner(net, xt, target)
+        t0 = time.perf_counter()
+        ig(64, batch, channels_last)
+        print(json.dumps({"batch": batch, "channels_last": channels_last, "seconds": time.perf_counter() - t0,
+                          "peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}))
+        return
+    net, xt, target, f_x, f_0 = vit_setup(out, export=True)
+    ig = ig_runner(net, xt, target)
+    runs = []
+    for channels_last in (False, True):
+        for chunk in (1, 8, 16):
+            ig(chunk, chunk, channels_last)  # warm-up
+            ts, attr = timed(lambda: ig(64, chunk, channels_last), repeats)
+            runs.append({"batch": chunk, "channels_last": channels_last, "threads": threads,
+                         "seconds": ts, "median": float(np.median(ts)), "sum": float(attr.sum())})
+    print(json.dumps({"torch": torch.__version__, "torchvision": torchvision.__version__, "threads": threads,
+                      "target": target, "score_x": f_x, "score_baseline": f_0, "ig": runs}))
+
+
 def main():
     out, threads, repeats = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
+    if len(sys.argv) > 4:
+        return vit_main(out, threads, repeats, sys.argv[4])
     thread_counts = [int(t) for t in os.environ.get("SPURION_BENCH_PEER_THREADS", str(threads)).split(",")]
     # onnxruntime's intra-op pool spins while it waits; on a shared machine one thread has been
     # faster than two, so its runs also try one thread (PyTorch's best one-thread setting was

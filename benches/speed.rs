@@ -9,7 +9,7 @@
 //! in CI). `benches/peer_speed.py` builds a ResNet-18 with random weights, exports it, and times
 //! every peer setting (see its header); the table compares spurion with the fastest.
 //! Environment: SPURION_BENCH_REPEATS (default 3), SPURION_BENCH_THREADS (default: all cores),
-//! SPURION_BENCH_TASKS (comma-separated among ig, occlusion, refine; default all),
+//! SPURION_BENCH_TASKS (comma-separated among ig, occlusion, refine, vit; default all),
 //! SPURION_BENCH_PEERS=0 (spurion only, on the files of an earlier run: for profiling).
 //!
 //! Tasks (issue 11's targets in brackets):
@@ -17,6 +17,10 @@
 //!   occlusion, window 16, stride 8, black fill, same model                       [≤ 0.8× onnxruntime]
 //!   time to a 1 % completeness gap: spurion's default refinement (32 midpoint steps, tripling)
 //!   against PyTorch's midpoint rule at 16, 32, 64, ... steps                      [no target]
+//!   integrated gradients, 64 midpoint steps, black baseline, ViT-B/16 at 224²     [≤ 1.0× PyTorch]
+//!   (issue 24), with the peak resident memory of both: spurion's is this process's high-water
+//!   mark from just before loading the ViT (reset through /proc/self/clear_refs), PyTorch's the
+//!   ru_maxrss of a fresh process running its best setting once (interpreter and torch included).
 
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -46,14 +50,15 @@ fn env_usize(name: &str, default: usize) -> Result<usize> {
     }
 }
 
-fn run_peer(py: &Path, dir: &Path, threads: usize, repeats: usize) -> Result<Value> {
+fn run_peer(py: &Path, dir: &Path, threads: usize, repeats: usize, mode: &[&str]) -> Result<Value> {
     let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("benches/peer_speed.py");
-    eprintln!("peer: {} {} (PyTorch autograd, onnxruntime; every setting) ...", py.display(), script.display());
+    eprintln!("peer: {} {} {} (PyTorch autograd, onnxruntime; every setting) ...", py.display(), script.display(), mode.join(" "));
     let out = Command::new(py)
         .arg(&script)
         .arg(dir)
         .arg(threads.to_string())
         .arg(repeats.to_string())
+        .args(mode)
         .output()
         .with_context(|| format!("starting {}", py.display()))?;
     if !out.status.success() {
@@ -64,6 +69,18 @@ fn run_peer(py: &Path, dir: &Path, threads: usize, repeats: usize) -> Result<Val
         );
     }
     serde_json::from_slice(&out.stdout).context("reading the peer's JSON")
+}
+
+/// This process's peak resident memory in MB since the last [`reset_peak`] (Linux: VmHWM).
+fn peak_rss_mb() -> Option<f64> {
+    let s = std::fs::read_to_string("/proc/self/status").ok()?;
+    let kb: f64 = s.lines().find(|l| l.starts_with("VmHWM:"))?.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb / 1024.0)
+}
+
+/// Resets the peak resident memory to the current one (Linux ≥ 4.0: "5" to clear_refs).
+fn reset_peak() -> bool {
+    std::fs::write("/proc/self/clear_refs", "5").is_ok()
 }
 
 fn time_reading(model: &Model, x: &ArrayD<f32>, req: &Request, repeats: usize) -> Result<(Vec<f64>, Reading)> {
@@ -101,7 +118,7 @@ fn main() -> Result<()> {
     let repeats = env_usize("SPURION_BENCH_REPEATS", 3)?.max(1);
     let cores = std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1);
     let threads = env_usize("SPURION_BENCH_THREADS", cores)?.max(1);
-    let tasks = std::env::var("SPURION_BENCH_TASKS").unwrap_or_else(|_| "ig,occlusion,refine".into());
+    let tasks = std::env::var("SPURION_BENCH_TASKS").unwrap_or_else(|_| "ig,occlusion,refine,vit".into());
     let task = |t: &str| tasks.split(',').any(|s| s.trim() == t);
     let with_peers = std::env::var("SPURION_BENCH_PEERS").map_or(true, |v| v != "0");
     rayon::ThreadPoolBuilder::new().num_threads(threads).build_global()?;
@@ -110,19 +127,119 @@ fn main() -> Result<()> {
     let target_dir = exe.ancestors().nth(3).map(Path::to_path_buf).context("bench binary location")?;
     let dir = target_dir.join("bench-speed");
     std::fs::create_dir_all(&dir)?;
-    let peer = if with_peers {
-        let Some(py) = std::env::var_os("SPURION_BENCH_PYTHON").map(PathBuf::from) else {
-            eprintln!(
-                "speed bench skipped: set SPURION_BENCH_PYTHON to a Python with torch, torchvision \
-                 and onnxruntime (see DEVELOPERS.md, 'Benchmarks')"
-            );
-            return Ok(());
-        };
-        run_peer(&py, &dir, threads, repeats)?
-    } else {
-        eprintln!("SPURION_BENCH_PEERS=0: spurion only, on the files in {}", dir.display());
-        Value::Null
+    let py = std::env::var_os("SPURION_BENCH_PYTHON").map(PathBuf::from);
+    if with_peers && py.is_none() {
+        eprintln!(
+            "speed bench skipped: set SPURION_BENCH_PYTHON to a Python with torch, torchvision \
+             and onnxruntime (see DEVELOPERS.md, 'Benchmarks')"
+        );
+        return Ok(());
+    }
+    let resnet = task("ig") || task("occlusion") || task("refine");
+    let peer = match &py {
+        Some(py) if with_peers && resnet => run_peer(py, &dir, threads, repeats, &[])?,
+        _ => {
+            if !with_peers {
+                eprintln!("SPURION_BENCH_PEERS=0: spurion only, on the files in {}", dir.display());
+            }
+            Value::Null
+        }
     };
+    // (workload, spurion seconds, peer seconds, peer setting, target ratio)
+    let mut rows: Vec<(String, f64, f64, String, Option<f64>)> = vec![];
+    let mut notes: Vec<String> = vec![];
+    let mut disagree = vec![];
+    if task("vit") {
+        vit_task(py.as_deref().filter(|_| with_peers), &dir, threads, repeats, &mut rows, &mut notes, &mut disagree)?;
+    }
+    if resnet {
+        resnet_tasks(&peer, &dir, threads, repeats, &task, with_peers, &mut rows, &mut notes, &mut disagree)?;
+    }
+    println!();
+    println!(
+        "ResNet-18 and ViT-B/16 (random weights), 1×3×224×224, {threads} threads, {repeats} repeats (medians); torch {}, onnxruntime {}",
+        peer["torch"].as_str().unwrap_or("see the notes"),
+        peer["onnxruntime"].as_str().unwrap_or("?")
+    );
+    println!("{:<32} {:>10} {:>10} {:>7} {:>7}  peer at its best", "workload", "spurion s", "peer s", "ratio", "target");
+    for (work, ours, theirs, setting, goal) in &rows {
+        let goal = goal.map_or("-".to_string(), |g| format!("≤{g:.1}×"));
+        println!("{work:<32} {ours:>10.2} {theirs:>10.2} {:>6.2}× {goal:>7}  {setting}", ours / theirs);
+    }
+    for n in &notes {
+        println!("  {n}");
+    }
+    if !disagree.is_empty() {
+        bail!("spurion and the peer disagree on {}; the timings compare different work", disagree.join(" and "));
+    }
+    Ok(())
+}
+
+type Rows = Vec<(String, f64, f64, String, Option<f64>)>;
+
+/// Integrated gradients, 64 midpoint steps, on ViT-B/16 (issue 24), with both peak memories.
+fn vit_task(py: Option<&Path>, dir: &Path, threads: usize, repeats: usize, rows: &mut Rows, notes: &mut Vec<String>, disagree: &mut Vec<&'static str>) -> Result<()> {
+    let peer = match py {
+        Some(py) => run_peer(py, dir, threads, repeats, &["vit"])?,
+        None => Value::Null,
+    };
+    let reset = reset_peak();
+    let model = Model::load(&dir.join("vit_b_16.onnx"), &LoadOptions::default())
+        .context("the ViT bench model (run once with the peers to export it)")?;
+    let x: ArrayD<f32> = spurion::feed::read_tensor(&dir.join("vit-x.npy"))?;
+    let target = peer["target"].as_u64().map_or(TargetSpec::Top, |t| TargetSpec::Index(t as usize));
+    let req = Request {
+        method: Method::IntegratedGradients { steps: 64, rule: Rule::Midpoint, adaptive: None },
+        baseline: Baseline::Black,
+        target,
+        score: ScoreKind::Raw,
+    };
+    eprintln!("spurion: ViT-B/16 integrated gradients, 64 steps ...");
+    let (times, r) = time_reading(&model, &x, &req, repeats)?;
+    let ours_peak = peak_rss_mb().filter(|_| reset);
+    let (peer_s, setting, best) = fastest(&peer["ig"], torch_setting).unwrap_or((f64::NAN, "-".into(), &Value::Null));
+    if let Some(sum) = best["sum"].as_f64() {
+        let err = (r.attribution_sum - sum).abs() / sum.abs().max(1e-6);
+        notes.push(format!("ViT IG attribution sum: spurion {:.5}, PyTorch {sum:.5} (rel. difference {err:.1e})", r.attribution_sum));
+        if err > 1e-3 {
+            disagree.push("ViT integrated gradients");
+        }
+    }
+    if let Some(list) = peer["ig"].as_array() {
+        let all: Vec<String> = list.iter().map(|r| format!("{}: {:.2} s", torch_setting(r), r["median"].as_f64().unwrap_or(f64::NAN))).collect();
+        notes.push(format!("PyTorch ViT IG settings: {}", all.join("; ")));
+    }
+    let peer_peak = match (py, best["batch"].as_u64()) {
+        (Some(py), Some(batch)) => {
+            let cl = if best["channels_last"].as_bool() == Some(true) { "1" } else { "0" };
+            run_peer(py, dir, threads, 1, &["vit-peak", &batch.to_string(), cl])?["peak_rss_mb"].as_f64()
+        }
+        _ => None,
+    };
+    let mb = |v: Option<f64>| v.map_or("?".to_string(), |v| format!("{v:.0} MB"));
+    notes.push(format!(
+        "ViT peak resident memory: spurion {} (this process from before loading the model), PyTorch {} (a fresh process at its best setting, torch included)",
+        mb(ours_peak),
+        mb(peer_peak)
+    ));
+    notes.push(format!("spurion ViT IG times (s): {times:.2?}"));
+    rows.push(("ViT-B/16 IG, 64 steps".into(), median(&times), peer_s, setting, Some(1.0)));
+    Ok(())
+}
+
+/// The ResNet-18 tasks: integrated gradients, occlusion, the time to a 1 % gap.
+#[allow(clippy::too_many_arguments)]
+fn resnet_tasks(
+    peer: &Value,
+    dir: &Path,
+    _threads: usize,
+    repeats: usize,
+    task: &dyn Fn(&str) -> bool,
+    with_peers: bool,
+    rows: &mut Rows,
+    notes: &mut Vec<String>,
+    disagree: &mut Vec<&'static str>,
+) -> Result<()> {
     let model = Model::load(&dir.join("resnet18.onnx"), &LoadOptions::default())
         .context("the bench model (run once with the peers to export it)")?;
     let x: ArrayD<f32> = spurion::feed::read_tensor(&dir.join("x.npy"))?;
@@ -134,11 +251,6 @@ fn main() -> Result<()> {
         target,
         score: ScoreKind::Raw,
     };
-    // (workload, spurion seconds, peer seconds, peer setting, target ratio)
-    let mut rows: Vec<(String, f64, f64, String, Option<f64>)> = vec![];
-    let mut notes: Vec<String> = vec![];
-    let mut disagree = vec![];
-
     if task("ig") {
         eprintln!("spurion: integrated gradients, 64 steps ...");
         let (times, r) = time_reading(&model, &x, &base, repeats)?;
@@ -201,24 +313,6 @@ fn main() -> Result<()> {
         }
         let setting = if refine.is_null() { "-".to_string() } else { format!("{} (16, 32, 64, … steps)", torch_setting(refine)) };
         rows.push(("time to a 1 % completeness gap".into(), median(&times), refine["median"].as_f64().unwrap_or(f64::NAN), setting, None));
-    }
-
-    println!();
-    println!(
-        "ResNet-18 (random weights), 1×3×224×224, {threads} threads, {repeats} repeats (medians); torch {}, onnxruntime {}",
-        peer["torch"].as_str().unwrap_or("?"),
-        peer["onnxruntime"].as_str().unwrap_or("?")
-    );
-    println!("{:<32} {:>10} {:>10} {:>7} {:>7}  peer at its best", "workload", "spurion s", "peer s", "ratio", "target");
-    for (work, ours, theirs, setting, goal) in &rows {
-        let goal = goal.map_or("-".to_string(), |g| format!("≤{g:.1}×"));
-        println!("{work:<32} {ours:>10.2} {theirs:>10.2} {:>6.2}× {goal:>7}  {setting}", ours / theirs);
-    }
-    for n in &notes {
-        println!("  {n}");
-    }
-    if !disagree.is_empty() {
-        bail!("spurion and the peer disagree on {}; the timings compare different work", disagree.join(" and "));
     }
     Ok(())
 }

@@ -84,8 +84,8 @@ pub struct ModelArgs {
     /// Feed card to use instead of the sidecar MODEL.feed.toml.
     #[arg(long)]
     pub feed: Option<PathBuf>,
-    /// The model output to explain, by its ONNX name (`spurion info` lists them), for models
-    /// with several outputs; overrides the feed card's `[output] name`.
+    /// The model output to explain, by its ONNX name, for models with several outputs (when it
+    /// is needed, the refusal lists them); overrides the feed card's `[output] name`.
     #[arg(long)]
     pub output: Option<String>,
 }
@@ -155,9 +155,20 @@ impl ModelArgs {
 
     /// The feed card: the one named, the sidecar, or one inferred from the graph.
     pub fn card(&self, model: &Model) -> Result<crate::feed::FeedCard> {
-        match &self.feed {
-            Some(p) => crate::feed::FeedCard::load(p)?.for_model_graph(model),
-            None => crate::feed::FeedCard::for_loaded(model),
+        use crate::feed::FeedCard;
+        let file = match &self.feed {
+            Some(p) => Some(FeedCard::load(p)?),
+            None => FeedCard::for_model(&self.model)?,
+        };
+        match file {
+            Some(mut c) => {
+                // --output overrides the card's `[output] name` (the model was loaded so).
+                if self.output.is_some() {
+                    c.output.name = self.output.clone();
+                }
+                c.for_model_graph(model)
+            }
+            None => FeedCard::for_loaded(model),
         }
     }
 }

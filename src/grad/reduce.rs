@@ -81,9 +81,29 @@ impl ReverseStep for SoftmaxStep {
         true
     }
 
-    fn back(&self, cx: &Cx, dy: ArrayD<f32>) -> Result<Vec<Option<ArrayD<f32>>>> {
+    fn back(&self, cx: &Cx, mut dy: ArrayD<f32>) -> Result<Vec<Option<ArrayD<f32>>>> {
         let y = cx.output()?;
         let shape = IxDyn(&cx.facts.out_shape);
+        // Over the last axis with both in order (attention's softmax): row by row, in place.
+        let last = cx.facts.out_shape.len().checked_sub(1);
+        if let (Some(n), true) = (last.map(|l| cx.facts.out_shape[l]), self.axes.len() == 1 && Some(self.axes[0]) == last) {
+            if let (Some(ys), Some(gs)) = (y.as_slice(), dy.as_slice_mut()) {
+                for (yr, gr) in ys.chunks_exact(n.max(1)).zip(gs.chunks_exact_mut(n.max(1))) {
+                    if self.log {
+                        let s: f32 = gr.iter().sum();
+                        for (g, &y) in gr.iter_mut().zip(yr) {
+                            *g -= y.exp() * s;
+                        }
+                    } else {
+                        let s: f32 = gr.iter().zip(yr).map(|(g, y)| g * y).sum();
+                        for (g, &y) in gr.iter_mut().zip(yr) {
+                            *g = y * (*g - s);
+                        }
+                    }
+                }
+                return Ok(vec![Some(dy)]);
+            }
+        }
         let sum_axes = |mut a: ArrayD<f32>| {
             for &ax in &self.axes {
                 a = a.sum_axis(Axis(ax)).insert_axis(Axis(ax));

@@ -1,10 +1,10 @@
 //! Reverse steps of ops that only move values: axis changes, pad, concat, slice, broadcast,
-//! downsample, cast, and resize (nearest/linear, whose reverse is a weighted scatter).
+//! tile, downsample, cast, and resize (nearest/linear, whose reverse is a weighted scatter).
 
 use anyhow::{Result, bail};
 use ndarray::{ArrayD, Axis, IxDyn, Slice as NdSlice};
 use tract_onnx::prelude::*;
-use tract_onnx::tract_core::ops::array::{MultiBroadcastTo, Pad, PadMode, Slice, TypedConcat};
+use tract_onnx::tract_core::ops::array::{MultiBroadcastTo, Pad, PadMode, Slice, Tile, TypedConcat};
 use tract_onnx::tract_core::ops::cast::Cast;
 use tract_onnx::tract_core::ops::change_axes::AxisOp;
 use tract_onnx::tract_core::ops::downsample::Downsample;
@@ -51,6 +51,9 @@ pub(super) fn build(node: &TypedNode) -> Option<Result<Box<dyn ReverseStep>>> {
     }
     if let Some(op) = node.op_as::<NearestUpsample>() {
         return Some(Ok(Box::new(UpsampleStep(op.scales.to_vec()))));
+    }
+    if node.op_is::<Tile>() {
+        return Some(Ok(Box::new(TileStep)));
     }
     if node.op_is::<tract_onnx::tract_core::ops::identity::Identity>() {
         return Some(Ok(Box::new(PassStep)));
@@ -250,6 +253,26 @@ impl ReverseStep for UpsampleStep {
         let mut g = super::standard(dy).into_shape_with_order(IxDyn(&split))?;
         for a in (0..in_shape.len()).rev() {
             g = g.sum_axis(Axis(2 * a + 1));
+        }
+        Ok(vec![Some(g)])
+    }
+}
+
+/// Tile repeats the whole input along each axis: output position k·n + i of an axis of input
+/// size n is input position i, so each input cell's gradient is the sum over its copies.
+struct TileStep;
+impl ReverseStep for TileStep {
+    fn back(&self, cx: &Cx, dy: ArrayD<f32>) -> Result<Vec<Option<ArrayD<f32>>>> {
+        let in_shape = &cx.facts.in_shapes[0];
+        // Split every axis a into (copies, in[a]) and sum the copies axes.
+        let mut split = vec![];
+        for (a, &n) in in_shape.iter().enumerate() {
+            split.push(cx.facts.out_shape[a] / n.max(1));
+            split.push(n);
+        }
+        let mut g = super::standard(dy).into_shape_with_order(IxDyn(&split))?;
+        for a in (0..in_shape.len()).rev() {
+            g = g.sum_axis(Axis(2 * a));
         }
         Ok(vec![Some(g)])
     }

@@ -233,6 +233,8 @@ save("gather_token", [N("Gather", ["x", "i0"], ["g"], axis=1), N("Mul", ["g", "k
 # Softmax over a middle axis of a rank-4 tensor.
 save("softmax_middle_axis", [N("Mul", ["x", "k"], ["m"]), N("Softmax", ["m"], ["y"], axis=1)], X,
      [const("k", w(3, 1, 6) + 1.0)], ["Softmax"])
+save("tile", [N("Tile", ["x", "reps"], ["t"]), N("Mul", ["t", "k"], ["y"])], T,
+     [I64("reps", [2, 1, 3]), const("k", w(2, 6, 24))], ["Tile"])
 
 with open(os.path.join(OUT, "ops.json"), "w") as f:
     json.dump(manifest, f, indent=1, sort_keys=True)

@@ -139,6 +139,38 @@ def dynamic_hw():
     save(g, "dynamic_hw.onnx")
 
 
+def many_outputs():
+    # Models with several outputs (issue 24): which one holds the class scores.
+    #   three_outputs.onnx: features [1,32,1,1] (an intermediate, listed first), logits [1,10],
+    #                       probs = softmax(logits) [1,10]: two class-shaped outputs, ambiguous;
+    #   two_outputs.onnx:   features [1,32,1,1] first, logits [1,10]: one class-shaped output;
+    #   two_heads.onnx:     a [1,10] and b [1,5]: the feed card's label count picks one.
+    r = np.random.default_rng(24)
+    w1, b1 = r.normal(0, 0.4, (32, 3, 3, 3)), r.normal(0, 0.1, 32)
+    w2, b2 = r.normal(0, 0.3, (10, 32)), r.normal(0, 0.1, 10)
+    w3, b3 = r.normal(0, 0.3, (5, 32)), r.normal(0, 0.1, 5)
+    trunk = [
+        helper.make_node("Conv", ["x", "w1", "b1"], ["c"], pads=[1, 1, 1, 1], kernel_shape=[3, 3]),
+        helper.make_node("Tanh", ["c"], ["t"]),
+        helper.make_node("GlobalAveragePool", ["t"], ["features"]),
+        helper.make_node("Flatten", ["features"], ["f"], axis=1),
+        helper.make_node("Gemm", ["f", "w2", "b2"], ["logits"], transB=1),
+    ]
+    x = helper.make_tensor_value_info("x", TensorProto.FLOAT, [1, 3, 8, 8])
+    out = lambda name, shape: helper.make_tensor_value_info(name, TensorProto.FLOAT, shape)
+    inits = [init("w1", w1), init("b1", b1), init("w2", w2), init("b2", b2)]
+    g = helper.make_graph(trunk + [helper.make_node("Softmax", ["logits"], ["probs"], axis=1)], "three_outputs", [x],
+                          [out("features", [1, 32, 1, 1]), out("logits", [1, 10]), out("probs", [1, 10])], inits)
+    save(g, "three_outputs.onnx")
+    g = helper.make_graph(trunk, "two_outputs", [x], [out("features", [1, 32, 1, 1]), out("logits", [1, 10])], inits)
+    save(g, "two_outputs.onnx")
+    heads = trunk[:4] + [helper.make_node("Gemm", ["f", "w2", "b2"], ["a"], transB=1),
+                         helper.make_node("Gemm", ["f", "w3", "b3"], ["b"], transB=1)]
+    g = helper.make_graph(heads, "two_heads", [x], [out("a", [1, 10]), out("b", [1, 5])],
+                          inits + [init("w3", w3), init("b3", b3)])
+    save(g, "two_heads.onnx")
+
+
 def main():
     os.makedirs(OUT, exist_ok=True)
     nan_model()
@@ -149,6 +181,7 @@ def main():
     np.save(os.path.join(OUT, "x16.npy"), x)
     corner_mean()
     dynamic_hw()
+    many_outputs()
     print("wrote", sorted(os.listdir(OUT)))
 
 

@@ -21,6 +21,7 @@ mod ledger;
 mod ledger_disk;
 mod methods_reference;
 mod occlusion_incremental;
+mod outputs;
 mod path_split;
 mod regions_clean;
 mod removal;
