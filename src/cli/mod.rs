@@ -2,6 +2,7 @@
 //! and what to do; exit codes: 0 done, 1 bad input or failed computation, 2 usage error, 130
 //! cancelled with Ctrl-C.
 
+mod clean;
 mod explain;
 mod feed;
 mod ledger;
@@ -62,6 +63,10 @@ pub enum Command {
     SweepMerge(sweep::MergeArgs),
     /// The curator's ledger: verdicts, notes and drawn regions per image, saved at once.
     Ledger(ledger::LedgerArgs),
+    /// A cleaned copy of a folder: the marks a ledger or a sweep picked painted out, DICOM kept
+    /// valid, a manifest of every change; resumable. --check MODEL reports what the model does
+    /// without the marks.
+    Clean(clean::CleanArgs),
     /// Writes a demo set of phantom images with ground-truth masks and a manifest.
     Demo(DemoArgs),
     /// Opens the desktop inspector.
@@ -256,6 +261,7 @@ pub fn run(command: Command) -> Result<()> {
         Command::Sweep(a) => sweep::run(&a),
         Command::SweepMerge(a) => sweep::merge(&a),
         Command::Ledger(a) => ledger::run(&a),
+        Command::Clean(a) => clean::run(&a),
     }
 }
 

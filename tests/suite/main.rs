@@ -2,6 +2,8 @@
 //! tract, egui and eframe once instead of once per file.
 
 mod common;
+mod clean;
+mod clean_check;
 mod cli_explain;
 mod demo_generator;
 mod demo_models;
