@@ -66,6 +66,7 @@ fn all_kinds() -> Vec<RegionKind> {
 struct ManifestRow {
     file: String,
     action: String,
+    picked_by: String,
     regions: String,
     boxes: String,
     fill: String,
@@ -374,4 +375,61 @@ fn a_cleaning_killed_midway_goes_on_and_ends_as_an_uninterrupted_one() {
     assert!(!o.status.success());
     assert!(String::from_utf8_lossy(&o.stderr).contains("other settings"), "{}", String::from_utf8_lossy(&o.stderr));
     assert_eq!(products(&out), products(&whole));
+}
+
+#[derive(Deserialize)]
+struct SweepRow {
+    path: String,
+    suspect: bool,
+    region_labels: String,
+}
+
+#[test]
+fn a_sweeps_suspect_images_are_cleaned_of_the_regions_it_found_and_checked() {
+    let dir = tempfile::tempdir().unwrap();
+    let root = demo(&dir.path().join("demo"), SetSpec { count: 12, seed: 77, by_site: true, masks: false, ..SetSpec::default() });
+    let src = root.join("images");
+    let model = crate::common::root().join("sample-models/shortcut.onnx");
+    let sweep = dir.path().join("sweep");
+    let run = |args: &[&str]| {
+        let o = Command::new(env!("CARGO_BIN_EXE_spurion")).args(args).output().unwrap();
+        assert!(o.status.success(), "{args:?}: {}", String::from_utf8_lossy(&o.stderr));
+        String::from_utf8_lossy(&o.stdout).into_owned()
+    };
+    let s = |p: &Path| p.to_str().unwrap().to_string();
+    run(&["sweep", "--model", &s(&model), "--images", &s(&src), "--out", &s(&sweep), "--method", "gradient", "--quiet"]);
+    let rows: Vec<SweepRow> = std::fs::read_to_string(sweep.join("sweep.jsonl")).unwrap().lines().map(|l| serde_json::from_str(l).unwrap()).collect();
+    let suspect: Vec<&SweepRow> = rows.iter().filter(|r| r.suspect).collect();
+    assert!(!suspect.is_empty(), "the shortcut model makes some demo images suspect");
+    let out = dir.path().join("clean");
+    let labels = format!("{}:label", root.join("manifest.csv").display());
+    let said = run(&["clean", "--images", &s(&src), "--out", &s(&out), "--sweep", &s(&sweep), "--check", &s(&model), "--labels", &labels, "-q"]);
+    let picked: Vec<String> = suspect.iter().map(|r| r.path.clone()).collect();
+    let listed = assert_manifest_complete(&src, &out, &picked);
+    assert_eq!(listed.len(), suspect.len(), "with no limit given, exactly the suspect images are picked");
+    for (m, r) in listed.iter().zip(&suspect) {
+        assert_eq!(m.file, r.path);
+        assert!(m.picked_by.starts_with("sweep: suspect"), "{}", m.picked_by);
+        // The regions painted are the ones the sweep recorded.
+        let mut a: Vec<&str> = m.regions.split("; ").collect();
+        let mut b: Vec<&str> = r.region_labels.split("; ").collect();
+        a.sort();
+        b.sort();
+        assert_eq!(a, b, "{}", m.file);
+    }
+    // The check's table is printed and written, and its JSON holds every image.
+    assert!(said.contains("predictions changed") && said.contains("hillmoor"), "{said}");
+    let check: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(out.join("spurion-check.json")).unwrap()).unwrap();
+    assert_eq!(check["check"]["images"].as_array().unwrap().len(), 12);
+    assert_eq!(check["check"]["all"]["labelled"], 12);
+    assert!(std::fs::read_to_string(out.join("spurion-check.txt")).unwrap().contains("accuracy before"));
+    // A limit nothing passes picks nothing: every file is copied as it is.
+    let none = dir.path().join("none");
+    run(&["clean", "--images", &s(&src), "--out", &s(&none), "--sweep", &s(&sweep), "--min-mark-share", "1.5", "-q"]);
+    assert!(manifest(&none).is_empty());
+    assert_eq!(hashes(&src).into_iter().collect::<Vec<_>>(), {
+        let mut h = hashes(&none);
+        h.retain(|k, _| !k.starts_with(".spurion-clean/") && !k.starts_with("spurion-clean"));
+        h.into_iter().collect::<Vec<_>>()
+    });
 }
