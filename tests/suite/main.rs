@@ -15,6 +15,7 @@ mod dicom_write;
 mod engine_ops;
 mod engine_torch;
 mod engine_whole;
+mod gui_clean;
 mod gui_curate;
 mod gui_inspector;
 mod gui_review;
