@@ -11,7 +11,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 use sha2::{Digest, Sha256};
 
-use crate::feed::Picture;
+use crate::feed::{OpenOptions, Picture};
 use crate::ledger::{Ledger, Verdict};
 use crate::regions::{FinderSettings, Region, find_regions};
 use crate::sweep::{Item, Row};
@@ -199,12 +199,14 @@ struct Partial {
 }
 
 /// A sweep's output folder: its rows above [`Limits`], and on each picked image the regions the
-/// sweep's own finders found (found again with the sweep's finder settings; the sweep keeps
-/// only their labels, and the labels found again are checked against them).
+/// sweep's own finders found (found again with the sweep's finder settings, on the image opened
+/// with the sweep's frame and window; the sweep keeps only their labels, and the labels found
+/// again are checked against them).
 pub struct SweepSource {
     dir: PathBuf,
     limits: Limits,
     finder: FinderSettings,
+    open: OpenOptions,
     /// Image (same-file key) → its row.
     rows: BTreeMap<PathBuf, Row>,
     content_hash: String,
@@ -219,6 +221,10 @@ impl SweepSource {
         let settings: Value = serde_json::from_str(&partial.settings).with_context(|| format!("the settings in {} are damaged", pp.display()))?;
         let finder: FinderSettings = serde_json::from_value(settings.get("finder").cloned().unwrap_or(Value::Null))
             .with_context(|| format!("{} names no finder settings this spurion reads: run the sweep again with this version", pp.display()))?;
+        let frame = settings.get("frame").and_then(Value::as_u64).unwrap_or(0) as usize;
+        let window = serde_json::from_value(settings.get("window").cloned().unwrap_or(Value::Null))
+            .with_context(|| format!("{} names a window this spurion does not read: run the sweep again with this version", pp.display()))?;
+        let open = OpenOptions { frame, window };
         let jp = dir.join("sweep.jsonl");
         let rows_text = std::fs::read_to_string(&jp).with_context(|| format!("cannot read {}: is the sweep finished?", jp.display()))?;
         let mut rows = BTreeMap::new();
@@ -228,7 +234,7 @@ impl SweepSource {
             rows.insert(same_file_key(&path), row);
         }
         let content_hash = sha256_hex(format!("{}\n{rows_text}", partial.settings).as_bytes());
-        Ok(SweepSource { dir: dir.to_path_buf(), limits: limits.or_suspect(), finder, rows, content_hash })
+        Ok(SweepSource { dir: dir.to_path_buf(), limits: limits.or_suspect(), finder, open, rows, content_hash })
     }
 
     fn row(&self, item: &Item) -> Option<&Row> {
@@ -254,8 +260,9 @@ impl Source for SweepSource {
         self.limits.passes(self.row(item)?)
     }
 
-    fn regions(&self, item: &Item, picture: &Picture) -> Result<Vec<Region>> {
-        let regions = found(picture, &self.finder);
+    fn regions(&self, item: &Item, _picture: &Picture) -> Result<Vec<Region>> {
+        // Opened again as the sweep opened it (its frame and window may differ from the job's).
+        let regions = found(&Picture::open_with(&item.path, &self.open)?, &self.finder);
         if let Some(row) = self.row(item) {
             let recorded: Vec<&str> = row.region_labels.split("; ").filter(|s| !s.is_empty()).collect();
             if let Some(r) = regions.iter().find(|r| !recorded.contains(&r.label().as_str())) {

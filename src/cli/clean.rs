@@ -68,8 +68,7 @@ pub struct CleanArgs {
     /// predictions that change, and accuracy before and after where --labels gives labels.
     #[arg(long, value_name = "MODEL")]
     pub check: Option<PathBuf>,
-    /// Feed card of the --check model (default: its sidecar). Its window is also the one
-    /// regions are found in, as in a sweep with that model.
+    /// Feed card of the --check model (default: its sidecar).
     #[arg(long, requires = "check")]
     pub feed: Option<PathBuf>,
     /// Labels for --check: FILE:COLUMN of a CSV whose `file` or `path` column names each image
@@ -137,7 +136,9 @@ pub fn run(a: &CleanArgs) -> Result<()> {
         Ok((model, card))
     });
     let loaded = loaded.transpose()?;
-    let open = OpenOptions { frame: a.frame, window: loaded.as_ref().and_then(|(_, c)| c.input.window.clone()) };
+    // Regions are found on the file's own first window (a sweep's on the sweep's window); the
+    // model in --check is fed through its card's window.
+    let open = OpenOptions { frame: a.frame, window: None };
     let verdicts = if a.verdict.is_empty() {
         vec![Verdict::Marked]
     } else {
@@ -163,7 +164,7 @@ pub fn run(a: &CleanArgs) -> Result<()> {
         out: a.out.clone(),
         exclude: a.exclude.clone(),
         sources,
-        open: open.clone(),
+        open,
         kinds: kinds(&a.kinds)?,
         min_confidence: a.min_confidence,
     };
@@ -205,7 +206,7 @@ pub fn run(a: &CleanArgs) -> Result<()> {
         let setup = CheckSetup {
             model,
             card,
-            open,
+            open: OpenOptions { frame: a.frame, window: card.input.window.clone() },
             groups: match &a.groups {
                 Some(g) => Groups::parse(g)?,
                 None => Groups::Folders,

@@ -70,11 +70,12 @@ impl Inspector {
         if self.sweep.clean.job.is_some_and(|id| self.workers.is_running(id)) {
             return self.note(NoteKind::Warning, "a cleaning is running: cancel it first, or wait for it");
         }
-        let (Some(r), Some(session)) = (self.sweep.result.clone(), self.session.clone()) else {
+        let Some(r) = self.sweep.result.clone() else {
             return self.note(NoteKind::Warning, "clean after a sweep: the sweep says which images carry marks");
         };
         let ledger = self.ledger.ledger().map(|l| l.path().to_path_buf());
-        let open = OpenOptions { frame: 0, window: session.card.input.window.clone() };
+        // As `spurion clean` finds regions, so both resume each other's copy.
+        let open = OpenOptions::default();
         let (images, sweep) = (r.images_root.clone(), r.out.clone());
         let label = format!("cleaning the marked images of {}", short_name(&images));
         let (job, _) = self.workers.spawn(
