@@ -159,6 +159,19 @@ fn check_folders(images: &Path, out: &Path) -> Result<()> {
     Ok(())
 }
 
+/// Whether a cleaning with `job`'s settings may write into `out`: it does not exist, is empty,
+/// or holds a cleaning with exactly these settings (which a run then goes on with).
+pub fn can_write_into(job: &Job<'_>, out: &Path) -> Result<bool> {
+    if !out.exists() {
+        return Ok(true);
+    }
+    let text = serde_json::to_string_pretty(&job.settings())?;
+    match std::fs::read_to_string(out.join(store::STATE_DIR).join("settings.json")) {
+        Ok(t) => Ok(t == text),
+        Err(_) => Ok(std::fs::read_dir(out).with_context(|| format!("cannot list {}", out.display()))?.next().is_none()),
+    }
+}
+
 /// Makes `out` ready: a new folder, or one holding a cleaning with exactly these settings.
 fn prepare_out(out: &Path, settings_text: &str) -> Result<()> {
     let state = out.join(store::STATE_DIR);

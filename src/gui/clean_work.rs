@@ -1,7 +1,8 @@
 //! The sweep view's "clean the marked images": the images the shown sweep flagged suspect, and
 //! the ones the open ledger marks `marked`, painted out into a copy beside the folder
-//! (`FOLDER-clean`) by the engine's `clean::run`, on a worker with progress and cancel (a
-//! cancelled or failed run goes on where it stopped when started again). The cleaned copy of the
+//! (`FOLDER-clean`, or `FOLDER-clean-2` and on when an earlier copy was made with other
+//! settings) by the engine's `clean::run`, on a worker with progress and cancel (a cancelled or
+//! failed run goes on where it stopped when started again). The cleaned copy of the
 //! image on the slide, or else of the first cleaned image, is then opened beside its original.
 
 use std::path::{Path, PathBuf};
@@ -49,16 +50,25 @@ pub fn run(images: PathBuf, sweep: PathBuf, ledger: Option<PathBuf>, open: OpenO
     if let Some(l) = &from_ledger {
         sources.push(l);
     }
-    let out = default_clean_out(&images);
-    let job = Job {
+    let mut job = Job {
         images: images.clone(),
-        out: out.clone(),
+        out: default_clean_out(&images),
         exclude: vec![],
         sources,
         open,
         kinds: vec![RegionKind::BorderBand, RegionKind::BurnedInMark, RegionKind::DrawnRegion],
         min_confidence: 0.0,
     };
+    // A copy made with other settings (the ledger has changed since, say) is kept: the next
+    // free FOLDER-clean-N takes the new one.
+    let first = job.out.clone();
+    let mut n = 1;
+    while !clean::can_write_into(&job, &job.out)? {
+        n += 1;
+        let name = first.file_name().map(|f| f.to_string_lossy().into_owned()).unwrap_or_default();
+        job.out = first.with_file_name(format!("{name}-{n}"));
+    }
+    let out = job.out.clone();
     let outcome = clean::run(&job, ctl)?;
     let cleaned = clean::records(&out)?.into_values().filter(|r| r.action == clean::Action::Cleaned).map(|r| r.file).collect();
     Ok(CleanDone { images, out, outcome, cleaned })

@@ -42,4 +42,19 @@ fn the_marked_images_of_a_sweep_are_cleaned_and_the_copy_opens_beside_the_origin
     assert!(manifest.lines().any(|l| l.starts_with("hillmoor/0002-hillmoor.png,cleaned,") && l.contains("ledger verdict marked")), "{manifest}");
     h.run_steps(2);
     assert!(h.query_by_label("Clean marked images").is_some(), "the button is back once the job ends");
+
+    // Another image marked: the ledger changed, so the next cleaning is a new copy beside the
+    // first, which is kept as it was.
+    let first = std::fs::read_to_string(out.join("spurion-clean.csv")).unwrap();
+    click(&mut h, "hillmoor/0005-hillmoor.png");
+    h.key_press(egui::Key::Num2);
+    h.run_steps(2);
+    wait_until(&mut h, "the ledger to be saved", 30, saved);
+    click(&mut h, "Clean marked images");
+    wait_until(&mut h, "the second cleaning", 120, |a| a.sweep.clean.job.is_none());
+    let second = tmp.path().join("images-clean-2");
+    let manifest = std::fs::read_to_string(second.join("spurion-clean.csv")).unwrap_or_else(|e| panic!("{e}; notes: {:?}", notes(h.state())));
+    assert!(manifest.lines().any(|l| l.starts_with("hillmoor/0005-hillmoor.png,cleaned,")), "{manifest}");
+    assert_eq!(std::fs::read_to_string(out.join("spurion-clean.csv")).unwrap(), first);
+    assert_eq!(h.state().current_image().map(|e| e.path.clone()), Some(second.join("hillmoor/0005-hillmoor.png")));
 }
