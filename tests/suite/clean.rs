@@ -263,43 +263,62 @@ fn cleaned_demo_dicom_stays_valid_and_changes_only_the_painted_pixels() {
 }
 
 #[test]
-fn a_compressed_file_is_cleaned_into_an_uncompressed_one() {
+fn compressed_big_endian_colour_and_multi_frame_files_are_cleaned_into_valid_uncompressed_ones() {
     let Some(_) = crate::common::reference_python() else { return };
-    // pydicom's bundled MR_small_RLE.dcm: RLE Lossless, signed 16-bit, 64×64.
-    let original = crate::dicom_common::dicom_path("MR_small_RLE.dcm", false);
+    // pydicom's bundled test files (pydicom 3.0.2), each with a box drawn as a curator would
+    // draw it over a label: (file, box, image size [columns, rows], frames, what the note says).
+    let cases: [(&str, [usize; 4], [usize; 2], usize, &[&str]); 4] = [
+        ("MR_small_RLE.dcm", [4, 6, 20, 14], [64, 64], 1, &["written uncompressed (Explicit VR Little Endian) from RLE Lossless"]),
+        ("SC_rgb_rle.dcm", [10, 10, 40, 30], [100, 100], 1, &["written uncompressed (Explicit VR Little Endian) from RLE Lossless"]),
+        ("ExplVR_BigEnd.dcm", [5, 5, 30, 20], [80, 60], 1, &["written as Explicit VR Little Endian from", "Planar Configuration 1 written as 0"]),
+        ("rtdose.dcm", [2, 2, 5, 5], [10, 10], 15, &["written as Explicit VR Little Endian from"]),
+    ];
     let dir = tempfile::tempdir().unwrap();
     let src = dir.path().join("src");
     std::fs::create_dir_all(&src).unwrap();
-    std::fs::copy(&original, src.join("mr.dcm")).unwrap();
-    // A drawn box, as a curator would draw it over a label.
     let led = dir.path().join("spurion-ledger.json");
-    let shape = DrawnShape { label: "label".into(), shape: Shape::Rect { bbox: [4.0, 6.0, 20.0, 14.0] } };
-    commit(&led, Some(&src), &mut spurion::ledger::DiskWriter, |l: &mut Ledger| {
-        l.apply(&Change::verdict("mr.dcm", Some(Verdict::Marked)));
-        l.apply(&Change::now("mr.dcm", Edit::AddDrawn { shapes: vec![shape], image_size: Some([64, 64]) }));
-    })
-    .unwrap();
+    for (name, b, size, _, _) in &cases {
+        std::fs::copy(crate::dicom_common::dicom_path(name, false), src.join(name)).unwrap();
+        let shape = DrawnShape { label: "label".into(), shape: Shape::Rect { bbox: b.map(|v| v as f64) } };
+        commit(&led, Some(&src), &mut spurion::ledger::DiskWriter, |l: &mut Ledger| {
+            l.apply(&Change::verdict(*name, Some(Verdict::Marked)));
+            l.apply(&Change::now(*name, Edit::AddDrawn { shapes: vec![shape], image_size: Some(*size) }));
+        })
+        .unwrap();
+    }
     let source = LedgerSource::open(&led, vec![Verdict::Marked], LedgerRegions::Drawn, Default::default()).unwrap();
     let out = dir.path().join("clean");
     let job = Job { images: src.clone(), out: out.clone(), exclude: vec![], sources: vec![&source], open: OpenOptions::default(), kinds: all_kinds(), min_confidence: 0.0 };
     let before = hashes(&src);
     clean::run(&job, &Control::new()).unwrap();
     assert_eq!(hashes(&src), before);
-    let rows = assert_manifest_complete(&src, &out, &["mr.dcm".to_string()]);
-    assert_eq!(rows[0].boxes, "4 6 20 14");
-    assert!(rows[0].note.contains("written uncompressed (Explicit VR Little Endian) from RLE Lossless"), "{}", rows[0].note);
-    assert_eq!(rows[0].pixels_painted, 16 * 8);
-    let rb = &readback(&src, &out, &["mr.dcm"])[0];
-    assert_eq!(rb.transfer_syntax, "1.2.840.10008.1.2.1");
-    assert!(inside_any(rb.diff_box.unwrap(), &[[4, 6, 20, 14]]), "{:?}", rb.diff_box);
-    for (k, [a, b]) in &rb.kept {
-        assert_eq!(a, b, "{k} kept");
+    let names: Vec<String> = cases.iter().map(|c| c.0.to_string()).collect();
+    let rows = assert_manifest_complete(&src, &out, &names);
+    for (name, b, _, frames, notes) in &cases {
+        let row = rows.iter().find(|r| r.file == *name).unwrap();
+        assert_eq!(row.boxes, format!("{} {} {} {}", b[0], b[1], b[2], b[3]));
+        assert_eq!(row.pixels_painted, (b[2] - b[0]) * (b[3] - b[1]) * frames, "{name}: every frame is painted");
+        for n in *notes {
+            assert!(row.note.contains(n), "{name}: {}", row.note);
+        }
+        assert_changes_inside(&src.join(name), &out.join(name), &[*b]);
+        if let Some(errors) = dciodvfy_errors(&out.join(name)) {
+            // dciodvfy's verdict on the original is the bar: the copy adds no error of its own.
+            let base = dciodvfy_errors(&src.join(name)).unwrap();
+            let new: Vec<&String> = errors.iter().filter(|e| !base.contains(e)).collect();
+            assert!(new.is_empty(), "{name}: dciodvfy errors the cleaning added: {new:?}");
+        }
     }
-    if let Some(errors) = dciodvfy_errors(&out.join("mr.dcm")) {
-        // dciodvfy's verdict on the original is the bar: the copy adds no error of its own.
-        let base = dciodvfy_errors(&src.join("mr.dcm")).unwrap();
-        let new: Vec<&String> = errors.iter().filter(|e| !base.contains(e)).collect();
-        assert!(new.is_empty(), "dciodvfy errors the cleaning added: {new:?}");
+    let refs: Vec<&str> = names.iter().map(String::as_str).collect();
+    for (rb, (name, b, _, _, _)) in readback(&src, &out, &refs).iter().zip(&cases) {
+        assert_eq!(rb.transfer_syntax, "1.2.840.10008.1.2.1", "{name}");
+        assert!(inside_any(rb.diff_box.unwrap(), &[*b]), "{name}: {:?}", rb.diff_box);
+        for (k, [x, y]) in &rb.kept {
+            assert_eq!(x, y, "{name}: {k} kept");
+        }
+        assert_eq!(rb.shape[0], rb.shape[1], "{name}");
+        assert_eq!(rb.dtype[0], rb.dtype[1], "{name}");
+        assert_eq!(rb.deid_codes, vec![rb.dictionary.clone()]);
     }
 }
 
