@@ -15,6 +15,7 @@
 //!
 //! spurion is a research and data-quality tool, not a diagnostic device.
 
+pub mod clean;
 pub mod control;
 pub mod demo;
 pub mod feed;

@@ -3,6 +3,7 @@
 //! cancelled with Ctrl-C.
 
 mod card;
+mod clean;
 pub mod explain;
 mod feed;
 pub mod ledger;
@@ -67,6 +68,10 @@ pub enum Command {
     SweepMerge(sweep::MergeArgs),
     /// The curator's ledger: verdicts, notes and drawn regions per image, saved at once.
     Ledger(ledger::LedgerArgs),
+    /// A cleaned copy of a folder: the marks a ledger or a sweep picked painted out, DICOM kept
+    /// valid, a manifest of every change; resumable. --check MODEL reports what the model does
+    /// without the marks.
+    Clean(clean::CleanArgs),
     /// Writes a demo set of phantom images with ground-truth masks and a manifest.
     Demo(DemoArgs),
     /// Opens the desktop inspector.
@@ -283,6 +288,7 @@ pub fn run(command: Command) -> Result<()> {
         Command::Sweep(a) => sweep::run(&a),
         Command::SweepMerge(a) => sweep::merge(&a),
         Command::Ledger(a) => ledger::run(&a),
+        Command::Clean(a) => clean::run(&a),
     }
 }
 

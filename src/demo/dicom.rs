@@ -101,6 +101,13 @@ pub fn write_demo_dicom(path: &Path, gray: &Array2<u16>, bits: u8, meta: &DemoDi
         text(tags::STUDY_TIME, VR::TM, ""),
         text(tags::ACCESSION_NUMBER, VR::SH, ""),
         text(tags::MODALITY, VR::CS, &meta.modality),
+        // Type 2 in General Equipment (PS3.3 C.7.5.1): present, here naming the generator.
+        text(tags::MANUFACTURER, VR::LO, "spurion demo phantom generator"),
+        // Type 2C in General Series and General Image (PS3.3 C.7.3.1, C.7.6.1): present and
+        // empty, as a phantom has no paired body part and no patient orientation to state.
+        // dciodvfy (dicom3tools) reported both missing before.
+        text(tags::LATERALITY, VR::CS, ""),
+        text(tags::PATIENT_ORIENTATION, VR::CS, ""),
         // SYN: a synthetic image (PS3.3 C.8.6.1, Conversion Type).
         text(tags::CONVERSION_TYPE, VR::CS, "SYN"),
         text(tags::INSTITUTION_NAME, VR::LO, &format!("Brackenridge Imaging Cooperative {} (demo)", meta.site.name())),

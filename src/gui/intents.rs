@@ -40,6 +40,9 @@ pub enum Intent {
     StartSweep,
     /// Show the files of a sweep made earlier into the sweep's folder.
     LoadSweep,
+    /// Paint the marks of the shown sweep's suspect images (and the ledger's marked ones) out
+    /// into a cleaned copy.
+    CleanMarked,
     /// Open the image of this sweep row (an index into the rows) in the slide.
     OpenRow(usize),
     /// Move the slide to the next (+1) or previous (−1) row of the table as it is shown.
@@ -96,6 +99,7 @@ impl Inspector {
                 }
                 Intent::StartSweep => self.start_sweep(),
                 Intent::LoadSweep => self.load_sweep(),
+                Intent::CleanMarked => self.start_clean(),
                 Intent::OpenRow(i) => self.open_row(i),
                 Intent::StepRow(d) => self.step_row(d),
                 Intent::SortBy(c) => self.sweep.sort_by(c),

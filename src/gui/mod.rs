@@ -9,6 +9,7 @@
 //! figures from `spurion::methods::agree`; this module only turns them into pixels and text.
 
 pub mod app;
+pub mod clean_work;
 pub mod config;
 pub mod engine;
 pub mod export;

@@ -102,6 +102,7 @@ impl Inspector {
                 Done::Review(d) => self.review_done(id, d),
                 Done::Ledger { path, result } => self.ledger_opened(path, result),
                 Done::Sweep { id, result, cancelled } => self.sweep_done(id, result, cancelled),
+                Done::Clean { result, cancelled } => self.clean_done(result, cancelled),
                 Done::Thumb { sweep, rel, result } => self.thumb_done(sweep, rel, result),
                 Done::Finished => {}
                 Done::Failed(e) => self.note(NoteKind::Error, e),

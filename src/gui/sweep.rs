@@ -154,6 +154,8 @@ pub struct SweepState {
     /// Each row's key in the ledger, for the ledger at this path.
     keys: Vec<Option<String>>,
     keys_for: Option<(u64, Option<PathBuf>)>,
+    /// The cleaning of the marked images.
+    pub clean: super::clean_work::CleanState,
 }
 
 impl Default for SweepState {
@@ -179,6 +181,7 @@ impl Default for SweepState {
             order_for: None,
             keys: Vec::new(),
             keys_for: None,
+            clean: Default::default(),
         }
     }
 }

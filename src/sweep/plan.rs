@@ -205,7 +205,7 @@ fn walk(dir: &Path, out: &mut Vec<PathBuf>) -> Result<()> {
 
 /// Relative path (to the images folder) → group, from a CSV manifest whose paths are relative
 /// to the manifest's own folder or to the images folder.
-fn read_groups(file: &Path, column: &str, root: &Path) -> Result<HashMap<String, String>> {
+pub fn read_groups(file: &Path, column: &str, root: &Path) -> Result<HashMap<String, String>> {
     let here = file.parent().unwrap_or(Path::new("."));
     let (here_abs, root_abs) = (std::path::absolute(here)?, std::path::absolute(root)?);
     let mut r = csv::Reader::from_path(file).with_context(|| format!("cannot read the groups manifest {}", file.display()))?;

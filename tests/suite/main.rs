@@ -2,6 +2,8 @@
 //! tract, egui and eframe once instead of once per file.
 
 mod common;
+mod clean;
+mod clean_check;
 mod cli_explain;
 mod demo_generator;
 mod demo_models;
@@ -14,6 +16,7 @@ mod engine_ops;
 mod engine_torch;
 mod engine_whole;
 mod feed_card;
+mod gui_clean;
 mod gui_curate;
 mod gui_inspector;
 mod gui_review;

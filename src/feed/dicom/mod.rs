@@ -7,12 +7,14 @@
 //!
 //! Files: opening and the defects found before decoding (`open.rs`), the header, the samples,
 //! the Modality LUT and the VOI LUT module (`pixels.rs`), the identifying attributes
-//! (`privacy.rs`), attribute access with messages that name the attribute (`attrs.rs`).
+//! (`privacy.rs`), every frame's stored samples for tools that write pixels back (`stored.rs`),
+//! attribute access with messages that name the attribute (`attrs.rs`).
 
 mod attrs;
 mod open;
 mod pixels;
 mod privacy;
+mod stored;
 
 use std::borrow::Cow;
 use std::panic::{AssertUnwindSafe, catch_unwind};
@@ -38,6 +40,7 @@ use open::*;
 use pixels::*;
 use privacy::identifying;
 pub use privacy::BASIC_PROFILE;
+pub use stored::{StoredColour, StoredDicom, read_stored};
 
 /// One DICOM image frame, read.
 pub struct DicomImage {

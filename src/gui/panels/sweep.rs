@@ -76,6 +76,35 @@ pub(super) fn sweep_controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut V
             if ui.button("Show files").on_hover_text("shows the sweep already in the files folder (made here or by spurion sweep)").clicked() {
                 out.push(Intent::LoadSweep);
             }
+            clean_controls(ui, app, out);
+        }
+    }
+}
+
+/// Cleaning the marked images of the shown sweep: the button, or the running job's progress
+/// and cancel.
+fn clean_controls(ui: &mut egui::Ui, app: &Inspector, out: &mut Vec<Intent>) {
+    let Some(r) = app.sweep.result.as_ref() else { return };
+    let running = app.sweep.clean.job.and_then(|id| app.workers.running.iter().find(|j| j.id == id).map(|j| (id, j.ctl.clone())));
+    match running {
+        Some((id, ctl)) => {
+            let (done, total) = ctl.progress();
+            let text = if total == 0 { "listing the files…".to_string() } else { format!("cleaning: {done}/{total} files") };
+            ui.add(egui::ProgressBar::new(ctl.fraction()).desired_width(220.0).fill(look::LILAC.gamma_multiply(0.6)).text(text));
+            if ui.button("Cancel cleaning").clicked() {
+                out.push(Intent::Cancel(id));
+            }
+        }
+        None => {
+            let to = crate::gui::clean_work::default_clean_out(&r.images_root);
+            let hint = format!(
+                "paints the marks of the sweep's suspect images, and of the images the ledger marks marked, out into a copy of the folder \
+                 ({}; the folder itself is never written), then opens the cleaned copy beside the original",
+                to.display()
+            );
+            if ui.button("Clean marked images").on_hover_text(hint).clicked() {
+                out.push(Intent::CleanMarked);
+            }
         }
     }
 }
