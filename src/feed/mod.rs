@@ -2,6 +2,7 @@
 
 mod card;
 pub mod dicom;
+pub mod enlarge;
 mod picture;
 mod prepare;
 pub mod window;

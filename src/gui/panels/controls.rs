@@ -212,12 +212,14 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
             ui.heading("Export");
             ui.horizontal(|ui| {
                 let l = ui.label("to");
-                ui.add(egui::TextEdit::singleline(&mut app.export_dir).desired_width(180.0)).labelled_by(l.id);
+                let w = (ui.available_width() - 40.0).clamp(80.0, 180.0);
+                ui.add(egui::TextEdit::singleline(&mut app.export_dir).desired_width(w)).labelled_by(l.id);
                 if ui.small_button("…").clicked() {
                     out.push(Intent::Pick(Pick::ExportFolder));
                 }
             });
-            ui.horizontal(|ui| {
+            // Wrapped: the three buttons stay whole however narrow the panel is.
+            ui.horizontal_wrapped(|ui| {
                 if ui.button("view PNG").clicked() {
                     out.push(Intent::Export(ExportWhat::View));
                 }

@@ -229,12 +229,16 @@ fn table(ui: &mut egui::Ui, app: &mut Inspector, r: &SweepDone, order: &[usize],
                 cell(ui, Column::MarkShare, RichText::new(fmt_opt(row.mark_share, 2)).monospace());
                 cell(ui, Column::Lift, RichText::new(fmt_opt(row.lift, 1)).monospace());
                 cell(ui, Column::Removal, RichText::new(removal_cell(row, &labels)).monospace());
-                let suspect = if row.suspect {
-                    RichText::new(format!("suspect · {}", row.evidence)).color(look::SIGNAL).strong()
+                if row.suspect {
+                    // Two lines, so that "attribution + removal" is read whole in the column.
+                    ui.allocate_ui_with_layout(vec2(width(Column::Suspect), ROW), egui::Layout::top_down(egui::Align::Min), |ui| {
+                        ui.label(RichText::new("suspect").color(look::SIGNAL).strong());
+                        ui.add(egui::Label::new(RichText::new(row.evidence.replace('+', " + ")).small().color(look::SIGNAL)).truncate())
+                            .on_hover_text(format!("suspect by {}", row.evidence.replace('+', " and ")));
+                    });
                 } else {
-                    RichText::new("—").color(look::ASH)
-                };
-                cell(ui, Column::Suspect, suspect);
+                    cell(ui, Column::Suspect, RichText::new("—").color(look::ASH));
+                }
                 let v = match verdict {
                     Some(v) => RichText::new(v.name()).strong(),
                     None => RichText::new("none yet").color(look::ASH),
