@@ -11,7 +11,7 @@ fn spurion_in(dir: &Path, umask: &str, args: &[&str]) -> Output {
     // Through the shell, so that the umask is the one a user's terminal would have.
     let mut script = format!("umask {umask}; exec \"$0\"");
     for i in 1..=args.len() {
-        script.push_str(&format!(" \"${i}\""));
+        script.push_str(&format!(" \"${{{i}}}\""));
     }
     Command::new("sh").arg("-c").arg(script).arg(env!("CARGO_BIN_EXE_spurion")).args(args).current_dir(dir).output().expect("run spurion")
 }

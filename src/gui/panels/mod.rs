@@ -44,9 +44,10 @@ pub fn bottom_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent
         BottomTab::Strip => ("strip", 255.0),
         BottomTab::Sweep => ("sweep", 380.0),
     };
-    // Never more than 40 % of the window by default, so that the slide keeps room for its
-    // picture and region labels on a small screen (1280×800).
-    let size = size.min(0.4 * ui.ctx().content_rect().height()).max(120.0);
+    // The sweep's table takes at most 30 % of the window by default (it can be dragged
+    // taller), so that the slide keeps room for its picture and region labels on a small
+    // screen (1280×800).
+    let size = if tab == BottomTab::Sweep { size.min(0.3 * ui.ctx().content_rect().height()).max(120.0) } else { size };
     egui::Panel::bottom(id).resizable(true).default_size(size).min_size(120.0).show(ui, |ui| {
         // A panel is as tall as its content: fill the height it was given (default or dragged),
         // else it settles at whatever its first, empty frame needed.
