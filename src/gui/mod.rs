@@ -124,6 +124,31 @@ pub fn first_marked_positive(demo: &Path) -> Option<PathBuf> {
         .filter(|p| p.is_file())
 }
 
+/// A time left as people say it: "40 s", "7 min", "1 h 20 min".
+pub fn duration_text(secs: f64) -> String {
+    let s = secs.max(0.0).round() as u64;
+    match s {
+        0..=89 => format!("{s} s"),
+        90..=3599 => format!("{} min", (s + 30) / 60),
+        _ => {
+            let m = (s + 30) / 60;
+            format!("{} h {} min", m / 60, m % 60)
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    #[test]
+    fn times_left_read_as_people_say_them() {
+        assert_eq!(super::duration_text(42.4), "42 s");
+        assert_eq!(super::duration_text(1094.0), "18 min");
+        assert_eq!(super::duration_text(3599.0), "60 min");
+        assert_eq!(super::duration_text(4830.0), "1 h 21 min");
+        assert_eq!(super::duration_text(7199.0), "2 h 0 min");
+    }
+}
+
 /// A path shortened for labels: the file name, or the whole path if it has none.
 pub(crate) fn short_name(p: &Path) -> String {
     p.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| p.display().to_string())

@@ -44,10 +44,11 @@ pub fn bottom_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent
         BottomTab::Strip => ("strip", 255.0),
         BottomTab::Sweep => ("sweep", 380.0),
     };
-    // The sweep's table takes at most 30 % of the window by default (it can be dragged
-    // taller), so that the slide keeps room for its picture and region labels on a small
-    // screen (1280×800).
-    let size = if tab == BottomTab::Sweep { size.min(0.3 * ui.ctx().content_rect().height()).max(120.0) } else { size };
+    // The strip (its tiles shrink to fit) and the sweep's table take at most 30 % of the
+    // window by default (they can be dragged taller), so that the slide keeps room for its
+    // picture and region labels on a small screen (1280×800). The strip with curves needs its
+    // height.
+    let size = if curves && tab == BottomTab::Strip { size } else { size.min(0.3 * ui.ctx().content_rect().height()).max(120.0) };
     egui::Panel::bottom(id).resizable(true).default_size(size).min_size(120.0).show(ui, |ui| {
         // A panel is as tall as its content: fill the height it was given (default or dragged),
         // else it settles at whatever its first, empty frame needed.

@@ -61,8 +61,14 @@ pub(super) fn sweep_controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut V
             } else {
                 let secs = app.sweep.started.map_or(0.0, |t| t.elapsed().as_secs_f64());
                 let rate = if secs > 0.0 { done as f64 / secs } else { 0.0 };
-                let left = if rate > 0.0 { format!(", about {:.0} s left", (total - done) as f64 / rate) } else { String::new() };
-                format!("{done}/{total} images, {rate:.1} images a second{left}")
+                let left = if rate > 0.0 { format!(", about {} left", crate::gui::duration_text((total - done) as f64 / rate)) } else { String::new() };
+                // A slow sweep reads "an image every 12 s", never "0.0 images a second".
+                let pace = match rate {
+                    r if r >= 0.95 => format!("{r:.1} images a second"),
+                    r if r > 0.0 => format!("an image every {:.0} s", 1.0 / r),
+                    _ => "first image under way".to_string(),
+                };
+                format!("{done}/{total} images, {pace}{left}")
             };
             ui.add(egui::ProgressBar::new(ctl.fraction()).desired_width(320.0).fill(look::LILAC.gamma_multiply(0.6)).text(text));
             if ui.button("Cancel sweep").clicked() {
