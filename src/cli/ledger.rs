@@ -179,7 +179,7 @@ fn existing_image(ledger: &Ledger, image: &Path) -> Result<String> {
     // A missing file is said to be missing, before the question of which folder it is in.
     if !image.exists() && !ledger.root_dir().join(image).exists() {
         bail!(
-            "image {} does not exist (looked for it from the current folder and in the ledger's root {}); check the path",
+            "image {} not found: it does not exist (looked for it from the current folder and in the ledger's root {}); check the path",
             image.display(),
             ledger.root_dir().display()
         );

@@ -114,7 +114,7 @@ fn ledger_set_on_a_missing_image_says_it_does_not_exist() {
     let o = spurion_in(dir.path(), "022", &["ledger", "set", "--ledger", ".", "--image", "nothere.png", "--verdict", "marked"]);
     assert_eq!(o.status.code(), Some(1));
     let err = String::from_utf8_lossy(&o.stderr);
-    assert!(err.contains("nothere.png does not exist") && !err.contains("not inside"), "{err}");
+    assert!(err.contains("nothere.png not found: it does not exist") && !err.contains("not inside"), "{err}");
     // Outside the root and missing: still "does not exist", the first thing to fix.
     let o = spurion_in(dir.path(), "022", &["ledger", "set", "--ledger", ".", "--image", "/nowhere/b.png", "--verdict", "marked"]);
     assert!(String::from_utf8_lossy(&o.stderr).contains("does not exist"));

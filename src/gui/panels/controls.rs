@@ -279,7 +279,8 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
 
 /// The export row: where to, and the three files.
 fn export_section(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
-    ui.add_space(4.0);
+    // A line where the scrolled settings above end.
+    ui.separator();
     ui.heading("Export");
     ui.horizontal(|ui| {
         let l = ui.label("to");
