@@ -24,7 +24,8 @@ pub struct ExplainArgs {
     pub input: InputArgs,
     #[command(flatten)]
     pub reading: ReadingArgs,
-    /// Folder for the reading's files (default: reading-<input name>-<method>).
+    /// Folder for the reading's files (default: reading-<input name>-<method>, or with -2, -3, … added
+    /// when that folder is already there: an earlier result is never written over).
     #[arg(long)]
     pub out: Option<PathBuf>,
     /// Which sign the pictures show: supporting | opposing | both | magnitude.
@@ -154,7 +155,7 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     let ctl = control_for(&bar);
     let e = compute(a, &ctl)?;
     bar.finish_and_clear();
-    let out = a.out.clone().unwrap_or_else(|| default_out(&e.input, &e.reading.method));
+    let out = a.out.clone().unwrap_or_else(|| unused_folder(default_out(&e.input, &e.reading.method)));
     write_files(a, &e, &out)?;
     let reading = &e.reading;
     let suspect = e.assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
@@ -219,6 +220,21 @@ fn default_out(input: &Input, method: &str) -> PathBuf {
     let name = input.name();
     let stem = Path::new(&name).file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or(name);
     PathBuf::from(format!("reading-{stem}-{method}"))
+}
+
+/// `base`, or when a folder of that name is already there (an earlier run without `--out`),
+/// the first free `base-2`, `base-3`, … so that no earlier result is written over; says so.
+pub(crate) fn unused_folder(base: PathBuf) -> PathBuf {
+    if !base.exists() {
+        return base;
+    }
+    let free = (2..).map(|k| PathBuf::from(format!("{}-{k}", base.display()))).find(|p| !p.exists()).expect("some number is free");
+    eprintln!(
+        "note: {} already holds an earlier result, kept as it is; this one goes into {} (give --out to choose)",
+        base.display(),
+        free.display()
+    );
+    free
 }
 
 pub(super) fn write_json(path: &Path, v: &serde_json::Value) -> Result<()> {

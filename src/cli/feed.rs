@@ -1,6 +1,7 @@
 //! `spurion feed`: an image exactly as it is decoded and windowed for a model, before resizing
-//! and normalisation, so that users and tests can see what the model gets; with
-//! `--from-reading`, the model-input tensor a reading was made of, from its reading.json alone.
+//! and normalisation, so that users and tests can see what the model gets; with `--model`, the
+//! very tensor the model is given (the form `explain --tensor` takes); with `--from-reading`, the
+//! model-input tensor a reading was made of, from its reading.json alone.
 
 use std::path::PathBuf;
 
@@ -27,9 +28,13 @@ pub struct FeedArgs {
     /// The frame of a multi-frame DICOM file, from 0.
     #[arg(long, default_value_t = 0)]
     pub frame: usize,
-    /// The .npy to write: float32, H×W×C, values 0..1 (with --from-reading: the model's input).
+    /// The .npy to write: float32, H×W×C, values 0..1; with --model or --from-reading, the model's input tensor.
     #[arg(long)]
     pub out: PathBuf,
+    /// Write the tensor this model is given instead: resized, scaled, normalised and laid out
+    /// by its feed card (--feed, or its sidecar MODEL.feed.toml), as `explain --tensor` takes it.
+    #[arg(long, short = 'm', conflicts_with = "from_reading")]
+    pub model: Option<PathBuf>,
 }
 
 pub fn run(a: &FeedArgs) -> Result<()> {
@@ -38,6 +43,16 @@ pub fn run(a: &FeedArgs) -> Result<()> {
         let t = crate::report::tensor_from_reading(&text, r, &a.image)?;
         write_tensor(&a.out, &t).with_context(|| format!("writing {}", a.out.display()))?;
         println!("{}: the model-input tensor {:?} of the reading in {} → {}", a.image.display(), t.shape(), r.display(), a.out.display());
+        return Ok(());
+    }
+    if let Some(m) = &a.model {
+        let margs = super::ModelArgs { model: m.clone(), input_shape: None, feed: a.feed.clone(), output: None };
+        let model = margs.load()?;
+        let card = margs.card(&model)?;
+        let pic = Picture::open_with(&a.image, &OpenOptions { frame: a.frame, window: card.input.window.clone() })?;
+        let x = crate::methods::Input::picture(pic, &card).with_context(|| format!("image {}", a.image.display()))?.model_tensor()?;
+        write_tensor(&a.out, &x).with_context(|| format!("writing {}", a.out.display()))?;
+        println!("{}: the input tensor of {}, shape {:?} → {}", a.image.display(), m.display(), x.shape(), a.out.display());
         return Ok(());
     }
     let window = match &a.feed {

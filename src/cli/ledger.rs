@@ -176,6 +176,14 @@ fn absolute(p: &Path) -> Result<PathBuf> {
 
 /// The key of an image that must exist in the ledger's root.
 fn existing_image(ledger: &Ledger, image: &Path) -> Result<String> {
+    // A missing file is said to be missing, before the question of which folder it is in.
+    if !image.exists() && !ledger.root_dir().join(image).exists() {
+        bail!(
+            "image {} not found: it does not exist (looked for it from the current folder and in the ledger's root {}); check the path",
+            image.display(),
+            ledger.root_dir().display()
+        );
+    }
     let key = ledger.key_for(image)?;
     let at = ledger.image_path(&key);
     if !at.is_file() {

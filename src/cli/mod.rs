@@ -249,7 +249,8 @@ pub struct DemoArgs {
     #[arg(long)]
     pub no_masks: bool,
     /// Also write DICOM copies of the first N images into OUT/dicom (invented patient data,
-    /// a demo UID root; Burned In Annotation YES where Hillmoor's tag is burned in).
+    /// a demo UID root; Burned In Annotation YES where Hillmoor's tag is burned in). In a set
+    /// without --by-site they lie below the PNGs they copy: sweep it with --exclude dicom.
     #[arg(long, default_value_t = 0, value_name = "N")]
     pub dicom: usize,
     /// Write the images into one folder per site below OUT/images (images/hillmoor/...), the way
@@ -385,6 +386,9 @@ pub fn load_input(
     let card = margs.card(model)?;
     let opts = crate::feed::OpenOptions { frame: input.frame, window: card.input.window.clone() };
     let pic = crate::feed::Picture::open_with(path, &opts)?;
+    if let Some(w) = crate::feed::enlarge::enlargement_warning(&card, pic.height(), pic.width()) {
+        eprintln!("warning: {}: {w}", path.display());
+    }
     let inp = crate::methods::Input::picture(pic, &card).with_context(|| format!("image {}", path.display()))?;
     Ok((inp, Some(card)))
 }

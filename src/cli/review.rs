@@ -83,7 +83,8 @@ pub struct ReviewArgs {
     /// Feed card of the --against model (default: its sidecar MODEL.feed.toml, else inferred).
     #[arg(long)]
     pub against_feed: Option<PathBuf>,
-    /// Folder for review.json and review.png (default: review-<input name>).
+    /// Folder for review.json and review.png (default: review-<input name>, or with -2, -3, …
+    /// added when that folder is already there: an earlier review is never written over).
     #[arg(long)]
     pub out: Option<PathBuf>,
     /// Which sign the pictures show: supporting | opposing | both | magnitude.
@@ -200,7 +201,8 @@ fn compute_and_write(
 
     let out = a.out.clone().unwrap_or_else(|| {
         let name = input.name();
-        PathBuf::from(format!("review-{}", Path::new(&name).file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or(name)))
+        let base = PathBuf::from(format!("review-{}", Path::new(&name).file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or(name)));
+        super::explain::unused_folder(base)
     });
     std::fs::create_dir_all(&out).with_context(|| format!("cannot create output folder {} (check permissions or choose another --out)", out.display()))?;
     let case = review::Case::new(&model, card.as_ref(), &input, &req, &r.reading)?;

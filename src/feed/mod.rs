@@ -2,6 +2,7 @@
 
 mod card;
 pub mod dicom;
+pub mod enlarge;
 mod make;
 mod origin;
 mod picture;

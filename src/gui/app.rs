@@ -60,6 +60,8 @@ pub struct Inspector {
     /// The window was asked to close: it closes once the ledger's changes are saved (or the
     /// user, told what is not saved, closes it anyway).
     pub closing: bool,
+    /// The window has been fitted to its monitor (once, on the first frame that knows it).
+    pub window_fitted: bool,
 }
 
 /// The feed window's state: shown or not, the preset chosen, a labels file typed.
@@ -111,6 +113,7 @@ impl Inspector {
             draw: DrawState::default(),
             slide_place: None,
             closing: false,
+            window_fitted: false,
         };
         // First-run status line: the caution, until something else is said.
         app.note(NoteKind::Info, crate::CAUTION);
@@ -186,6 +189,7 @@ impl Inspector {
         self.sync_slide();
         self.sync_thumbnails();
         self.guard_close(ui);
+        self.fit_window(ui);
         if self.config.strip_on_start && self.current_shown().is_some() {
             self.config.strip_on_start = false;
             self.compute_strip();
@@ -239,6 +243,20 @@ impl Inspector {
                 self.draw.points.clear();
             }
         }
+    }
+
+    /// Once the monitor's size is known, sizes the window to it (`super::window_size_for`), so
+    /// that it opens whole on a small screen and roomy on a large one.
+    fn fit_window(&mut self, ui: &egui::Ui) {
+        if self.window_fitted {
+            return;
+        }
+        let Some(monitor) = ui.input(|i| i.viewport().monitor_size) else { return };
+        self.window_fitted = true;
+        let size = super::window_size_for(Some(monitor));
+        ui.send_viewport_cmd(egui::ViewportCommand::InnerSize(size));
+        let corner = ((monitor - size) * 0.5).max(egui::Vec2::ZERO);
+        ui.send_viewport_cmd(egui::ViewportCommand::OuterPosition(corner.to_pos2()));
     }
 
     /// When the window is asked to close: it stays open until the ledger's last changes are

@@ -51,8 +51,9 @@ pub fn run(opts: GuiOptions) -> anyhow::Result<()> {
     let native = eframe::NativeOptions {
         viewport: egui::ViewportBuilder::default()
             .with_title("spurion inspector")
-            .with_inner_size([1360.0, 860.0])
-            .with_min_inner_size([900.0, 600.0])
+            // Fits a 1280×800 screen; the first frame fits it to the monitor (`window_size_for`).
+            .with_inner_size(window_size_for(None))
+            .with_min_inner_size(MIN_WINDOW)
             .with_drag_and_drop(true),
         ..Default::default()
     };
@@ -72,6 +73,24 @@ pub fn run(opts: GuiOptions) -> anyhow::Result<()> {
         )
     })
 }
+
+/// The size the inspector's window opens at (its inner size, in points) on a monitor of
+/// `monitor` points: as large as [`PREFERRED_WINDOW`] where the monitor allows, else the
+/// monitor less room for a title bar and a task bar, never under the window's minimum. Without
+/// a known monitor, a size that fits a 1280×800 screen.
+pub fn window_size_for(monitor: Option<egui::Vec2>) -> egui::Vec2 {
+    let monitor = monitor.filter(|m| m.x > 0.0 && m.y > 0.0).unwrap_or(egui::vec2(1280.0, 800.0));
+    let room = monitor - WINDOW_MARGIN;
+    PREFERRED_WINDOW.min(room).max(MIN_WINDOW)
+}
+
+/// The window's size on a monitor with room to spare.
+pub const PREFERRED_WINDOW: egui::Vec2 = egui::vec2(1600.0, 1000.0);
+/// The smallest window the panels are laid out for.
+pub const MIN_WINDOW: egui::Vec2 = egui::vec2(900.0, 600.0);
+/// Left free around the window on the monitor: a title bar and a task bar (common practice for
+/// desktop windows sized from the screen).
+const WINDOW_MARGIN: egui::Vec2 = egui::vec2(40.0, 80.0);
 
 /// What the inspector opens when started with no arguments.
 #[derive(Clone, Debug, Default)]
@@ -104,6 +123,31 @@ pub fn first_marked_positive(demo: &Path) -> Option<PathBuf> {
         .find(|r| r.site == crate::demo::Site::Hillmoor && r.finding)
         .map(|r| demo.join(&r.file))
         .filter(|p| p.is_file())
+}
+
+/// A time left as people say it: "40 s", "7 min", "1 h 20 min".
+pub fn duration_text(secs: f64) -> String {
+    let s = secs.max(0.0).round() as u64;
+    match s {
+        0..=89 => format!("{s} s"),
+        90..=3599 => format!("{} min", (s + 30) / 60),
+        _ => {
+            let m = (s + 30) / 60;
+            format!("{} h {} min", m / 60, m % 60)
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    #[test]
+    fn times_left_read_as_people_say_them() {
+        assert_eq!(super::duration_text(42.4), "42 s");
+        assert_eq!(super::duration_text(1094.0), "18 min");
+        assert_eq!(super::duration_text(3599.0), "60 min");
+        assert_eq!(super::duration_text(4830.0), "1 h 21 min");
+        assert_eq!(super::duration_text(7199.0), "2 h 0 min");
+    }
 }
 
 /// A path shortened for labels: the file name, or the whole path if it has none.

@@ -227,7 +227,14 @@ pub struct ReviewState {
 impl Inspector {
     pub(crate) fn apply_review(&mut self, i: ReviewIntent) {
         match i {
-            ReviewIntent::Open(open) => self.review.open = open,
+            ReviewIntent::Open(open) => {
+                self.review.open = open;
+                // One click: opening the review runs it on the slide's reading unless it has
+                // already run (or runs) for it; "Run review" runs it again with other settings.
+                if open && self.current_review().is_none() && !self.review_running() {
+                    self.start_review();
+                }
+            }
             ReviewIntent::Run => self.start_review(),
             ReviewIntent::Cancel => {
                 if let Some(r) = &self.review.run {

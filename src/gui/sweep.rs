@@ -193,6 +193,11 @@ pub fn default_out(images: &Path) -> PathBuf {
     images.parent().unwrap_or(Path::new(".")).join(format!("{name}-sweep"))
 }
 
+/// Whether `dir` holds a sub-folder other than `except` (a cheap look at one folder).
+fn has_sub_folders_but(dir: &Path, except: &str) -> bool {
+    std::fs::read_dir(dir).is_ok_and(|rd| rd.flatten().any(|e| e.path().is_dir() && e.file_name() != except))
+}
+
 /// Orders two optional figures, a missing one last whichever way the column is sorted.
 fn by_figure(a: Option<f64>, b: Option<f64>, descending: bool) -> std::cmp::Ordering {
     use std::cmp::Ordering::*;
@@ -219,6 +224,11 @@ impl SweepState {
         self.out_field = default_out(images).display().to_string();
         if self.leave_out_field.is_empty() && images.join("masks").is_dir() {
             self.leave_out_field = "masks".into();
+        }
+        // A folder with its images at the top and a manifest naming their sites (the demo's)
+        // is grouped by site rather than as one group.
+        if self.groups_field.is_empty() && is_folder && !has_sub_folders_but(images, "masks") {
+            self.groups_field = crate::sweep::plan::manifest_groups(images, "site").unwrap_or_default();
         }
     }
 

@@ -43,6 +43,7 @@ pub fn removals(model: &Model, card: Option<&FeedCard>, input: &Input, reading: 
             score,
             drop: scorer.score(&clean) - score,
             top: top_index(v),
+            top_label: card.map(|c| c.label(top_index(v))),
             probability_drop: (scorer.probability(&clean) - scorer.probability(v)) as f64,
         }
     };

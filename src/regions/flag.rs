@@ -96,8 +96,19 @@ pub struct Removal {
     pub drop: f32,
     /// The top class after painting out.
     pub top: usize,
+    /// Its label from the feed card, when the card names it.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub top_label: Option<String>,
     /// The target's probability at the input minus after painting out.
     pub probability_drop: f64,
+}
+
+impl Removal {
+    /// The top class after painting out as people read it: its label ("no finding"), else
+    /// "class N".
+    pub fn top_class(&self) -> String {
+        self.top_label.clone().unwrap_or_else(|| format!("class {}", self.top))
+    }
 }
 
 /// Removals of one image: one per region, in order, and all regions together.
@@ -286,7 +297,11 @@ fn removal_reason(reports: &[&RegionReport], all: Option<&Removal>, eligible: us
     let says = |what: &str, r: &Removal| {
         format!(
             "painting out {what} ({}) lowers the target's probability by {:.2} (at least {}; score drop {:.3}, top class after: {})",
-            r.fill, r.probability_drop, s.min_probability_drop, r.drop, r.top
+            r.fill,
+            r.probability_drop,
+            s.min_probability_drop,
+            r.drop,
+            r.top_class()
         )
     };
     let best = reports

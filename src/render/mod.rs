@@ -154,6 +154,22 @@ pub fn format_value(v: f32, signed: bool) -> String {
     }
 }
 
+/// A number with four decimals and a real minus sign (U+2212), as people write it.
+pub fn number4(v: f64) -> String {
+    let t = format!("{v:.4}");
+    match t.strip_prefix('-') {
+        Some(m) if m.trim_matches(|c| c == '0' || c == '.').is_empty() => m.to_string(),
+        Some(m) => format!("−{m}"),
+        None => t,
+    }
+}
+
+/// "a − b" written out: a negative b in parentheses ("0.5539 − (−1.3992)"), never "− −".
+pub fn difference_text(a: f64, b: f64) -> String {
+    let (ta, tb) = (number4(a), number4(b));
+    if tb.starts_with('−') { format!("{ta} − ({tb})") } else { format!("{ta} − {tb}") }
+}
+
 /// Joins a picture and a legend side by side, scaling small pictures up (nearest) so the
 /// legend's text fits.
 fn with_legend(pic: RgbImage, scale: f32, sign: Sign) -> RgbImage {
@@ -189,6 +205,13 @@ pub fn save(path: &Path, img: &RgbImage) -> Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_difference_of_negative_numbers_reads_as_written_by_hand() {
+        assert_eq!(difference_text(0.5539, -1.3992), "0.5539 − (−1.3992)");
+        assert_eq!(difference_text(-0.25, 0.5), "−0.2500 − 0.5000");
+        assert_eq!(number4(-0.00001), "0.0000", "no negative zero");
+    }
 
     #[test]
     fn robust_scale_ignores_a_lone_outlier() {

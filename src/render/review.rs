@@ -164,7 +164,7 @@ fn convergence_plot(img: &mut RgbImage, left: u32, top: u32, w: u32, h: u32, c: 
     ax.legend_at(img, &rows, Corner::BottomLeft);
 }
 
-fn cascade_rows(mcs: &[MethodCascade], init: &str, seed: u64, share: f64) -> RgbImage {
+fn cascade_rows(mcs: &[MethodCascade], total: usize, init: &str, seed: u64, share: f64) -> RgbImage {
     let n = mcs.iter().map(|m| m.steps.len() + 1).max().unwrap_or(1) as u32;
     let tile = ((WIDTH - 2 * MARGIN) / n).saturating_sub(8).clamp(48, 128);
     let row_h = tile + 60;
@@ -191,7 +191,9 @@ fn cascade_rows(mcs: &[MethodCascade], init: &str, seed: u64, share: f64) -> Rgb
         for st in &mc.steps {
             x += tile + 8;
             let f = |v: Option<f64>| v.map(|v| format!("{v:.2}")).unwrap_or_else(|| "—".into());
-            tile_of(&mut img, &st.map, &format!("+{} ({})", st.layer, st.layers_randomised), &format!("ρ {} · top {}", f(st.spearman), f(st.top_overlap)), x);
+            // The layer this step re-drew, counted from the input side as people count layers.
+            let label = format!("+ layer {} of {total}", (total + 1).saturating_sub(st.layers_randomised));
+            tile_of(&mut img, &st.map, &label, &format!("ρ {} · top {}", f(st.spearman), f(st.top_overlap)), x);
         }
         let ink = if mc.independent { WARN } else { INK };
         draw_text(&mut img, MARGIN, y + tile + 44, 11.0, &mc.verdict, ink);
@@ -246,7 +248,12 @@ fn shapley_block(r: &Review, pixels: &Array3<f32>) -> Option<RgbImage> {
     let tx = MARGIN + TILE + 20;
     let mut y = 34;
     let mut lines = vec![
-        format!("Sum of the values {:.4}; F(x) − F(fill) = {:.4} − {:.4} = {:.4} (efficiency).", s.sum, s.score_input, s.score_baseline, s.score_input - s.score_baseline),
+        format!(
+            "Sum of the values {}; F(x) − F(fill) = {} = {} (efficiency).",
+            super::number4(s.sum),
+            super::difference_text(s.score_input, s.score_baseline),
+            super::number4(s.score_input - s.score_baseline)
+        ),
         format!("{}.", s.estimator),
     ];
     if let Some(rho) = s.map_agreement {
@@ -342,7 +349,7 @@ fn footer(r: &Review) -> RgbImage {
 pub fn review_panel(r: &Review, against: Option<&Against>, pixels: &Array3<f32>, sign: Sign) -> RgbImage {
     let mut parts = vec![header(r), first_row(r, pixels, sign)];
     if let Some(c) = &r.cascade {
-        parts.push(cascade_rows(&c.methods, &c.init, c.seed, c.top_share));
+        parts.push(cascade_rows(&c.methods, c.layers.len(), &c.init, c.seed, c.top_share));
     }
     parts.extend(shapley_block(r, pixels));
     parts.extend(strip_block(r, pixels, sign));

@@ -91,6 +91,14 @@ pub struct Cascade {
     pub methods: Vec<MethodCascade>,
 }
 
+impl Cascade {
+    /// The layer that step `k` of the cascade (`layers_randomised`) added, counted from the
+    /// output side.
+    pub fn layer_of_step(&self, k: usize) -> Option<&Layer> {
+        self.layers.len().checked_sub(k).and_then(|i| self.layers.get(i))
+    }
+}
+
 /// The method as the cascade runs it: refined integrated gradients fixed at the step count the
 /// original reading needed.
 fn frozen(method: &Method, original: &Reading) -> Method {

@@ -59,6 +59,26 @@ pub struct Layer {
 }
 
 impl Layer {
+    /// The layer as a person reads it: its place among the model's `total` layers with
+    /// weights and its kind, "layer 7 of 7 (fully connected, output side)". The ONNX node name
+    /// ([`Layer::label`]) stays for the files and tooltips.
+    pub fn plain(&self, total: usize) -> String {
+        let kind = match self.op.as_str() {
+            "Conv" => "convolution",
+            "ConvTranspose" => "transposed convolution",
+            "Gemm" | "MatMul" => "fully connected",
+            "BatchNormalization" | "InstanceNormalization" | "LayerNormalization" | "GroupNormalization" => "normalisation",
+            other => other,
+        };
+        let side = match (self.index, total) {
+            (_, 1) => "",
+            (0, _) => ", input side",
+            (i, t) if i + 1 == t => ", output side",
+            _ => "",
+        };
+        format!("layer {} of {total} ({kind}{side})", self.index + 1)
+    }
+
     /// "Gemm 19.weight" style: the op and its first parameter's name, which people recognise.
     pub fn label(&self) -> String {
         match (self.node.is_empty(), self.params.first()) {
@@ -205,4 +225,18 @@ pub fn values(proto: &pb::ModelProto, name: &str) -> Option<Vec<f32>> {
         return Some(t.float_data.clone());
     }
     Some(t.raw_data.chunks_exact(4).map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]])).collect())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn layers_are_named_by_place_and_kind_not_by_onnx_node() {
+        let layer = |index: usize, op: &str| Layer { index, node: format!("/{index}/{op}"), op: op.into(), params: vec![] };
+        assert_eq!(layer(6, "Gemm").plain(7), "layer 7 of 7 (fully connected, output side)");
+        assert_eq!(layer(0, "Conv").plain(7), "layer 1 of 7 (convolution, input side)");
+        assert_eq!(layer(3, "BatchNormalization").plain(7), "layer 4 of 7 (normalisation)");
+        assert_eq!(layer(0, "MatMul").plain(1), "layer 1 of 1 (fully connected)");
+    }
 }

@@ -72,12 +72,22 @@ impl Cache {
         let (json, npy) = self.paths(key);
         let sub = json.parent().expect("entries live in a sub-folder");
         std::fs::create_dir_all(sub).with_context(|| format!("cannot create {}", sub.display()))?;
-        let tmp = tempfile::NamedTempFile::new_in(sub).with_context(|| format!("cannot write in the cache {}", sub.display()))?;
+        let tmp = temp_file_in(sub).with_context(|| format!("cannot write in the cache {}", sub.display()))?;
         crate::feed::write_tensor(tmp.path(), &entry.grid.clone().into_dyn())?;
         tmp.persist(&npy).with_context(|| format!("cannot store {}", npy.display()))?;
-        let mut tmp = tempfile::NamedTempFile::new_in(sub).with_context(|| format!("cannot write in the cache {}", sub.display()))?;
+        let mut tmp = temp_file_in(sub).with_context(|| format!("cannot write in the cache {}", sub.display()))?;
         tmp.write_all(&serde_json::to_vec(&Stored { row: entry.row.clone() })?)?;
         tmp.persist(&json).with_context(|| format!("cannot store {}", json.display()))?;
         Ok(())
     }
+}
+
+/// A temporary file in `dir` to be renamed into place, created with the mode a plain new file
+/// gets (0666 less the umask, typically 0644) instead of tempfile's private 0600, so that a
+/// sweep's files can be read by whoever can read `explain`'s.
+pub fn temp_file_in(dir: &Path) -> std::io::Result<tempfile::NamedTempFile> {
+    let mut b = tempfile::Builder::new();
+    #[cfg(unix)]
+    b.permissions(std::os::unix::fs::PermissionsExt::from_mode(0o666));
+    b.tempfile_in(dir)
 }

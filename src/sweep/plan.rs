@@ -14,7 +14,8 @@ use crate::feed::is_image_file;
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "kind", rename_all = "kebab-case")]
 pub enum Groups {
-    /// The first-level sub-folder of the images folder; images at its top form the group ".".
+    /// The first-level sub-folder of the images folder; images at its top form the group
+    /// [`TOP_GROUP`].
     Folders,
     /// Column `column` of the CSV `file`, whose `file` or `path` column names each image
     /// relative to the images folder.
@@ -31,6 +32,9 @@ impl Groups {
         Ok(Groups::Manifest { file: file.into(), column: column.into() })
     }
 }
+
+/// The group of the images that lie at the top of the images folder, not in a sub-folder.
+pub const TOP_GROUP: &str = "(top folder)";
 
 /// One slice of a sweep: shard `index` of `count` (1-based, as `--shard K/N`).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -165,9 +169,23 @@ pub fn plan(root: &Path, groups: &Groups, exclude: &Exclude, shard: Shard) -> Re
     }
     let mut files = vec![];
     walk(root, &mut files)?;
+    let found = files.len();
     let mut rels: Vec<(String, PathBuf)> =
         files.into_iter().map(|p| (relative(root, &p), p)).filter(|(rel, _)| !exclude.excludes(rel)).collect();
     rels.sort();
+    if found == 0 {
+        bail!(
+            "the images folder {} holds no image (PNG, JPEG, TIFF, BMP or DICOM files, in it or below it); give the folder that holds the images",
+            root.display()
+        );
+    }
+    if rels.is_empty() {
+        bail!(
+            "all {found} images below {} are left out by the exclude patterns ({}); give fewer or narrower patterns",
+            root.display(),
+            exclude.patterns.join(", ")
+        );
+    }
     let lookup = match groups {
         Groups::Folders => None,
         Groups::Manifest { file, column } => Some(read_groups(file, column, root)?),
@@ -178,7 +196,7 @@ pub fn plan(root: &Path, groups: &Groups, exclude: &Exclude, shard: Shard) -> Re
             continue;
         }
         let group = match &lookup {
-            None => rel.split_once('/').map_or(".".to_string(), |(g, _)| g.to_string()),
+            None => rel.split_once('/').map_or(TOP_GROUP.to_string(), |(g, _)| g.to_string()),
             Some(m) => m.get(&rel).cloned().unwrap_or_else(|| "(not in the manifest)".to_string()),
         };
         items.push(Item { rel, path, group });
@@ -229,6 +247,17 @@ pub fn read_groups(file: &Path, column: &str, root: &Path) -> Result<HashMap<Str
         m.entry(p).or_insert_with(|| g.trim().to_string());
     }
     Ok(m)
+}
+
+/// `FOLDER/manifest.csv:COLUMN` (the `--groups` form) when `images` holds a `manifest.csv` whose
+/// header names the images (`file` or `path`) and has `column`; `None` otherwise. The inspector
+/// offers it for a folder whose images all lie at its top (the demo's, grouped by `site`).
+pub fn manifest_groups(images: &Path, column: &str) -> Option<String> {
+    let file = images.join("manifest.csv");
+    let mut r = csv::Reader::from_path(&file).ok()?;
+    let headers = r.headers().ok()?;
+    let has = |name: &str| headers.iter().any(|h| h.trim() == name);
+    ((has("file") || has("path")) && has(column)).then(|| format!("{}:{column}", file.display()))
 }
 
 /// `a/b/../c` → `a/c`, without touching the file system.
@@ -284,10 +313,33 @@ mod tests {
         assert_eq!(all.len(), 9);
         assert_eq!(all[0].rel, "a/0.png");
         assert_eq!(all[0].group, "a");
-        assert_eq!(all.last().unwrap().group, ".");
+        assert_eq!(all.last().unwrap().group, TOP_GROUP);
         let mut joined: Vec<String> = (1..=3).flat_map(|k| plan(dir.path(), &Groups::Folders, &Exclude::default(), Shard { index: k, count: 3 }).unwrap()).map(|i| i.rel).collect();
         joined.sort();
         assert_eq!(joined, all.iter().map(|i| i.rel.clone()).collect::<Vec<_>>());
+    }
+
+    #[test]
+    fn an_empty_folder_or_one_left_out_entirely_is_an_error_that_says_so() {
+        let dir = tempfile::tempdir().unwrap();
+        std::fs::write(dir.path().join("notes.txt"), b"x").unwrap();
+        let e = plan(dir.path(), &Groups::Folders, &Exclude::default(), Shard::ALL).unwrap_err().to_string();
+        assert!(e.contains("holds no image"), "{e}");
+        std::fs::create_dir_all(dir.path().join("masks")).unwrap();
+        std::fs::write(dir.path().join("masks/a.png"), b"x").unwrap();
+        let e = plan(dir.path(), &Groups::Folders, &Exclude::new(&["masks".into()]).unwrap(), Shard::ALL).unwrap_err().to_string();
+        assert!(e.contains("left out by the exclude patterns (masks)"), "{e}");
+        // A manifest with the images and the column is offered as groups; without, nothing.
+        assert_eq!(manifest_groups(dir.path(), "site"), None);
+        std::fs::write(dir.path().join("manifest.csv"), "file,site\nmasks/a.png,north-quay\n").unwrap();
+        let offered = manifest_groups(dir.path(), "site").unwrap();
+        assert_eq!(offered, format!("{}:site", dir.path().join("manifest.csv").display()));
+        assert_eq!(manifest_groups(dir.path(), "label"), None);
+        let by_site = plan(dir.path(), &Groups::parse(&offered).unwrap(), &Exclude::default(), Shard::ALL).unwrap();
+        assert_eq!(by_site.iter().map(|i| i.group.as_str()).collect::<Vec<_>>(), vec!["north-quay"]);
+        // A shard of a folder with fewer images than shards is empty, and fine.
+        let none = plan(dir.path(), &Groups::Folders, &Exclude::default(), Shard { index: 2, count: 2 }).unwrap();
+        assert!(none.is_empty());
     }
 }
 

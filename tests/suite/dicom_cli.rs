@@ -91,7 +91,7 @@ fn the_demos_dicom_copies_feed_the_model_what_their_pngs_do() {
     // exactly (src/demo/dicom.rs), so `spurion feed` gives the same pixels (to float rounding)
     // and Hillmoor's copies declare their burned-in text.
     let dir = tempfile::tempdir().unwrap();
-    let dicoms = spurion::feed::list_images(&root().join("assets/demo/dicom")).unwrap();
+    let dicoms = spurion::feed::list_images(&root().join("assets/demo-dicom")).unwrap();
     assert_eq!(dicoms.len(), 6);
     for d in dicoms {
         let npy = dir.path().join("fed.npy");
@@ -126,7 +126,7 @@ fn a_sweep_over_a_real_dicom_file_writes_no_patient_data() {
     let images = dir.path().join("images");
     std::fs::create_dir_all(&images).unwrap();
     std::fs::copy(crate::dicom_common::dicom_path("CT_small.dcm", false), images.join("ct.dcm")).unwrap();
-    std::fs::copy(root().join("assets/demo/dicom/0005-hillmoor.dcm"), images.join("hillmoor.dcm")).unwrap();
+    std::fs::copy(root().join("assets/demo-dicom/0005-hillmoor.dcm"), images.join("hillmoor.dcm")).unwrap();
     let out = dir.path().join("out");
     let model = root().join("sample-models/shortcut.onnx");
     let o = spurion(&["sweep", "--model", model.to_str().unwrap(), "--images", images.to_str().unwrap(), "--out", out.to_str().unwrap(), "--method", "gradient"]);

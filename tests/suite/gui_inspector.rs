@@ -441,7 +441,7 @@ fn a_dropped_file_that_is_not_an_image_is_refused_with_a_reason() {
 #[test]
 fn a_dicom_file_opens_says_what_it_declares_and_takes_a_display_window() {
     let tmp = tempfile::tempdir().unwrap();
-    let dcm = root().join("assets/demo/dicom/0005-hillmoor.dcm");
+    let dcm = root().join("assets/demo-dicom/0005-hillmoor.dcm");
     let mut h = harness(vec![dcm.clone()], tmp.path());
     wait_for(&mut h, "the DICOM image to open", 120, |a| a.current_prepared().is_some());
     h.run_steps(2);

@@ -9,7 +9,7 @@ use spurion::review::sweeps;
 use spurion::review::Case;
 use spurion::sign::Sign;
 use spurion::sweep::Row;
-use spurion::sweep::stats::newcombe;
+use spurion::sweep::stats::{Paired, newcombe, newcombe_paired};
 
 use crate::common::fixture;
 
@@ -86,6 +86,9 @@ fn sweeps_compare_per_group_paired_when_the_images_are_the_same() {
     // Paired per-image differences of the suspect flag: 4 images lose it, none gains: −4/8.
     let d = h.suspect_rate.difference.unwrap();
     assert!((d.estimate + 0.5).abs() < 1e-12 && d.low <= d.estimate && d.estimate <= d.high);
+    // Newcombe's paired interval on the 2×2 table: 2 suspect in both, 4 only in the first.
+    let table = Paired { both: 2, second_only: 0, first_only: 4, neither: 2 };
+    assert_eq!(h.suspect_rate.difference, newcombe_paired(table));
     assert!((h.flip_rate.difference.unwrap().estimate + 5.0 / 8.0).abs() < 1e-12);
     assert!((h.mark_share.difference.unwrap().estimate + 0.3).abs() < 1e-12);
     let n = &c.groups[1];
@@ -98,4 +101,16 @@ fn sweeps_compare_per_group_paired_when_the_images_are_the_same() {
     assert!((n.mark_share.difference.unwrap().estimate - 0.2).abs() < 1e-12);
     assert_eq!(c.overall.images_first, 13);
     assert_eq!(c.overall.images_second, 15);
+}
+
+#[test]
+fn six_paired_images_that_all_moved_give_an_interval_of_some_width() {
+    // Issue 26: six images, all suspect under the first model and none under the second,
+    // printed −1.000 [−1.000, −1.000] from a bootstrap. Newcombe's paired interval says how
+    // little six images tell: −1 with an upper end well above it.
+    let a: Vec<Row> = (0..6).map(|i| row(&format!("h{i}"), "hillmoor", true, Some(0.4), Some(1))).collect();
+    let b: Vec<Row> = (0..6).map(|i| row(&format!("h{i}"), "hillmoor", false, Some(0.1), Some(1))).collect();
+    let d = sweeps::compare(&a, &b).groups[0].suspect_rate.difference.unwrap();
+    assert_eq!((d.estimate, d.low), (-1.0, -1.0));
+    assert!(d.high > -0.7, "{d:?}");
 }

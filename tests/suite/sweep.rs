@@ -336,7 +336,7 @@ fn unreadable_files_are_listed_with_their_reason_and_the_sweep_goes_on() {
     std::fs::create_dir_all(images.join("site")).unwrap();
     std::fs::copy(root().join("assets/demo/0005-hillmoor.png"), images.join("site/good.png")).unwrap();
     std::fs::write(images.join("site/not-a-picture.png"), b"this is text, not a PNG").unwrap();
-    let dcm = std::fs::read(root().join("assets/demo/dicom/0005-hillmoor.dcm")).unwrap();
+    let dcm = std::fs::read(root().join("assets/demo-dicom/0005-hillmoor.dcm")).unwrap();
     std::fs::write(images.join("site/cut-short.dcm"), &dcm[..400]).unwrap();
     std::fs::write(images.join("site/notes.txt"), b"not an image file, not swept").unwrap();
     let out = dir.path().join("out");

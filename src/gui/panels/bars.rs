@@ -112,7 +112,8 @@ pub fn status_bar(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>)
                 });
             }
         });
-        if let Some(n) = app.notes.last() {
+        // The caution is always on the last line; a note that only repeats it is not shown twice.
+        if let Some(n) = app.notes.last().filter(|n| n.text != crate::CAUTION) {
             let c = match n.kind {
                 NoteKind::Info => look::CHALK,
                 NoteKind::Warning => look::LILAC,
@@ -152,7 +153,9 @@ pub fn image_list(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>)
                     ImageState::Failed(_) => "!",
                 };
                 let sel = app.selected == Some(i);
-                let r = ui.selectable_label(sel, format!("{mark} {}", short_name(&e.path)));
+                // The ledger's verdict beside the name, as keys 1–4 give it.
+                let verdict = app.ledger.entry_of(&e.path).and_then(|x| x.verdict).map(|v| format!(" · {}", v.name())).unwrap_or_default();
+                let r = ui.selectable_label(sel, format!("{mark} {}{verdict}", short_name(&e.path)));
                 let r = if let ImageState::Failed(m) = &e.state { r.on_hover_text(m) } else { r.on_hover_text(e.path.display().to_string()) };
                 if r.clicked() && !sel {
                     out.push(Intent::Select(i));

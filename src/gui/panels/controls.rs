@@ -70,6 +70,9 @@ fn display_window(ui: &mut egui::Ui, w: &mut Option<Windowing>, d: &DicomImage) 
 
 pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     egui::Panel::right("controls").default_size(290.0).show(ui, |ui| {
+        // Export is pinned under the scrolled settings: always whole, whatever the window's
+        // height (at 1360×860 it sat half under the fold).
+        egui::Panel::bottom("export").show(ui, |ui| export_section(ui, app, out));
         egui::ScrollArea::vertical().auto_shrink([false, false]).show(ui, |ui| {
             ui.add_space(4.0);
             ui.heading("Reading");
@@ -209,27 +212,6 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
 
 
             ui.separator();
-            ui.heading("Export");
-            ui.horizontal(|ui| {
-                let l = ui.label("to");
-                ui.add(egui::TextEdit::singleline(&mut app.export_dir).desired_width(180.0)).labelled_by(l.id);
-                if ui.small_button("…").clicked() {
-                    out.push(Intent::Pick(Pick::ExportFolder));
-                }
-            });
-            ui.horizontal(|ui| {
-                if ui.button("view PNG").clicked() {
-                    out.push(Intent::Export(ExportWhat::View));
-                }
-                if ui.button("strip PNG").clicked() {
-                    out.push(Intent::Export(ExportWhat::Strip));
-                }
-                if ui.button("reading JSON").clicked() {
-                    out.push(Intent::Export(ExportWhat::Json));
-                }
-            });
-
-            ui.separator();
             super::ledger::ledger_section(ui, app, out);
 
             if let Some((_, shown)) = app.current_shown() {
@@ -295,3 +277,30 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     });
 }
 
+/// The export row: where to, and the three files.
+fn export_section(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
+    // A line where the scrolled settings above end.
+    ui.separator();
+    ui.heading("Export");
+    ui.horizontal(|ui| {
+        let l = ui.label("to");
+        let w = (ui.available_width() - 40.0).clamp(80.0, 180.0);
+        ui.add(egui::TextEdit::singleline(&mut app.export_dir).desired_width(w)).labelled_by(l.id);
+        if ui.small_button("…").clicked() {
+            out.push(Intent::Pick(Pick::ExportFolder));
+        }
+    });
+    // Wrapped: the three buttons stay whole however narrow the panel is.
+    ui.horizontal_wrapped(|ui| {
+        if ui.button("view PNG").clicked() {
+            out.push(Intent::Export(ExportWhat::View));
+        }
+        if ui.button("strip PNG").clicked() {
+            out.push(Intent::Export(ExportWhat::Strip));
+        }
+        if ui.button("reading JSON").clicked() {
+            out.push(Intent::Export(ExportWhat::Json));
+        }
+    });
+    ui.add_space(4.0);
+}

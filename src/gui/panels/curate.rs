@@ -152,9 +152,12 @@ pub(super) fn draw_drag(app: &mut Inspector, resp: &Response, place: &SlidePlace
 /// A label on a dark ground near `at`, kept inside `clip`, moved down past the labels already
 /// put in `taken` so that two regions' labels never cover each other.
 pub(super) fn region_label(painter: &Painter, clip: Rect, at: Pos2, text: String, colour: Color32, taken: &mut Vec<Rect>) {
-    let galley = painter.layout_no_wrap(text, FontId::proportional(12.0), colour);
+    // Wrapped to the slide's width and moved left as far as needed, so that a long label on a
+    // small slide (the sweep tab open, a small window) is read whole, never cut at the edge.
+    let galley = painter.layout(text, FontId::proportional(12.0), colour, (clip.width() - 10.0).max(80.0));
     let size = galley.size() + vec2(6.0, 2.0);
-    let mut at = pos2(at.x.clamp(clip.left() + 2.0, clip.right() - 160.0), (at.y + 2.0).clamp(clip.top() + 2.0, clip.bottom() - 16.0));
+    let right = (clip.right() - size.x - 2.0).max(clip.left() + 2.0);
+    let mut at = pos2(at.x.clamp(clip.left() + 2.0, right), (at.y + 2.0).clamp(clip.top() + 2.0, (clip.bottom() - size.y - 2.0).max(clip.top() + 2.0)));
     while let Some(r) = taken.iter().find(|r| r.intersects(Rect::from_min_size(at, size))) {
         at.y = r.bottom() + 1.0;
     }

@@ -34,6 +34,11 @@ pub fn bottom_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent
     if tab == BottomTab::Strip {
         review_strip::keys(ui, app, out);
     }
+    // The review takes the whole centre: its results are not squeezed into a small scrolled
+    // area (the strip's keys F1, F2, … still show a tile's reading on the slide).
+    if app.review.open {
+        return;
+    }
     // With curves under the maps the strip is a taller panel of its own (its own remembered size).
     let curves = app.strip.wanted.as_ref().is_some_and(|p| review_strip::curves_shown(app, p));
     let (id, size) = match tab {
@@ -41,6 +46,11 @@ pub fn bottom_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent
         BottomTab::Strip => ("strip", 255.0),
         BottomTab::Sweep => ("sweep", 380.0),
     };
+    // The strip (its tiles shrink to fit) and the sweep's table take at most 30 % of the
+    // window by default (they can be dragged taller), so that the slide keeps room for its
+    // picture and region labels on a small screen (1280×800). The strip with curves needs its
+    // height.
+    let size = if curves && tab == BottomTab::Strip { size } else { size.min(0.3 * ui.ctx().content_rect().height()).max(120.0) };
     egui::Panel::bottom(id).resizable(true).default_size(size).min_size(120.0).show(ui, |ui| {
         // A panel is as tall as its content: fill the height it was given (default or dragged),
         // else it settles at whatever its first, empty frame needed.
@@ -73,8 +83,10 @@ fn fmt_value(v: f32) -> String {
 /// What painting a region out did, as the slide and the figures list say it: the change of the
 /// target's probability, and the top class when it changed.
 fn removal_text(r: &crate::regions::Removal, top_before: usize) -> String {
-    let flip = if r.top != top_before { format!(", top class → {}", r.top) } else { String::new() };
-    format!("painted out: probability {:+.2}{flip}", -r.probability_drop)
+    let flip = if r.top != top_before { format!(", top class → {}", r.top_class()) } else { String::new() };
+    // A change that rounds to zero reads "unchanged", never "-0.00".
+    let change = if r.probability_drop.abs() < 0.005 { "unchanged".to_string() } else { format!("{:+.2}", -r.probability_drop) };
+    format!("painted out: probability {change}{flip}")
 }
 
 fn fmt_opt(v: Option<f64>, digits: usize) -> String {

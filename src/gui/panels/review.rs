@@ -108,8 +108,9 @@ pub fn convergence_text(c: &Convergence) -> String {
 /// The Shapley values' efficiency check in plain words.
 pub fn shapley_sum_text(s: &Shapley) -> String {
     format!(
-        "the values add up to F(x) − F(fill): {:.4} = {:.4} − {:.4}",
-        s.sum, s.score_input, s.score_baseline
+        "the values add up to F(x) − F(fill): {} = {}",
+        crate::render::number4(s.sum),
+        crate::render::difference_text(s.score_input, s.score_baseline)
     )
 }
 
@@ -137,7 +138,7 @@ pub fn review_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent
                     }
                 });
             });
-            ui.label(RichText::new(crate::CAUTION).small().color(look::ASH));
+            // The caution stays on the status bar's last line, once.
             let target = app.review_target();
             match &target {
                 Ok((k, req)) => {
@@ -394,8 +395,9 @@ fn cascade_section(ui: &mut egui::Ui, app: &mut Inspector, c: &Cascade, job: u64
                         ui.label(RichText::new(" ").small());
                     } else {
                         let st = &mc.steps[s - 1];
+                        let plain = c.layer_of_step(st.layers_randomised).map_or_else(|| st.layer.clone(), |l| l.plain(total));
                         resp.on_hover_text(format!(
-                            "{} layer{} re-drawn, the last {}\nρ |map| {} · top {} · ρ signed {} · top signed {}\nscore at the input {:.3}",
+                            "{} layer{} re-drawn from the output side, the last {plain} (node {})\nρ |map| {} · top {} · ρ signed {} · top signed {}\nscore at the input {:.3}",
                             st.layers_randomised,
                             if st.layers_randomised == 1 { "" } else { "s" },
                             st.layer,
@@ -405,7 +407,9 @@ fn cascade_section(ui: &mut egui::Ui, app: &mut Inspector, c: &Cascade, job: u64
                             f(st.top_overlap_signed),
                             st.score_input
                         ));
-                        ui.label(RichText::new(format!("+{} ({})", st.layer, st.layers_randomised)).small()).on_hover_text(&st.layer);
+                        // "layer 7 of 7" under the tile; its kind and node name in the tooltip.
+                        let short = plain.split(" (").next().unwrap_or(&plain).to_string();
+                        ui.label(RichText::new(format!("+ {short}")).small()).on_hover_text(format!("{plain}\nONNX node: {}", st.layer));
                         ui.label(RichText::new(format!("ρ {} · top {}", f(st.spearman), f(st.top_overlap))).small());
                     }
                 });

@@ -104,23 +104,10 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
         let wanted = app.wanted_key().ok();
         let shown = wanted.as_ref().and_then(|k| app.cache.done(k).cloned());
 
-        // Header: name, reading state, zoom controls.
+        // Header: zoom controls on the right first, then in the room left the name, the
+        // reading's state and its request (cut short, whole in the tooltip), so that nothing
+        // runs under the buttons on a small screen.
         ui.horizontal(|ui| {
-            ui.label(RichText::new(short_name(&path)).strong());
-            if let Some(k) = &wanted {
-                ui.label(RichText::new(k.request.describe()).color(look::ASH));
-                match app.cache.slots.get(k) {
-                    Some(Slot::Pending(id)) => {
-                        ui.spinner();
-                        let f = app.workers.running.iter().find(|r| r.id == *id).map(|r| r.ctl.fraction()).unwrap_or(0.0);
-                        ui.label(format!("reading… {:.0} %", f * 100.0));
-                    }
-                    Some(Slot::Failed(e)) => {
-                        ui.label(RichText::new(format!("failed: {e}")).color(look::SIGNAL));
-                    }
-                    _ => {}
-                }
-            }
             ui.with_layout(egui::Layout::right_to_left(egui::Align::Center), |ui| {
                 if ui.button("fit").clicked() {
                     app.view.zoom = None;
@@ -129,6 +116,24 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                     app.view.zoom = Some(1.0);
                     app.view.centre = [prepared.picture.width() as f32 / 2.0, prepared.picture.height() as f32 / 2.0];
                 }
+                ui.with_layout(egui::Layout::left_to_right(egui::Align::Center), |ui| {
+                    ui.label(RichText::new(short_name(&path)).strong());
+                    if let Some(k) = &wanted {
+                        match app.cache.slots.get(k) {
+                            Some(Slot::Pending(id)) => {
+                                ui.spinner();
+                                let f = app.workers.running.iter().find(|r| r.id == *id).map(|r| r.ctl.fraction()).unwrap_or(0.0);
+                                ui.label(format!("reading… {:.0} %", f * 100.0));
+                            }
+                            Some(Slot::Failed(e)) => {
+                                ui.label(RichText::new(format!("failed: {e}")).color(look::SIGNAL));
+                            }
+                            _ => {}
+                        }
+                        let describe = k.request.describe();
+                        ui.add(egui::Label::new(RichText::new(&describe).color(look::ASH)).truncate()).on_hover_text(describe);
+                    }
+                });
             });
         });
         if let Some(line) = source_line(&prepared.picture, app.view.display_window.is_some()) {

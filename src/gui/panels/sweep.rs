@@ -61,8 +61,14 @@ pub(super) fn sweep_controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut V
             } else {
                 let secs = app.sweep.started.map_or(0.0, |t| t.elapsed().as_secs_f64());
                 let rate = if secs > 0.0 { done as f64 / secs } else { 0.0 };
-                let left = if rate > 0.0 { format!(", about {:.0} s left", (total - done) as f64 / rate) } else { String::new() };
-                format!("{done}/{total} images, {rate:.1} images a second{left}")
+                let left = if rate > 0.0 { format!(", about {} left", crate::gui::duration_text((total - done) as f64 / rate)) } else { String::new() };
+                // A slow sweep reads "an image every 12 s", never "0.0 images a second".
+                let pace = match rate {
+                    r if r >= 0.95 => format!("{r:.1} images a second"),
+                    r if r > 0.0 => format!("an image every {:.0} s", 1.0 / r),
+                    _ => "first image under way".to_string(),
+                };
+                format!("{done}/{total} images, {pace}{left}")
             };
             ui.add(egui::ProgressBar::new(ctl.fraction()).desired_width(320.0).fill(look::LILAC.gamma_multiply(0.6)).text(text));
             if ui.button("Cancel sweep").clicked() {
@@ -258,12 +264,16 @@ fn table(ui: &mut egui::Ui, app: &mut Inspector, r: &SweepDone, order: &[usize],
                 cell(ui, Column::MarkShare, RichText::new(fmt_opt(row.mark_share, 2)).monospace());
                 cell(ui, Column::Lift, RichText::new(fmt_opt(row.lift, 1)).monospace());
                 cell(ui, Column::Removal, RichText::new(removal_cell(row, &labels)).monospace());
-                let suspect = if row.suspect {
-                    RichText::new(format!("suspect · {}", row.evidence)).color(look::SIGNAL).strong()
+                if row.suspect {
+                    // Two lines, so that "attribution + removal" is read whole in the column.
+                    ui.allocate_ui_with_layout(vec2(width(Column::Suspect), ROW), egui::Layout::top_down(egui::Align::Min), |ui| {
+                        ui.label(RichText::new("suspect").color(look::SIGNAL).strong());
+                        ui.add(egui::Label::new(RichText::new(row.evidence.replace('+', " + ")).small().color(look::SIGNAL)).truncate())
+                            .on_hover_text(format!("suspect by {}", row.evidence.replace('+', " and ")));
+                    });
                 } else {
-                    RichText::new("—").color(look::ASH)
-                };
-                cell(ui, Column::Suspect, suspect);
+                    cell(ui, Column::Suspect, RichText::new("—").color(look::ASH));
+                }
                 let v = match verdict {
                     Some(v) => RichText::new(v.name()).strong(),
                     None => RichText::new("none yet").color(look::ASH),

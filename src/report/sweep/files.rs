@@ -60,7 +60,7 @@ pub fn stem(group: &str) -> String {
 fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
     use std::io::Write;
     let dir = path.parent().unwrap_or(Path::new("."));
-    let mut tmp = tempfile::NamedTempFile::new_in(dir).with_context(|| format!("cannot write in {}", dir.display()))?;
+    let mut tmp = crate::sweep::cache::temp_file_in(dir).with_context(|| format!("cannot write in {}", dir.display()))?;
     tmp.write_all(bytes).with_context(|| format!("cannot write {}", path.display()))?;
     tmp.persist(path).with_context(|| format!("cannot write {}", path.display()))?;
     Ok(())
