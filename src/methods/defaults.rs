@@ -32,7 +32,7 @@ takes away the fine detail a tag or a frame adds, so both can show.";
 /// starting at 32 took 10,176 gradients in all (at most 864 for one image), starting at 64 took
 /// 11,776 (at most 1,728). The gap does not fall evenly with the step count, so the smaller
 /// start wins on the whole.
-pub const IG_START_STEPS: usize = 32;
+pub const IG_START_STEPS: usize = 8;
 
 /// The completeness gap the refinement stops at. The method's paper advises checking that the
 /// attributions sum to F(x) − F(x′) within 5 % (Sundararajan et al. 2017, section 3); 1 % leaves

@@ -89,6 +89,7 @@ impl Setup<'_> {
             regions: a.regions.len(),
             region_labels: a.regions.iter().map(|r| r.label.clone()).collect::<Vec<_>>().join("; "),
             completeness_gap: reading.completeness_gap,
+            completeness_reached: reading.completeness.as_ref().and_then(|c| c.reached),
             steps: reading.steps,
             burned_in_annotation: declared,
             verdict: None,

@@ -18,6 +18,7 @@ mod gui_inspector;
 mod gui_review;
 mod ledger;
 mod ledger_disk;
+mod methods_adaptive;
 mod methods_reference;
 mod occlusion_incremental;
 mod path_split;
