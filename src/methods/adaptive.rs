@@ -30,10 +30,6 @@ pub struct Settings {
     /// Most point gradients held at once; beyond it the cells with the smallest local gaps are
     /// folded into the map for good and not refined again (bounds memory on large inputs).
     pub keep: usize,
-    /// Stop only when the cells' own gaps, added without their signs, are within the target
-    /// too: errors of opposite sign in different stretches of the path can cancel in the total
-    /// while the map is still far from the path integral.
-    pub unsigned: bool,
 }
 
 /// Where the map stands against its target.
@@ -120,20 +116,9 @@ pub fn refine<P: PathIntegral>(path: &mut P, f0: f64, f1: f64, s: &Settings) -> 
         let held: Vec<(f64, &P::Point)> = cells.iter().filter_map(|c| c.point.as_ref().map(|p| (c.width(), p))).collect();
         let standing = path.standing(&held)?;
         drop(held);
-        let Some(allowed) = standing.allowed else {
+        if standing.within || standing.allowed.is_none() {
             report.reached = true;
             break;
-        };
-        report.reached = standing.within;
-        if standing.within && !s.unsigned {
-            break;
-        }
-        if standing.within {
-            score_ends(path, &mut cells, &mut report)?;
-            let unsigned: f64 = cells.iter().filter_map(|c| c.local_gap()).sum();
-            if unsigned <= allowed {
-                break;
-            }
         }
         let room = s.cap.saturating_sub(report.gradients) / 2;
         if room == 0 {
@@ -291,7 +276,7 @@ mod tests {
             let s = f(a);
             k * s * (1.0 - s)
         };
-        let s = Settings { start: 8, cap: 4096, keep: 1 << 20, unsigned: false };
+        let s = Settings { start: 8, cap: 4096, keep: 1 << 20 };
         let (r, sum) = run(&f, &df, &s);
         let diff = f(1.0) - f(0.0);
         assert!(r.reached, "{r:?}");
@@ -306,7 +291,7 @@ mod tests {
         // Linear F′: the midpoint rule is exact, so the start already reaches the target.
         let f = |a: f64| a * a + a;
         let df = |a: f64| 2.0 * a + 1.0;
-        let (r, sum) = run(&f, &df, &Settings { start: 8, cap: 100, keep: 100, unsigned: false });
+        let (r, sum) = run(&f, &df, &Settings { start: 8, cap: 100, keep: 100 });
         assert_eq!((r.gradients, r.forwards, r.rounds, r.reached), (8, 0, 0, true));
         assert!((sum - 2.0).abs() < 1e-12);
     }
@@ -319,7 +304,7 @@ mod tests {
             let s = f(a);
             k * s * (1.0 - s)
         };
-        let (r, _) = run(&f, &df, &Settings { start: 4, cap: 10, keep: 100, unsigned: false });
+        let (r, _) = run(&f, &df, &Settings { start: 4, cap: 10, keep: 100 });
         assert!(!r.reached);
         assert!(r.gradients <= 10, "{r:?}");
     }
@@ -331,7 +316,7 @@ mod tests {
         let k = 300.0;
         let f = move |a: f64| (k * (a - 0.3)).tanh();
         let df = move |a: f64| k * (1.0 - (k * (a - 0.3)).tanh().powi(2));
-        let (r, sum) = run(&f, &df, &Settings { start: 8, cap: 4096, keep: 12, unsigned: false });
+        let (r, sum) = run(&f, &df, &Settings { start: 8, cap: 4096, keep: 12 });
         let diff = f(1.0) - f(0.0);
         assert!(r.reached && (sum - diff).abs() <= 0.01 * diff.abs(), "{r:?} {sum} {diff}");
     }

@@ -7,7 +7,7 @@ use ndarray::{Array1, ArrayD};
 
 use super::adaptive::{self, PathIntegral};
 use super::reading::Completeness;
-use super::{Job, Outcome, Rule, gap_of};
+use super::{Job, Outcome, Rule, defaults, gap_of};
 use crate::model::StraightPath;
 
 /// Most gradients the refinement takes for one reading (its cap). The refinement puts its
@@ -27,46 +27,85 @@ fn path_sum(job: &Job, xb: &ArrayD<f32>, nodes: &[(f64, f64)]) -> Result<ArrayD<
     job.model.gradient_path_sum(xb, &diff, nodes, s.tap, &move |v: &Array1<f32>| s.seed(v), job.ctl)
 }
 
-pub(super) fn integrated_gradients(job: &Job, xb: &ArrayD<f32>, steps: usize, rule: Rule, adaptive: Option<f32>) -> Result<Outcome> {
-    let steps = steps.max(1);
-    let fb = job.scorer.score(&job.model.forward(xb, job.scorer.tap)?);
-    let diff_scores = job.score_x as f64 - fb as f64;
+/// Integrated gradients from the request's baseline. A baseline that is a distribution (the
+/// noise families) gives [`defaults::IG_DRAWS`] draws, each with its own straight path, and the
+/// map is their mean: completeness then holds against the mean of the draws' scores,
+/// F(x) − mean F(x′ₖ) (Sturmfels, Lundberg, Lee 2020 average over baseline distributions this
+/// way). Each path is held to the target share of that one difference, so their mean is too.
+pub(super) fn integrated_gradients(job: &Job, steps: usize, rule: Rule, adaptive: Option<f32>) -> Result<Outcome> {
+    let draws = if job.req.baseline.is_distribution() { defaults::IG_DRAWS } else { 1 };
+    let xbs: Vec<ArrayD<f32>> = (0..draws as u64).map(|d| job.baseline(d)).collect::<Result<_>>()?;
+    let fbs: Vec<f64> = xbs.iter().map(|xb| Ok(job.scorer.score(&job.model.forward(xb, job.scorer.tap)?) as f64)).collect::<Result<_>>()?;
+    let mean_fb = fbs.iter().sum::<f64>() / draws as f64;
+    let diff_all = job.score_x as f64 - mean_fb;
+    let mut map = ArrayD::<f32>::zeros(job.x.raw_dim());
+    let mut c = Completeness {
+        gap: None,
+        target: adaptive.map(|t| t as f64),
+        reached: adaptive.map(|_| true),
+        steps: 0,
+        forwards: 0,
+        cap: adaptive.map(|_| draws * MAX_REFINED_STEPS.max(steps)),
+        rule: if adaptive.is_some() { "adaptive midpoint".into() } else { rule.name().into() },
+    };
+    for (k, (xb, fb)) in xbs.iter().zip(&fbs).enumerate() {
+        let (m, report) = one_path(job, xb, *fb, diff_all, steps.max(1), rule, adaptive, k == 0)?;
+        map.scaled_add(1.0 / draws as f32, &m);
+        c.steps += report.gradients;
+        c.forwards += report.forwards;
+        if adaptive.is_some() {
+            c.reached = Some(c.reached == Some(true) && report.reached);
+        }
+    }
+    c.gap = gap_of(sum64(&map), diff_all);
+    Ok(Outcome { map, steps: Some(c.steps), score_baseline: Some(mean_fb as f32), gap: c.gap, completeness: Some(c) })
+}
+
+/// One straight path from `xb` (score `fb`): a fixed rule, or the refinement held to the target
+/// share of `|scale_diff|`. The first path begins the progress total, later ones grow it.
+#[allow(clippy::too_many_arguments)]
+fn one_path(
+    job: &Job,
+    xb: &ArrayD<f32>,
+    fb: f64,
+    scale_diff: f64,
+    steps: usize,
+    rule: Rule,
+    adaptive: Option<f32>,
+    first: bool,
+) -> Result<(ArrayD<f32>, adaptive::Report)> {
     let diff = job.x - xb;
+    let diff_scores = job.score_x as f64 - fb;
+    let begin = |n: usize| if first { job.ctl.begin(n as u64) } else { job.ctl.grow(n as u64) };
     match adaptive {
         None => {
             let nodes = rule.nodes(steps);
-            job.ctl.begin(nodes.len() as u64);
-            let avg = path_sum(job, xb, &nodes)?;
-            let map = avg * &diff;
-            let gap = gap_of(sum64(&map), diff_scores);
-            let completeness =
-                Completeness { gap, target: None, reached: None, steps: nodes.len(), forwards: 0, cap: None, rule: rule.name().into() };
-            Ok(Outcome { map, steps: Some(steps), score_baseline: Some(fb), gap, completeness: Some(completeness) })
+            begin(nodes.len());
+            let map = path_sum(job, xb, &nodes)? * &diff;
+            let report = adaptive::Report { gradients: nodes.len(), forwards: 0, reached: true, cells: nodes.len(), rounds: 0 };
+            Ok((map, report))
         }
         Some(target) => {
-            let s = job.scorer;
-            let path = job.model.straight_path(xb, &diff, s.tap)?;
+            let path = job.model.straight_path(xb, &diff, job.scorer.tap)?;
             let settings = adaptive::Settings {
                 start: steps,
                 cap: MAX_REFINED_STEPS.max(steps),
                 keep: (HELD_BYTES / path.point_bytes().max(1)).max(4 * steps),
-                unsigned: std::env::var_os("SPURION_IG_UNSIGNED").is_some(),
             };
-            job.ctl.begin(steps as u64);
-            let mut p = Refining { job, xb, diff: &diff, path: &path, acc: path.zeros(), diff_scores, target: target as f64, begun: false };
-            let report = adaptive::refine(&mut p, fb as f64, job.score_x as f64, &settings)?;
-            let map = p.path.to_input(&p.acc)? * &diff;
-            let gap = gap_of(sum64(&map), diff_scores);
-            let completeness = Completeness {
-                gap,
-                target: Some(target as f64),
-                reached: Some(report.reached),
-                steps: report.gradients,
-                forwards: report.forwards,
-                cap: Some(settings.cap),
-                rule: "adaptive midpoint".into(),
+            begin(steps);
+            let mut p = Refining {
+                job,
+                xb,
+                diff: &diff,
+                path: &path,
+                acc: path.zeros(),
+                diff_scores,
+                scale_diff,
+                target: target as f64,
+                begun: false,
             };
-            Ok(Outcome { map, steps: Some(report.gradients), score_baseline: Some(fb), gap, completeness: Some(completeness) })
+            let report = adaptive::refine(&mut p, fb, job.score_x as f64, &settings)?;
+            Ok((p.path.to_input(&p.acc)? * &diff, report))
         }
     }
 }
@@ -80,6 +119,8 @@ struct Refining<'a> {
     path: &'a StraightPath<'a>,
     acc: ArrayD<f32>,
     diff_scores: f64,
+    /// The score difference the target is a share of (this path's, or the mean one of several).
+    scale_diff: f64,
     target: f64,
     /// Whether the first gradients (the progress total begun with) were taken.
     begun: bool,
@@ -127,7 +168,7 @@ impl PathIntegral for Refining<'_> {
         // own mass where the difference is tiny beside it (see `defaults::IG_GAP_FLOOR`). No gap
         // (F(x) = F(x′)) or one that is not a number cannot be refined away.
         let mass: f64 = map.iter().map(|v| v.abs() as f64).sum();
-        let scale = self.diff_scores.abs().max(super::defaults::IG_GAP_FLOOR * mass);
+        let scale = self.scale_diff.abs().max(super::defaults::IG_GAP_FLOOR * mass);
         if gap.is_none_or(|g| !g.is_finite()) {
             return Ok(adaptive::Standing { within: true, allowed: None });
         }

@@ -174,7 +174,7 @@ impl Job<'_> {
                 Outcome { map, steps: None, score_baseline: None, gap: None, completeness: None }
             }
             Method::IntegratedGradients { steps, rule, adaptive } => {
-                integrated::integrated_gradients(self, &self.baseline(0)?, *steps, *rule, *adaptive)?
+                integrated::integrated_gradients(self, *steps, *rule, *adaptive)?
             }
             Method::SmoothGrad { noise, samples, seed } => sampling::smoothgrad(self, *noise, *samples, *seed)?,
             Method::ExpectedGradients { samples, seed } => {

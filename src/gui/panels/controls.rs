@@ -9,7 +9,7 @@ use crate::gui::look;
 use crate::gui::state::*;
 use crate::gui::work::Pick;
 use crate::gui::form::{BLACK_BASELINE_CAVEAT, method_menu};
-use crate::methods::defaults::{BASELINE_WHY, BLUR_SIGMA};
+use crate::methods::defaults::BASELINE_WHY;
 use crate::feed::dicom::DicomImage;
 use crate::feed::window::{VoiFunction, Windowing};
 use crate::methods::{BaselineKind, MethodKind, ScoreKind, TargetSpec};
@@ -131,8 +131,8 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 ui.label(RichText::new(format!("{} takes no baseline", f.method.entry().title)).small().color(look::ASH));
             } else if f.baseline == BaselineKind::Black {
                 ui.label(RichText::new(BLACK_BASELINE_CAVEAT).small().color(look::LILAC)).on_hover_text(BASELINE_WHY);
-            } else if f.baseline == BaselineKind::Blur && f.blur_sigma == BLUR_SIGMA {
-                ui.label(RichText::new("default: blur keeps a dark frame visible to the map (hover for why)").small().color(look::ASH))
+            } else if f.baseline == crate::methods::defaults::BASELINE.kind() {
+                ui.label(RichText::new("default: noise draws keep a dark frame visible and the map tied to the model (hover for why)").small().color(look::ASH))
                     .on_hover_text(BASELINE_WHY);
             }
             // Parameters of every baseline stay visible: the strip uses them all.
