@@ -13,10 +13,9 @@ all their gradients where nothing happens. The hidden units are scaled to the st
 purpose (a fixture, not a model of anything).
 
 stepped.onnx: x (1x1x16x16) -> two weighted means (Gemm) -> Sign(mean - 0.31 | 0.47) -> Gemm ->
-logits (2) -> Softmax. Its score jumps where the path's brightness crosses those levels and its
-gradient is zero
-everywhere else (Sign has a zero derivative): no quadrature can make the attributions add up to
-the jump, so a refinement must stop at its cap and say so.
+logits (2) -> Softmax. Its score jumps where the path's brightness crosses those levels, and its
+gradient is zero everywhere else (Sign has a zero derivative): no quadrature can make the
+attributions add up to the jumps, so a refinement must stop at its cap and say so.
 """
 import os
 import numpy as np
