@@ -41,6 +41,9 @@ impl Setup<'_> {
             "card": self.card,
             "finder": self.finder,
             "flag": self.flag,
+            // How integrated gradients refine (issue 25: cells refined where the path needs them,
+            // distribution baselines averaged over draws): results cached before it are not reused.
+            "ig_refinement": "cells-1",
         })
         .to_string()
     }
