@@ -188,6 +188,9 @@ impl Request {
         }
         if self.method.uses_baseline() {
             s.push_str(&format!(", baseline {}", self.baseline.title()));
+            if matches!(self.method, Method::IntegratedGradients { .. }) && self.baseline.is_distribution() {
+                s.push_str(&format!(" ({} draws averaged)", defaults::IG_DRAWS));
+            }
         }
         s
     }
