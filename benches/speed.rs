@@ -9,14 +9,17 @@
 //! in CI). `benches/peer_speed.py` builds a ResNet-18 with random weights, exports it, and times
 //! every peer setting (see its header); the table compares spurion with the fastest.
 //! Environment: SPURION_BENCH_REPEATS (default 3), SPURION_BENCH_THREADS (default: all cores),
-//! SPURION_BENCH_TASKS (comma-separated among ig, occlusion, refine, vit; default all),
+//! SPURION_BENCH_TASKS (comma-separated among ig, occlusion, refine, saturating, vit; default all),
 //! SPURION_BENCH_PEERS=0 (spurion only, on the files of an earlier run: for profiling).
 //!
 //! Tasks (issue 11's targets in brackets):
 //!   integrated gradients, 64 midpoint steps, black baseline, ResNet-18 at 224²   [≤ 1.0× PyTorch]
 //!   occlusion, window 16, stride 8, black fill, same model                       [≤ 0.8× onnxruntime]
-//!   time to a 1 % completeness gap: spurion's default refinement (32 midpoint steps, tripling)
-//!   against PyTorch's midpoint rule at 16, 32, 64, ... steps                      [no target]
+//!   time to a 1 % completeness gap: spurion's default refinement (cells refined where the
+//!   path needs them) against PyTorch's midpoint rule at 8, 16, 32, ... steps      [≤ 0.6×, issue 25]
+//!   gradients to a 1 % gap on a saturating model (tests/fixtures/methods/saturating.onnx):
+//!   spurion's refinement against the best uniform rule (midpoint, trapezoid, Gauss–Legendre at
+//!   4, 8, ..., 4096 points), counted, not timed                                  [≤ 1/10, issue 25]
 //!   integrated gradients, 64 midpoint steps, black baseline, ViT-B/16 at 224²     [≤ 1.0× PyTorch]
 //!   (issue 24), with the peak resident memory of both: spurion's is this process's high-water
 //!   mark from just before loading the ViT (reset through /proc/self/clear_refs), PyTorch's the
@@ -118,7 +121,7 @@ fn main() -> Result<()> {
     let repeats = env_usize("SPURION_BENCH_REPEATS", 3)?.max(1);
     let cores = std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1);
     let threads = env_usize("SPURION_BENCH_THREADS", cores)?.max(1);
-    let tasks = std::env::var("SPURION_BENCH_TASKS").unwrap_or_else(|_| "ig,occlusion,refine,vit".into());
+    let tasks = std::env::var("SPURION_BENCH_TASKS").unwrap_or_else(|_| "ig,occlusion,refine,saturating,vit".into());
     let task = |t: &str| tasks.split(',').any(|s| s.trim() == t);
     let with_peers = std::env::var("SPURION_BENCH_PEERS").map_or(true, |v| v != "0");
     rayon::ThreadPoolBuilder::new().num_threads(threads).build_global()?;
@@ -295,13 +298,16 @@ fn resnet_tasks(
     }
 
     if task("refine") {
-        let req = Request { method: Method::refined_integrated_gradients(spurion::methods::defaults::IG_START_STEPS, spurion::methods::defaults::IG_GAP), ..base.clone() };
+        let req = Request { method: Method::integrated_gradients(), ..base.clone() };
         eprintln!("spurion: integrated gradients refined to a 1 % gap ...");
         let (times, r) = time_reading(&model, &x, &req, repeats)?;
+        let c = r.completeness.clone().context("a refined reading reports its completeness")?;
         notes.push(format!(
-            "spurion to 1 %: {} steps, gap {:.3} % (times {times:.2?} s)",
-            r.steps.unwrap_or(0),
-            100.0 * r.completeness_gap.unwrap_or(f64::NAN)
+            "spurion to 1 %: {} gradients and {} forwards, gap {:.3} %, target {} (times {times:.2?} s)",
+            c.steps,
+            c.forwards,
+            100.0 * c.gap.unwrap_or(f64::NAN),
+            if c.reached == Some(true) { "reached" } else { "NOT reached" }
         ));
         let refine = &peer["refine"];
         if let Some(run) = refine["runs"].as_array().and_then(|r| r.first()).and_then(|r| r.as_array()) {
@@ -311,8 +317,46 @@ fn resnet_tasks(
                 .collect();
             notes.push(format!("PyTorch to 1 % (first run): {}", levels.join(", ")));
         }
-        let setting = if refine.is_null() { "-".to_string() } else { format!("{} (16, 32, 64, … steps)", torch_setting(refine)) };
-        rows.push(("time to a 1 % completeness gap".into(), median(&times), refine["median"].as_f64().unwrap_or(f64::NAN), setting, None));
+        let setting = if refine.is_null() { "-".to_string() } else { format!("{} (8, 16, 32, … steps)", torch_setting(refine)) };
+        rows.push(("time to a 1 % completeness gap".into(), median(&times), refine["median"].as_f64().unwrap_or(f64::NAN), setting, Some(0.6)));
+    }
+
+    if task("saturating") {
+        notes.push(saturating_counts()?);
     }
     Ok(())
+}
+
+/// Gradients to a 1 % gap on the saturating fixture: the default refinement against the best
+/// uniform rule (counts, not times: they are exact and do not depend on the machine).
+fn saturating_counts() -> Result<String> {
+    let fixtures = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/methods");
+    let model = Model::load(&fixtures.join("saturating.onnx"), &LoadOptions::default())?;
+    let x: ArrayD<f32> = spurion::feed::read_tensor(&fixtures.join("saturating.x.npy"))?;
+    let input = Input::tensor(x, "saturating.x.npy");
+    let req = |method: Method| Request { method, baseline: Baseline::Black, target: TargetSpec::Index(1), score: ScoreKind::Raw };
+    let r = explain(&model, None, &input, &req(Method::integrated_gradients()), &Control::new())?;
+    let c = r.completeness.context("a refined reading reports its completeness")?;
+    let mut best: Option<(usize, Rule)> = None;
+    for rule in [Rule::Midpoint, Rule::Trapezoid, Rule::GaussLegendre] {
+        let mut n = 4;
+        while n <= 4096 && best.is_none_or(|(b, _)| rule.nodes(n).len() < b) {
+            let u = explain(&model, None, &input, &req(Method::IntegratedGradients { steps: n, rule, adaptive: None }), &Control::new())?;
+            if u.completeness_gap.is_some_and(|g| g <= 0.01) {
+                best = Some((rule.nodes(n).len(), rule));
+                break;
+            }
+            n *= 2;
+        }
+    }
+    let uniform = best.map_or("no uniform rule within 4096 points".to_string(), |(n, rule)| {
+        format!("best uniform rule {} at {n} gradients: {:.3} of it (target ≤ 0.1)", rule.name(), c.steps as f64 / n as f64)
+    });
+    Ok(format!(
+        "saturating model (softmax output, black baseline): refined {} gradients + {} forwards to a {:.3} % gap ({}); {uniform}",
+        c.steps,
+        c.forwards,
+        100.0 * c.gap.unwrap_or(f64::NAN),
+        if c.reached == Some(true) { "target reached" } else { "target NOT reached" }
+    ))
 }

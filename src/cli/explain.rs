@@ -188,6 +188,21 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
             );
         }
     }
+    if let Some(c) = &reading.completeness {
+        if let (Some(t), Some(r)) = (c.target, c.reached) {
+            println!(
+                "completeness: target {:.2} % {} ({} gradients, {} forwards, cap {})",
+                t * 100.0,
+                if r { "reached" } else { "NOT reached" },
+                c.steps,
+                c.forwards,
+                c.cap.unwrap_or(c.steps)
+            );
+        }
+    }
+    if let Some(s) = reading.completeness_shortfall() {
+        println!("WARNING: {s}");
+    }
     // The IG paper's advice is a gap within 5% (Sundararajan et al. 2017, section 3).
     if let Some(g) = reading.completeness_gap.filter(|g| *g > 0.05) {
         println!(

@@ -16,14 +16,16 @@ pub struct ReadingArgs {
     #[arg(long, default_value = d::BASELINE_TEXT, help = format!("{} (folder: expected-gradients draws). Default blur:8: a black baseline gives a dark frame no attribution", baseline_forms()))]
     pub baseline: String,
     /// Integrated-gradients steps, a fixed count. Without --steps, integrated gradients start at
-    /// 32 and refine until the completeness gap is below 1% (as --adaptive does).
+    /// 8 midpoint steps and add gradients where the path needs them until the completeness gap
+    /// is below 1% (as --adaptive does), up to 1024 gradients; a reading that stops at that cap
+    /// says so.
     #[arg(long, value_parser = RangedU64ValueParser::<usize>::new().range(1..))]
     pub steps: Option<usize>,
     /// Integrated-gradients quadrature for a fixed --steps: gauss-legendre | midpoint | trapezoid.
     #[arg(long, default_value = d::RULE_TEXT)]
     pub rule: String,
-    /// Refine integrated gradients (from --steps, default 32) until the completeness gap is
-    /// below GAP (relative; default 0.01); the default when --steps is not given.
+    /// Refine integrated gradients (from --steps midpoint steps, default 8) until the
+    /// completeness gap is below GAP (relative; default 0.01); the default when --steps is not given.
     #[arg(long, num_args = 0..=1, default_missing_value = "0.01", value_name = "GAP")]
     pub adaptive: Option<f32>,
     /// Occlusion window side in model-input pixels.

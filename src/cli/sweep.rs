@@ -247,6 +247,15 @@ fn tell(result: &ShardResult, groups: &[GroupSummary], out: &Path, seconds: f64)
         // The IG paper's advice is a gap within 5% (Sundararajan et al. 2017, section 3).
         println!("note: {wide_gap} readings have a completeness gap over 5% (see the completeness_gap column)");
     }
+    let missed: Vec<&str> = result.rows.iter().filter(|r| r.completeness_reached == Some(false)).map(|r| r.path.as_str()).collect();
+    if let Some(first) = missed.first() {
+        println!(
+            "WARNING: {} reading{} did not reach the target completeness gap (the refinement stopped at its cap; e.g. {first}); \
+             see the completeness_reached column",
+            missed.len(),
+            if missed.len() == 1 { "" } else { "s" }
+        );
+    }
     if let Some(s) = result.skipped.first() {
         println!("could not read {} images, e.g. {}: {} (all in skipped.csv)", result.skipped.len(), s.path, s.reason);
     }

@@ -162,7 +162,8 @@ pub fn strip_image(prepared: &Prepared, tiles: &[(String, Arc<Shown>)], sign: Si
         let x = gap + i as u32 * (tw + gap);
         image::imageops::overlay(&mut out, &t, x as i64, head as i64);
         render::draw_text(&mut out, x, 4, 13.0, name, ink);
-        let gap_s = s.reading.completeness_gap.map_or("gap —".to_string(), |g| format!("gap {:.1} %", g * 100.0));
+        let missed = if s.reading.completeness_shortfall().is_some() { " (target not reached)" } else { "" };
+        let gap_s = s.reading.completeness_gap.map_or("gap —".to_string(), |g| format!("gap {:.1} %{missed}", g * 100.0));
         let share = s.assessment.all_regions.as_ref().and_then(|f| f.mark_share);
         let share_s = share.map_or("mark share —".to_string(), |m| format!("mark share {m:.2}"));
         render::draw_text(&mut out, x, 20, 12.0, &gap_s, ink);

@@ -11,6 +11,7 @@
 //! the reading, scoring and targets, and one file per method family (integrated gradients,
 //! occlusion, the sampling methods); baselines, quadrature and map agreement beside them.
 
+mod adaptive;
 pub mod agree;
 mod baseline;
 pub mod catalog;
@@ -31,7 +32,7 @@ pub use input::Input;
 pub use integrated::MAX_REFINED_STEPS;
 pub use occlusion::window_starts;
 pub use quadrature::{Rule, gauss_legendre};
-pub use reading::{Reading, Target};
+pub use reading::{Completeness, Reading, Target};
 pub use removal::{assess, assess_input, removals};
 pub use request::{Method, Request, ScoreKind, TargetSpec};
 pub use score::{Scorer, resolve_target, softmax, top_index};
@@ -134,6 +135,7 @@ struct Outcome {
     steps: Option<usize>,
     score_baseline: Option<f32>,
     gap: Option<f64>,
+    completeness: Option<Completeness>,
 }
 
 /// The relative completeness gap |sum − diff| / |diff|; `None` when the scores do not differ.
@@ -169,10 +171,10 @@ impl Job<'_> {
                 self.ctl.begin(1);
                 let g = self.grads(std::slice::from_ref(self.x))?.remove(0);
                 let map = if matches!(req.method, Method::Gradient) { g.grad } else { &g.grad * self.x };
-                Outcome { map, steps: None, score_baseline: None, gap: None }
+                Outcome { map, steps: None, score_baseline: None, gap: None, completeness: None }
             }
             Method::IntegratedGradients { steps, rule, adaptive } => {
-                integrated::integrated_gradients(self, &self.baseline(0)?, *steps, *rule, *adaptive)?
+                integrated::integrated_gradients(self, *steps, *rule, *adaptive)?
             }
             Method::SmoothGrad { noise, samples, seed } => sampling::smoothgrad(self, *noise, *samples, *seed)?,
             Method::ExpectedGradients { samples, seed } => {
@@ -201,6 +203,7 @@ impl Job<'_> {
             score_baseline: out.score_baseline,
             attribution_sum: out.map.iter().map(|v| *v as f64).sum(),
             completeness_gap: out.gap,
+            completeness: out.completeness,
             elapsed_ms: started.elapsed().as_secs_f64() * 1e3,
             model_sha256: model.sha256().to_string(),
             model_file: model.path().file_name().map(|f| f.to_string_lossy().into_owned()).unwrap_or_default(),

@@ -49,7 +49,7 @@ pub(super) fn occlusion(job: &Job, xb: &ArrayD<f32>, window: usize, stride: usiz
     // Spread each pixel's value evenly over its channels, so channel sums give the pixel map.
     let channels: usize = x.len() / (h * w);
     let map = ArrayD::from_shape_fn(x.raw_dim(), |i| per_pixel[[i[spatial[0]], i[spatial[1]]]] / channels as f32);
-    Ok(Outcome { map, steps: Some(wins.len()), score_baseline: Some(fb), gap: None })
+    Ok(Outcome { map, steps: Some(wins.len()), score_baseline: Some(fb), gap: None, completeness: None })
 }
 
 #[cfg(test)]

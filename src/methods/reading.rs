@@ -28,6 +28,10 @@ pub struct Reading {
     pub attribution_sum: f64,
     /// |sum − (F(x) − F(x′))| / |F(x) − F(x′)|; null for methods without completeness.
     pub completeness_gap: Option<f64>,
+    /// How the gap was reached (integrated gradients): the target, whether the refinement got
+    /// there before its cap, the gradients and forwards it took. Absent for other methods.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub completeness: Option<Completeness>,
     pub elapsed_ms: f64,
     pub model_sha256: String,
     pub model_file: String,
@@ -50,7 +54,55 @@ pub struct Reading {
     pub channel_axis: Option<usize>,
 }
 
+/// Integrated gradients' completeness: the gap, and for a refined reading the target it was
+/// refined to and whether it got there. `reached: false` means the cap stopped the refinement
+/// first: the map is then a coarser estimate of the path integral than asked for, and every
+/// front end says so ([`Completeness::shortfall`]).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Completeness {
+    /// |sum − (F(x) − F(x′))| / |F(x) − F(x′)|, of the map as it is; null when F(x) = F(x′).
+    pub gap: Option<f64>,
+    /// The gap the refinement was asked to reach; null for a fixed step count.
+    pub target: Option<f64>,
+    /// Whether the refinement reached the target (where F(x) − F(x′) is tiny beside the map's
+    /// mass, the target is held against a floor instead, see `defaults::IG_GAP_FLOOR`); false:
+    /// the cap stopped it first; null for a fixed step count.
+    pub reached: Option<bool>,
+    /// Gradients the map sums.
+    pub steps: usize,
+    /// Forwards (no reverse pass) the refinement took at cell ends to place its gradients.
+    pub forwards: usize,
+    /// Most gradients the refinement may take; null for a fixed step count.
+    pub cap: Option<usize>,
+    /// The quadrature: "adaptive midpoint" or the fixed rule's name.
+    pub rule: String,
+}
+
+impl Completeness {
+    /// One sentence when the refinement stopped at its cap before its target, else `None`.
+    pub fn shortfall(&self) -> Option<String> {
+        if self.reached != Some(false) {
+            return None;
+        }
+        let pct = |g: f64| format!("{:.2} %", g * 100.0);
+        Some(format!(
+            "target not reached: the completeness gap is {} against the {} asked for; the refinement stopped at its \
+             cap of {} gradients. The map is a coarser estimate of the path integral than asked for: the score \
+             turns in stretches of the path the steps do not resolve. Read it with care, or try the logit score \
+             (--score logits) or another baseline",
+            self.gap.map_or("undefined".into(), pct),
+            self.target.map_or("target".into(), pct),
+            self.cap.unwrap_or(self.steps)
+        ))
+    }
+}
+
 impl Reading {
+    /// The sentence of [`Completeness::shortfall`], when the refinement missed its target.
+    pub fn completeness_shortfall(&self) -> Option<String> {
+        self.completeness.as_ref().and_then(|c| c.shortfall())
+    }
+
     /// The map on the image grid, channels summed (H×W).
     pub fn map2d(&self) -> Array2<f32> {
         let m = match self.channel_axis {

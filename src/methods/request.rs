@@ -72,8 +72,9 @@ impl Method {
         Method::refined_integrated_gradients(defaults::IG_START_STEPS, defaults::IG_GAP)
     }
 
-    /// Integrated gradients refined from `steps` until the completeness gap is under `gap`
-    /// (the refinement triples midpoint cells, so the rule is the midpoint rule).
+    /// Integrated gradients refined from `steps` equal cells until the completeness gap is under
+    /// `gap` (each cell holds one midpoint gradient, so the rule is the midpoint rule; see
+    /// `methods/adaptive.rs`).
     pub fn refined_integrated_gradients(steps: usize, gap: f32) -> Method {
         Method::IntegratedGradients { steps, rule: Rule::Midpoint, adaptive: Some(gap) }
     }
@@ -187,6 +188,9 @@ impl Request {
         }
         if self.method.uses_baseline() {
             s.push_str(&format!(", baseline {}", self.baseline.title()));
+            if matches!(self.method, Method::IntegratedGradients { .. }) && self.baseline.is_distribution() {
+                s.push_str(&format!(" ({} draws averaged)", defaults::IG_DRAWS));
+            }
         }
         s
     }

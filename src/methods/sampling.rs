@@ -29,7 +29,7 @@ pub(super) fn smoothgrad(job: &Job, noise: f32, samples: usize, seed: u64) -> Re
     for g in &gs {
         acc += &g.grad;
     }
-    Ok(Outcome { map: acc / n as f32, steps: Some(n), score_baseline: None, gap: None })
+    Ok(Outcome { map: acc / n as f32, steps: Some(n), score_baseline: None, gap: None, completeness: None })
 }
 
 /// `baseline(draw)` builds draw `draw` of the request's baseline.
@@ -63,5 +63,5 @@ pub(super) fn expected_gradients(
     let map = acc / n as f32;
     let mean_fb = fb.iter().map(|v| job.scorer.score(v) as f64).sum::<f64>() / n as f64;
     let gap = gap_of(map.sum() as f64, job.score_x as f64 - mean_fb);
-    Ok(Outcome { map, steps: Some(n), score_baseline: Some(mean_fb as f32), gap })
+    Ok(Outcome { map, steps: Some(n), score_baseline: Some(mean_fb as f32), gap, completeness: None })
 }

@@ -13,6 +13,7 @@ mod occlude;
 mod path;
 
 pub use load::input_dims;
+pub use path::{PathPoint, StraightPath};
 
 /// The ONNX protobuf types a model is read from (re-exported for [`Model::load_proto`]).
 pub use tract_onnx::pb;

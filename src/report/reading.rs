@@ -158,6 +158,7 @@ mod tests {
             score_baseline: None,
             attribution_sum: 0.0,
             completeness_gap: None,
+            completeness: None,
             elapsed_ms: 0.0,
             model_sha256: String::new(),
             model_file: String::new(),

@@ -344,6 +344,7 @@ pub fn run(
     };
     let mut skipped = vec![];
     let mut warnings: Vec<String> = gap_warning(&format!("the reading ({})", reading.method), reading.completeness_gap).into_iter().collect();
+    warnings.extend(reading.completeness_shortfall().map(|s| format!("the reading ({}): {s}", reading.method)));
 
     let fill = settings.fill.clone().unwrap_or_else(|| request.baseline.clone());
     let mut curves = None;
@@ -368,6 +369,7 @@ pub fn run(
             })?;
             if let Some(e) = entry {
                 warnings.extend(gap_warning(&format!("the reading with baseline {}", e.baseline), e.reading.completeness_gap));
+                warnings.extend(e.reading.completeness_shortfall().map(|s| format!("the reading with baseline {}: {s}", e.baseline)));
                 warnings.extend(curve_warning(&format!("deletion curve of the reading with baseline {}", e.baseline), &e.curves));
                 strip.push(e);
             }

@@ -101,10 +101,14 @@ impl Cascade {
 
 /// The method as the cascade runs it: refined integrated gradients fixed at the step count the
 /// original reading needed.
-fn frozen(method: &Method, original: &Reading) -> Method {
+/// With a distribution baseline the original's gradients were spread over
+/// `methods::defaults::IG_DRAWS` paths, and so are the frozen ones.
+fn frozen(method: &Method, original: &Reading, baseline: &methods::Baseline) -> Method {
     match method {
         Method::IntegratedGradients { steps, adaptive: Some(_), .. } => {
-            Method::IntegratedGradients { steps: original.steps.unwrap_or(*steps), rule: Rule::Midpoint, adaptive: None }
+            let paths = if baseline.is_distribution() { methods::defaults::IG_DRAWS } else { 1 };
+            let total = original.steps.unwrap_or(*steps * paths);
+            Method::IntegratedGradients { steps: total.div_ceil(paths).max(1), rule: Rule::Midpoint, adaptive: None }
         }
         m => m.clone(),
     }
@@ -142,7 +146,7 @@ pub fn cascade(case: &Case, reading: &Reading, settings: &CascadeSettings, ctl: 
             ctl.advance(1);
             r
         };
-        let f = frozen(m, &r);
+        let f = frozen(m, &r, &case.request.baseline);
         originals.push((r, f));
     }
     let mut out: Vec<MethodCascade> = originals

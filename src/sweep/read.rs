@@ -43,6 +43,9 @@ impl Setup<'_> {
             "output": self.model.output_name(),
             "finder": self.finder,
             "flag": self.flag,
+            // How integrated gradients refine (issue 25: cells refined where the path needs them,
+            // distribution baselines averaged over draws): results cached before it are not reused.
+            "ig_refinement": "cells-1",
         })
         .to_string()
     }
@@ -91,6 +94,7 @@ impl Setup<'_> {
             regions: a.regions.len(),
             region_labels: a.regions.iter().map(|r| r.label.clone()).collect::<Vec<_>>().join("; "),
             completeness_gap: reading.completeness_gap,
+            completeness_reached: reading.completeness.as_ref().and_then(|c| c.reached),
             steps: reading.steps,
             burned_in_annotation: declared,
             verdict: None,

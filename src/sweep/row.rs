@@ -29,6 +29,11 @@ pub struct Row {
     pub regions: usize,
     pub region_labels: String,
     pub completeness_gap: Option<f64>,
+    /// Whether integrated gradients' refinement reached its target gap (false: its cap stopped
+    /// it first, and the map is coarser than asked for); empty for a fixed step count and for
+    /// other methods.
+    #[serde(default)]
+    pub completeness_reached: Option<bool>,
     /// Integrated gradients' step count (refined or fixed).
     pub steps: Option<usize>,
     /// Burned In Annotation as the file declares it (DICOM only).
@@ -78,6 +83,7 @@ pub(crate) mod tests {
             regions: 0,
             region_labels: String::new(),
             completeness_gap: None,
+            completeness_reached: None,
             steps: None,
             burned_in_annotation: None,
             verdict: None,

@@ -100,7 +100,7 @@ fn strip_shows_every_baseline_and_the_engines_agreement() {
     let mut h = harness(vec![first.clone()], tmp.path());
 
     wait_for(&mut h, "the first reading", 120, |a| a.current_shown().is_some());
-    assert_eq!(h.state().form.baseline, BaselineKind::Blur, "the inspector starts on blur σ 8");
+    assert_eq!(h.state().form.baseline, methods::defaults::BASELINE.kind(), "the inspector starts on the default baseline");
 
     // Change the baseline through the combo box, as a person would.
     h.get_by_label("baseline").click();
@@ -224,7 +224,7 @@ fn a_dialog_that_returns_nothing_is_explained() {
 // ------------------------------------------------------------------ first view
 
 #[test]
-fn with_no_arguments_the_first_view_is_a_marked_positive_under_blur_8_and_it_is_flagged() {
+fn with_no_arguments_the_first_view_is_a_marked_positive_under_the_default_baseline_and_it_is_flagged() {
     let tmp = tempfile::tempdir().unwrap();
     // The first Hillmoor image with a finding, read from the manifest here.
     let demo = root().join("assets/demo");
@@ -238,10 +238,9 @@ fn with_no_arguments_the_first_view_is_a_marked_positive_under_blur_8_and_it_is_
     assert_eq!(h.state().current_image().map(|e| e.path.clone()), Some(want.clone()));
     assert_eq!(h.state().images.len(), spurion::feed::list_images(&demo).unwrap().len(), "the whole demo folder is listed");
     assert_eq!(h.state().model_path.as_deref(), Some(model_path().as_path()));
-    assert_eq!(h.state().form.baseline, BaselineKind::Blur);
-    assert_eq!(h.state().form.blur_sigma, 8.0);
+    assert_eq!(h.state().form.baseline, methods::defaults::BASELINE.kind());
     // The tooltip's reason is on screen as a short line under the baseline control.
-    assert!(h.query_by_label_contains("blur keeps a dark frame visible").is_some());
+    assert!(h.query_by_label_contains("noise draws keep a dark frame visible").is_some());
 
     // A reading starts by itself once the model and image are ready.
     wait_for(&mut h, "the first reading to start", 120, |a| {
@@ -254,8 +253,8 @@ fn with_no_arguments_the_first_view_is_a_marked_positive_under_blur_8_and_it_is_
     wait_for(&mut h, "the first reading", 300, |a| a.current_shown().is_some());
     h.run_steps(2);
     let (key, shown) = h.state().current_shown().unwrap();
-    assert_eq!(key.request.baseline.title(), "blur σ 8");
-    assert_eq!(shown.reading.baseline.as_deref(), Some("blur:8"));
+    assert_eq!(key.request.baseline, methods::defaults::BASELINE);
+    assert_eq!(shown.reading.baseline.as_deref(), Some(methods::defaults::BASELINE_TEXT));
     // The main job, on the first view: the shortcut model's reading of a marked positive is
     // flagged (regions_e2e allows at least 5 of 6 such images flagged with the defaults and at
     // most 1 of 6 with the control; it measured 6 and 0).
@@ -316,7 +315,7 @@ fn the_reading_json_export_has_the_fields_of_spurion_explain() {
     let form = &h.state().form;
     let o = std::process::Command::new(env!("CARGO_BIN_EXE_spurion"))
         .args(["explain", "--model", model_path().to_str().unwrap(), "--image", img.to_str().unwrap()])
-        .args(["--steps", &STEPS.to_string(), "--baseline", &format!("blur:{}", form.blur_sigma)])
+        .args(["--steps", &STEPS.to_string(), "--baseline", &form.baseline_of(form.baseline, None).unwrap().label()])
         .args(["--quiet", "--out", cli_dir.to_str().unwrap()])
         .output()
         .unwrap();

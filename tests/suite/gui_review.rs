@@ -113,7 +113,7 @@ fn a_strip_tile_shows_its_reading_on_the_slide_and_each_baseline_has_the_engines
     let key_of = |i: usize| plan.tiles[i].1.clone().unwrap();
 
     // A click on the black tile: the slide shows the black reading, with its figures.
-    assert_eq!(h.state().form.baseline, BaselineKind::Blur);
+    assert_eq!(h.state().form.baseline, methods::defaults::BASELINE.kind());
     h.get_by_label("show black on the slide").click();
     h.run_steps(2);
     assert_eq!(h.state().form.baseline, BaselineKind::Black, "the baseline control follows the tile");
@@ -168,7 +168,7 @@ fn a_strip_tile_shows_its_reading_on_the_slide_and_each_baseline_has_the_engines
     let baselines: Vec<Baseline> = single_input_baselines(&form, &img).iter().map(|b| Baseline::parse(b).unwrap()).collect();
     let req = Request {
         method: Method::IntegratedGradients { steps: STEPS, rule: methods::defaults::IG_FIXED_RULE, adaptive: None },
-        baseline: Baseline::parse("blur:8").unwrap(),
+        baseline: Baseline::parse(methods::defaults::BASELINE_TEXT).unwrap(),
         target: TargetSpec::Top,
         score: ScoreKind::Logits,
     };
@@ -243,9 +243,9 @@ fn the_review_panel_computes_with_progress_and_shows_the_engines_figures() {
     let gui: Review = res.review.clone();
 
     // The engine on a request and settings built here, as `spurion review --method gradient`
-    // with the flags below builds them (its fill: the blur σ 8 baseline).
+    // with the flags below builds them (its fill: the default baseline).
     let (model, card, input) = load(&img);
-    let req = Request { method: Method::Gradient, baseline: Baseline::parse("blur:8").unwrap(), target: TargetSpec::Top, score: ScoreKind::Logits };
+    let req = Request { method: Method::Gradient, baseline: Baseline::parse(methods::defaults::BASELINE_TEXT).unwrap(), target: TargetSpec::Top, score: ScoreKind::Logits };
     let settings = Settings {
         fill: None,
         curves: Some(CurveSettings { steps: 4, random_orders: 1, seed: 0, patch: 1 }),
@@ -296,7 +296,7 @@ fn the_review_panel_computes_with_progress_and_shows_the_engines_figures() {
     assert!(sh.grid.is_none() && sh.cells.last().unwrap().label == "the rest of the image", "{:?}", sh.cells);
     assert_eq!(sh.cells.len(), res.review.regions.len() + 1, "each found region and the rest");
     assert!(res.images.shapley_regions.is_some(), "the values painted on the regions' pixels");
-    assert!(h.query_by_label_contains("the found regions and the rest, absent parts from blur:8").is_some());
+    assert!(h.query_by_label_contains(&format!("the found regions and the rest, absent parts from {}", methods::defaults::BASELINE_TEXT)).is_some());
     assert!(h.query_by_label(&panels::shapley_sum_text(sh)).is_some());
 
     // And `spurion review` with the same flags writes the same figures.

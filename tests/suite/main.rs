@@ -23,6 +23,7 @@ mod gui_layout;
 mod gui_review;
 mod ledger;
 mod ledger_disk;
+mod methods_adaptive;
 mod methods_reference;
 mod occlusion_incremental;
 mod outputs;

@@ -74,14 +74,21 @@ fn adaptive_integrated_gradients_converge_to_the_path_integral() {
     let method = Method::IntegratedGradients { steps: 2, rule: Rule::Midpoint, adaptive: Some(0.001) };
     let r = run(&m, &x, method, Baseline::Black, 0, ScoreKind::Raw);
     let reference = run(&m, &x, ig(256, Rule::GaussLegendre), Baseline::Black, 0, ScoreKind::Raw);
+    // Pixel by pixel the refined map is held less tightly than its total: the refinement adds
+    // gradients where the total's error is, and errors of opposite sign elsewhere can stay. The
+    // bound is a regression check set after measuring 0.053 (largest pixel difference over the
+    // reference's largest value); the uniform tripling it replaced refined every cell and stayed
+    // under 0.01.
     let err = rel_err(r.map.as_slice().unwrap(), reference.map.as_slice().unwrap(), 1e-6);
-    assert!(err < 0.01, "refined map vs 256-point Gauss–Legendre: {err}");
+    assert!(err < 0.1, "refined map vs 256-point Gauss–Legendre: {err}");
     let f = |t: &ArrayD<f32>| m.forward(t, spurion::model::Tap::Output).unwrap()[0] as f64;
     let diff = f(&x) - f(&ArrayD::zeros(x.raw_dim()));
     let sum: f64 = r.map.iter().map(|v| *v as f64).sum();
     assert!((sum - diff).abs() <= 0.002 * diff.abs(), "sum {sum} vs F(x) − F(0) = {diff}");
-    // The refinement triples the midpoint cells from the start, so only these counts can occur.
-    assert!([2, 6, 18, 54, 162, 486, 1458].contains(&r.steps.unwrap()), "steps {:?}", r.steps);
+    // The refinement cuts a cell in three and adds two gradients each time, so the count is the
+    // start plus an even number.
+    let n = r.steps.unwrap();
+    assert!(n >= 2 && (n - 2) % 2 == 0 && n <= spurion::methods::MAX_REFINED_STEPS, "steps {n}");
 }
 
 #[test]

@@ -139,6 +139,7 @@ fn row(path: &str, group: &str, suspect: bool, share: f64, flipped: bool) -> spu
         regions: 1,
         region_labels: "burned-in mark".into(),
         completeness_gap: None,
+        completeness_reached: None,
         steps: None,
         burned_in_annotation: None,
         verdict: None,

@@ -64,6 +64,7 @@ fn row(path: &str, group: &str, suspect: bool, share: Option<f64>, top_after: Op
         regions: 0,
         region_labels: String::new(),
         completeness_gap: None,
+        completeness_reached: None,
         steps: None,
         burned_in_annotation: None,
         verdict: None,

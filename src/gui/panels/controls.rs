@@ -9,7 +9,7 @@ use crate::gui::look;
 use crate::gui::state::*;
 use crate::gui::work::Pick;
 use crate::gui::form::{BLACK_BASELINE_CAVEAT, method_menu};
-use crate::methods::defaults::{BASELINE_WHY, BLUR_SIGMA};
+use crate::methods::defaults::BASELINE_WHY;
 use crate::feed::dicom::DicomImage;
 use crate::feed::window::{VoiFunction, Windowing};
 use crate::methods::{BaselineKind, MethodKind, ScoreKind, TargetSpec};
@@ -88,9 +88,14 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 MethodKind::IntegratedGradients => {
                     labelled_drag(ui, if f.refine { "start steps" } else { "steps" }, &mut f.steps, 1..=1024, 0.5);
                     ui.checkbox(&mut f.refine, "refine until the completeness gap is under 1 %").on_hover_text(
-                        "Triples the midpoint steps (reusing every gradient) until the attributions sum to \
-                         F(x) − F(x′) within 1 %, up to 2187 steps. A larger gap means the path integral \
-                         is not resolved and the map should not be read yet.",
+                        format!(
+                            "Starts with this many midpoint steps and puts more where the path needs them (cells \
+                             whose own gradients disagree with the score's change across them) until the attributions \
+                             sum to F(x) − F(x′) within 1 %, up to {} gradients. A reading that stops at that cap \
+                             says so. A larger gap means the path integral is not resolved and the map should not be \
+                             read yet.",
+                            crate::methods::MAX_REFINED_STEPS
+                        ),
                     );
                 }
                 MethodKind::SmoothGrad => {
@@ -129,8 +134,8 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 ui.label(RichText::new(format!("{} takes no baseline", f.method.entry().title)).small().color(look::ASH));
             } else if f.baseline == BaselineKind::Black {
                 ui.label(RichText::new(BLACK_BASELINE_CAVEAT).small().color(look::LILAC)).on_hover_text(BASELINE_WHY);
-            } else if f.baseline == BaselineKind::Blur && f.blur_sigma == BLUR_SIGMA {
-                ui.label(RichText::new("default: blur keeps a dark frame visible to the map (hover for why)").small().color(look::ASH))
+            } else if f.baseline == crate::methods::defaults::BASELINE.kind() {
+                ui.label(RichText::new("default: noise draws keep a dark frame visible and the map tied to the model (hover for why)").small().color(look::ASH))
                     .on_hover_text(BASELINE_WHY);
             }
             // Parameters of every baseline stay visible: the strip uses them all.
@@ -234,7 +239,8 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                     ui.label(format!("{:.4}", r.attribution_sum));
                     ui.end_row();
                     ui.label("completeness gap");
-                    ui.label(r.completeness_gap.map_or("— (not defined)".into(), |g| format!("{:.2} %", g * 100.0)));
+                    let missed = if r.completeness_shortfall().is_some() { " — target not reached (cap)" } else { "" };
+                    ui.label(r.completeness_gap.map_or("— (not defined)".into(), |g| format!("{:.2} %{missed}", g * 100.0)));
                     ui.end_row();
                     if let Some(s) = r.steps {
                         ui.label("steps / samples");

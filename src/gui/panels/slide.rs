@@ -61,6 +61,12 @@ fn flag_banner(ui: &mut egui::Ui, shown: &Shown) {
             ui.label(RichText::new(format!("not suspect — {}", a.reason)).color(look::MOSS));
         });
     }
+    if let Some(s) = shown.reading.completeness_shortfall() {
+        egui::Frame::new().stroke(Stroke::new(1.0, look::LILAC)).inner_margin(6.0).corner_radius(3.0).show(ui, |ui| {
+            ui.set_width(ui.available_width());
+            ui.label(RichText::new(format!("completeness {s}")).color(look::LILAC));
+        });
+    }
 }
 
 fn legend(ui: &mut egui::Ui, app: &mut Inspector, scale: f32, sign: Sign) {

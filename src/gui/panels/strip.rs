@@ -82,8 +82,9 @@ pub(super) fn strip_body(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<I
                                     ui.painter().image(t.id(), r, uv, Color32::from_white_alpha(230));
                                     super::review_strip::tile(ui, app, i, k, resp, out);
                                     ui.label(RichText::new(format!(
-                                        "gap {}",
-                                        s.reading.completeness_gap.map_or("—".into(), |g| format!("{:.1} %", g * 100.0))
+                                        "gap {}{}",
+                                        s.reading.completeness_gap.map_or("—".into(), |g| format!("{:.1} %", g * 100.0)),
+                                        if s.reading.completeness_shortfall().is_some() { " (target not reached)" } else { "" }
                                     )).small());
                                     let ms = s.assessment.all_regions.as_ref().and_then(|f| f.mark_share);
                                     let ms_text = if s.assessment.regions.is_empty() { "no regions found".to_string() } else { format!("mark share {}", fmt_opt(ms, 2)) };

@@ -75,6 +75,7 @@ pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary], thumbs: &Thumbs
         let parts: Vec<String> = verdicts.iter().map(|(v, n)| format!("{n} {}", esc(v))).collect();
         writeln!(h, "<p>The curator's ledger: {} (the rest have no verdict).</p>", parts.join(", "))?;
     }
+    completeness(&mut h, rows)?;
     groups_table(&mut h, groups)?;
     atlases(&mut h, result, groups)?;
     writeln!(h, "<h2>Mark share by group</h2><p><small>Share of each image's supporting attribution on its found regions together.</small></p>")?;
@@ -94,6 +95,37 @@ pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary], thumbs: &Thumbs
          data; on other data they are a starting point, not a calibration.</small></p></body></html>"
     )?;
     Ok(h)
+}
+
+/// Integrated gradients' completeness over the sweep: the largest gap, and every reading whose
+/// refinement stopped at its cap before its target, by name.
+fn completeness(h: &mut String, rows: &[Row]) -> Result<()> {
+    let gaps: Vec<f64> = rows.iter().filter_map(|r| r.completeness_gap).filter(|g| g.is_finite()).collect();
+    if gaps.is_empty() {
+        return Ok(());
+    }
+    let largest = gaps.iter().fold(0f64, |m, g| m.max(*g));
+    let missed: Vec<&Row> = rows.iter().filter(|r| r.completeness_reached == Some(false)).collect();
+    write!(h, "<p>Completeness gap: largest {:.2} % over {} readings", 100.0 * largest, gaps.len())?;
+    if missed.is_empty() {
+        writeln!(h, ".</p>")?;
+        return Ok(());
+    }
+    let names: Vec<String> = missed
+        .iter()
+        .take(20)
+        .map(|r| format!("{} ({})", esc(&r.path), r.completeness_gap.map_or("—".into(), |g| format!("{:.2} %", 100.0 * g))))
+        .collect();
+    writeln!(
+        h,
+        "; <span class=\"suspect\">{} reading{} did not reach the target gap</span>: the refinement stopped at its cap, and \
+         their maps are coarser estimates of the path integral than asked for: {}{}.</p>",
+        missed.len(),
+        if missed.len() == 1 { "" } else { "s" },
+        names.join(", "),
+        if missed.len() > 20 { ", …" } else { "" }
+    )?;
+    Ok(())
 }
 
 fn groups_table(h: &mut String, groups: &[GroupSummary]) -> Result<()> {
@@ -238,9 +270,14 @@ fn ranked(h: &mut String, result: &ShardResult, thumbs: &Thumbs) -> Result<()> {
             None => ("—".into(), "—".into()),
         };
         let flag = if r.suspect { "<span class=\"suspect\">SUSPECT</span> " } else { "" };
+        let missed = if r.completeness_reached == Some(false) {
+            format!(" <small>(gap {} not reached)</small>", r.completeness_gap.map_or("—".into(), |g| format!("{:.2} %", 100.0 * g)))
+        } else {
+            String::new()
+        };
         writeln!(
             h,
-            "<tr><td>{}</td><td>{flag}{}</td><td>{plain}</td><td>{tint}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            "<tr><td>{}</td><td>{flag}{}{missed}</td><td>{plain}</td><td>{tint}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
             i + 1,
             esc(&r.path),
             esc(&r.group),
