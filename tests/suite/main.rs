@@ -36,5 +36,7 @@ mod regions_e2e;
 mod regions_figures;
 mod regions_finders;
 mod regions_flag;
+mod regions_grow;
+mod regions_marks;
 mod sweep;
 mod window_values;
