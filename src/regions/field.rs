@@ -31,8 +31,11 @@ struct Channel {
     name: &'static str,
     values: Vec<f32>,
     min_rise: f32,
-    /// Values at the image's extreme (grey channels: within the sticker margin of the top).
-    extreme: Option<f32>,
+    /// Stroke pixels have at least this value (grey channels: near the image's extreme; the
+    /// saturation channel: clearly coloured).
+    stroke_floor: f32,
+    /// Sticker pixels have at least this value.
+    sticker_floor: f32,
 }
 
 fn channels(pixels: &Array3<f32>, luma: &[f32], ex: &[bool], s: &FieldMarkSettings) -> Vec<Channel> {
@@ -48,9 +51,9 @@ fn channels(pixels: &Array3<f32>, luma: &[f32], ex: &[bool], s: &FieldMarkSettin
     if range >= 0.1 {
         let bright: Vec<f32> = luma.iter().map(|x| (x - lo) / range).collect();
         let dark: Vec<f32> = bright.iter().map(|x| 1.0 - x).collect();
-        let top = 1.0 - s.sticker_extreme_margin;
-        out.push(Channel { name: "bright", values: bright, min_rise: s.min_contrast, extreme: Some(top) });
-        out.push(Channel { name: "dark", values: dark, min_rise: s.min_contrast, extreme: Some(top) });
+        let (stroke_floor, sticker_floor) = (1.0 - s.extreme_margin, 1.0 - s.sticker_extreme_margin);
+        out.push(Channel { name: "bright", values: bright, min_rise: s.min_contrast, stroke_floor, sticker_floor });
+        out.push(Channel { name: "dark", values: dark, min_rise: s.min_contrast, stroke_floor, sticker_floor });
     }
     let (h, w, c) = pixels.dim();
     if c >= 3 {
@@ -61,15 +64,16 @@ fn channels(pixels: &Array3<f32>, luma: &[f32], ex: &[bool], s: &FieldMarkSettin
                 v.iter().copied().fold(f32::MIN, f32::max) - v.iter().copied().fold(f32::MAX, f32::min)
             })
             .collect();
-        if sat.iter().any(|&v| v >= s.min_colour_contrast) {
-            out.push(Channel { name: "coloured", values: sat, min_rise: s.min_colour_contrast, extreme: None });
+        if sat.iter().any(|&v| v >= s.min_saturation) {
+            let floor = s.min_saturation;
+            out.push(Channel { name: "coloured", values: sat, min_rise: s.min_colour_contrast, stroke_floor: floor, sticker_floor: floor });
         }
     }
     out
 }
 
 fn stands_out(b: &Blob, ch: &Channel, s: &FieldMarkSettings) -> bool {
-    b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread && b.fade <= s.max_fade
+    b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread && b.fade <= s.max_fade && b.core_spread <= s.max_core_spread
 }
 
 /// What a standing-out stroke component is.
@@ -113,10 +117,12 @@ pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Optio
     let mut taken = ex.clone();
     let mut out = Vec::new();
     for ch in channels(pixels, &v, &ex, s) {
+        // Stickers first: the rim of a large blob passes the stroke top-hat as thin crescents.
+        stickers(h, w, &ch, &mut taken, &mut out, s);
         let th = top_hat(h, w, &ch.values, s.max_stroke_px.div_ceil(2));
-        let on: Vec<bool> = (0..h * w).map(|p| !taken[p] && th[p] >= ch.min_rise).collect();
-        let max_side = (s.max_size_fraction * short) as usize;
-        let found = blobs(h, w, &ch.values, &on, |bw, bh, area| area >= 3 && bw.max(bh) >= 3 && bw.max(bh) <= max_side);
+        let on: Vec<bool> = (0..h * w).map(|p| !taken[p] && th[p] >= ch.min_rise && ch.values[p] >= ch.stroke_floor).collect();
+        // Long runs may be rulers; the size limits of the other kinds apply in `classify`.
+        let found = blobs(h, w, &ch.values, &on, |bw, bh, area| area >= 3 && bw.max(bh) >= 3);
         let standing: Vec<Blob> = found.into_iter().filter(|b| stands_out(b, &ch, s)).collect();
         // Rulers first: their ticks would otherwise pass as glyphs or lines.
         let (rulers, rest) = super::ruler::find_rulers(w, standing, s);
@@ -129,8 +135,12 @@ pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Optio
             );
             push_box(&mut out, &mut taken, h, w, bbox, 0.8, MarkShape::Ruler, "ruler", reason);
         }
+        // A photograph's own texture (mortar, highlights on relief, whiskers) stands out in many
+        // places at once; marks are few. Past `max_marks_per_channel` standing components the
+        // channel is texture and gives no glyph or annotation.
+        let few = rest.iter().filter(|b| b.size() >= s.min_px).count() <= s.max_marks_per_channel;
         let mut glyphs = Vec::new();
-        for b in rest {
+        for b in rest.into_iter().filter(|_| few) {
             match classify(&b, short, s) {
                 Stroke::Ring | Stroke::Line => {
                     let ring = matches!(classify(&b, short, s), Stroke::Ring);
@@ -169,7 +179,6 @@ pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Optio
             );
             push_box(&mut out, &mut taken, h, w, bb, conf, MarkShape::Glyph, if k == 1 { "glyph" } else { "glyphs" }, reason);
         }
-        stickers(h, w, &ch, &mut taken, &mut out, s);
     }
     out
 }
@@ -194,7 +203,7 @@ fn stickers(h: usize, w: usize, ch: &Channel, taken: &mut [bool], out: &mut Vec<
     let max_side = (s.sticker_max_fraction * short) as usize;
     let th = top_hat(h, w, &ch.values, max_side / 2 + 1);
     let on: Vec<bool> = (0..h * w)
-        .map(|p| !taken[p] && th[p] >= ch.min_rise && ch.extreme.is_none_or(|top| ch.values[p] >= top))
+        .map(|p| !taken[p] && th[p] >= ch.min_rise && ch.values[p] >= ch.sticker_floor)
         .collect();
     let found = blobs(h, w, &ch.values, &on, |bw, bh, area| {
         bw.max(bh) >= s.min_px && bw.max(bh) <= max_side && area as f32 >= s.sticker_min_fill * (bw * bh) as f32

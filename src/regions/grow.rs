@@ -4,20 +4,21 @@
 //! A finder's box follows what it measured (a tag's strokes, a ring's stroke), but a mark is
 //! more than that: the plate under the strokes, the anti-aliased rim a renderer leaves. Painted
 //! out from a boundary that still holds a bright rim, a harmonic fill spreads the rim back over
-//! the hole and the model may still see the mark. So, one ring of pixels at a time: the ring
-//! just outside the current mask is compared with the surroundings (a wider ring one pixel
-//! beyond it; per channel, median and robust spread); the ring's pixels that differ by more
-//! than `tolerance` spreads (and `min_step`) join the mask. Growth stops when at most
-//! `noise_share` of the ring differs (the ring looks like the surroundings) or after `max_px`
-//! rings; the mask is then widened by `margin_px`. What was used is kept ([`MaskUsed`]) and
-//! written to `reading.json` with the removal.
+//! the hole and the model may still see the mark. So, one ring of pixels at a time: the pixels
+//! next to the current mask are compared with the surroundings (the ring `outer_width_px` wide
+//! just beyond the farthest growth, `max_px` + 2 px out; per channel, median and robust
+//! spread); those that differ by more than `tolerance` spreads (and `min_step`) join the mask,
+//! and their neighbours make the next ring. Growth stops when at most `noise_share` of a ring
+//! differs (the ring looks like the surroundings) or after `max_px` rings; the mask is then
+//! widened by `margin_px`. What was used is kept ([`MaskUsed`]) and written to `reading.json`
+//! with the removal.
 
 use ndarray::{Array2, Array3};
 use serde::{Deserialize, Serialize};
 
 use super::GrowSettings;
-use super::grid::{dilate, median, to_mask};
-use super::measure::robust_spread;
+use super::grid::{dilate, median};
+use super::measure::{chessboard, robust_spread};
 
 /// The mask a removal painted out, as `reading.json` and `regions.json` record it.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -42,24 +43,36 @@ pub struct Grown {
 }
 
 /// Grows `mask` on `pixels` (H×W×C, 0..1) as the module says. With growth off the mask is
-/// returned as it is.
+/// returned as it is. The work stays inside the mask's box plus the farthest growth can reach.
 pub fn grow_mask(pixels: &Array3<f32>, mask: &Array2<bool>, s: &GrowSettings) -> Grown {
     let (h, w, c) = pixels.dim();
     assert_eq!(mask.dim(), (h, w), "mask and pixels share a grid");
-    let mut cur: Vec<bool> = mask.iter().copied().collect();
+    let Some(b) = super::mask_bbox(mask) else {
+        return Grown { mask: mask.clone(), used: MaskUsed { bbox: [0, 0, 0, 0], pixels: 0, grown_px: 0, settled: true } };
+    };
+    let reach = s.max_px + 2 + s.outer_width_px;
+    let (x0, y0, x1, y1) = (b[0].saturating_sub(reach), b[1].saturating_sub(reach), (b[2] + reach).min(w), (b[3] + reach).min(h));
+    let (lw, lh) = (x1 - x0, y1 - y0);
+    let at = |k: usize| (y0 + k / lw, x0 + k % lw);
+    let mut cur: Vec<bool> = (0..lw * lh).map(|k| mask[at(k)]).collect();
     let (mut steps, mut settled) = (0usize, false);
     if s.enabled {
-        let planes: Vec<Vec<f32>> = (0..c).map(|k| pixels.index_axis(ndarray::Axis(2), k).iter().copied().collect()).collect();
-        while steps < s.max_px {
-            let near = dilate(h, w, &cur, 1);
-            let inner = dilate(h, w, &cur, 2);
-            let outer = dilate(h, w, &cur, 2 + s.outer_width_px);
-            let thin: Vec<usize> = (0..h * w).filter(|&p| near[p] && !cur[p]).collect();
-            let around: Vec<usize> = (0..h * w).filter(|&p| outer[p] && !inner[p]).collect();
-            if thin.is_empty() || around.is_empty() {
-                settled = true;
-                break;
-            }
+        let planes: Vec<Vec<f32>> = (0..c)
+            .map(|ch| {
+                (0..lw * lh)
+                    .map(|k| {
+                        let (y, x) = at(k);
+                        pixels[[y, x, ch]]
+                    })
+                    .collect()
+            })
+            .collect();
+        // The surroundings: the ring just beyond the farthest growth, so a plate wider than a
+        // few pixels is not taken for the surroundings of its own middle.
+        let d = chessboard(lw, lh, &cur, true);
+        let (near, far) = (s.max_px as u16 + 2, (s.max_px + 1 + s.outer_width_px) as u16);
+        let around: Vec<usize> = (0..lw * lh).filter(|&p| (near..=far).contains(&d[p])).collect();
+        if !around.is_empty() {
             let stats: Vec<(f32, f32)> = planes
                 .iter()
                 .map(|v| {
@@ -67,26 +80,62 @@ pub fn grow_mask(pixels: &Array3<f32>, mask: &Array2<bool>, s: &GrowSettings) ->
                     (median(&vals), s.min_step.max(s.tolerance * robust_spread(&vals)))
                 })
                 .collect();
-            let unlike: Vec<usize> = thin
-                .iter()
-                .copied()
-                .filter(|&p| planes.iter().zip(&stats).any(|(v, (m, tol))| (v[p] - m).abs() > *tol))
-                .collect();
-            if unlike.len() as f32 <= s.noise_share * thin.len() as f32 {
-                settled = true;
-                break;
+            let unlike = |p: usize| planes.iter().zip(&stats).any(|(v, (m, tol))| (v[p] - m).abs() > *tol);
+            let neighbours = |p: usize| {
+                let (y, x) = (p / lw, p % lw);
+                let mut out = Vec::with_capacity(8);
+                for dy in -1i64..=1 {
+                    for dx in -1i64..=1 {
+                        let (ny, nx) = (y as i64 + dy, x as i64 + dx);
+                        if (dy, dx) != (0, 0) && ny >= 0 && nx >= 0 && (ny as usize) < lh && (nx as usize) < lw {
+                            out.push(ny as usize * lw + nx as usize);
+                        }
+                    }
+                }
+                out
+            };
+            // Ring by ring: the pixels next to the mask not judged before; those unlike the
+            // surroundings join it, and their own neighbours make the next ring.
+            let mut judged = cur.clone();
+            let mut ring: Vec<usize> = (0..lw * lh).filter(|&p| d[p] == 1).collect();
+            for &p in &ring {
+                judged[p] = true;
             }
-            for p in unlike {
-                cur[p] = true;
+            while steps < s.max_px && !ring.is_empty() {
+                let taken: Vec<usize> = ring.iter().copied().filter(|&p| unlike(p)).collect();
+                if taken.len() as f32 <= s.noise_share * ring.len() as f32 {
+                    settled = true;
+                    break;
+                }
+                for &p in &taken {
+                    cur[p] = true;
+                }
+                ring.clear();
+                for &p in &taken {
+                    for q in neighbours(p) {
+                        if !judged[q] {
+                            judged[q] = true;
+                            ring.push(q);
+                        }
+                    }
+                }
+                steps += 1;
             }
-            steps += 1;
+            settled |= ring.is_empty();
+        } else {
+            settled = true;
         }
-        cur = dilate(h, w, &cur, s.margin_px);
+        cur = dilate(lh, lw, &cur, s.margin_px);
     }
-    let mask = to_mask(h, w, cur);
-    let bbox = super::mask_bbox(&mask).unwrap_or([0, 0, 0, 0]);
-    let pixels = mask.iter().filter(|&&m| m).count();
-    Grown { mask, used: MaskUsed { bbox, pixels, grown_px: steps, settled } }
+    let mut full = mask.clone();
+    for (k, &on) in cur.iter().enumerate() {
+        if on {
+            full[at(k)] = true;
+        }
+    }
+    let bbox = super::mask_bbox(&full).unwrap_or([0, 0, 0, 0]);
+    let pixels = full.iter().filter(|&&m| m).count();
+    Grown { mask: full, used: MaskUsed { bbox, pixels, grown_px: steps, settled } }
 }
 
 /// The description of a union of masks (all regions painted out together).

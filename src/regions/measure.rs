@@ -93,6 +93,9 @@ pub(crate) struct Blob {
     pub hole: f32,
     /// Robust spread of the channel inside, as a share of the contrast.
     pub inner_spread: f32,
+    /// Robust spread of the brighter half of the pixels inside (channel units): the core of a
+    /// stroke drawn in one ink holds one value; a photograph's bright structures vary.
+    pub core_spread: f32,
 }
 
 impl Blob {
@@ -104,7 +107,8 @@ impl Blob {
     }
     pub fn size(&self) -> usize {
         self.width().max(self.height())
-    }}
+    }
+}
 
 /// Components of `on` whose box passes `keep_box(width, height, area)`, measured on `channel`.
 pub(crate) fn blobs(
@@ -153,6 +157,12 @@ pub(crate) fn robust_spread(v: &[f32]) -> f32 {
 
 const MARGIN: usize = 6;
 
+fn quantile(v: &[f32], q: f32) -> f32 {
+    let mut s = v.to_vec();
+    s.sort_by(|a, b| a.total_cmp(b));
+    s[((s.len() - 1) as f32 * q).round() as usize]
+}
+
 fn measure(h: usize, w: usize, ch: &[f32], label: &[u32], l: u32, b: [usize; 4], pixels: Vec<usize>) -> Blob {
     // Local window: the box plus MARGIN on every side (clipped); distances are chessboard
     // distances to the component, by two passes of a chamfer transform (common practice).
@@ -175,7 +185,9 @@ fn measure(h: usize, w: usize, ch: &[f32], label: &[u32], l: u32, b: [usize; 4],
     let bg = if ring.is_empty() { median(&near2) } else { median(&ring) };
     let contrast = median(&inner) - bg;
     let ring_spread = robust_spread(&ring);
-    let fade = if contrast > 0.0 && !near2.is_empty() { ((median(&near2) - bg) / contrast).max(0.0) } else { 1.0 };
+    // The lower quartile 2 px out: a neighbouring stroke (a ruler's next tick, a letter's other
+    // leg) lifts part of that ring, a soft blob lifts all of it.
+    let fade = if contrast > 0.0 && !near2.is_empty() { ((quantile(&near2, 0.25) - bg) / contrast).max(0.0) } else { 1.0 };
     // Ridge of the inner distance: pixels whose distance no 8-neighbour exceeds.
     let mut ridge = Vec::new();
     for k in 0..lw * lh {
@@ -202,13 +214,16 @@ fn measure(h: usize, w: usize, ch: &[f32], label: &[u32], l: u32, b: [usize; 4],
     let fill = pixels.len() as f32 / (bw * bh) as f32;
     let hole = largest_hole(w, label, l, b) as f32 / (bw * bh) as f32;
     let inner_spread = if contrast > 0.0 { robust_spread(&inner) / contrast } else { f32::INFINITY };
-    Blob { bbox: b, pixels, contrast, ring_spread, fade, stroke, fill, hole, inner_spread }
+    let mid = median(&inner);
+    let core: Vec<f32> = inner.iter().copied().filter(|&x| x >= mid).collect();
+    let core_spread = robust_spread(&core);
+    Blob { bbox: b, pixels, contrast, ring_spread, fade, stroke, fill, hole, inner_spread, core_spread }
 }
 
 /// Chessboard distances in a `lw`×`lh` window. With `to_inside`: each pixel's distance to the
 /// component (0 inside it). Otherwise: each inside pixel's distance to the nearest outside pixel
 /// or the window edge (0 outside, 1 on the outline).
-fn chessboard(lw: usize, lh: usize, inside: &[bool], to_inside: bool) -> Vec<u16> {
+pub(crate) fn chessboard(lw: usize, lh: usize, inside: &[bool], to_inside: bool) -> Vec<u16> {
     const FAR: u16 = u16::MAX / 2;
     let mut d: Vec<u16> = inside.iter().map(|&i| if i == to_inside { 0 } else { FAR }).collect();
     if !to_inside {

@@ -259,9 +259,10 @@ pub fn find_regions(image: &Array2<f32>, settings: &FinderSettings) -> Vec<Regio
 }
 
 /// Runs the single-image finders on a picture's pixels (H×W×C, 0..1; colour pictures are also
-/// searched for saturated marks): border bands first, then text tags outside the bands (a frame
-/// line is sharp and extreme too, and would otherwise be taken for a stroke), then the field's
-/// other marks outside both. Each found region's removal mask is then grown ([`grow`]).
+/// searched for saturated marks): border bands first, then (when on) the field's other marks
+/// outside the bands, then text tags outside both (a frame line is sharp and extreme too, and
+/// would otherwise be taken for a stroke). Each found region's removal mask is grown
+/// ([`grow`]) before the next finder looks.
 pub fn find_regions_in(pixels: &Array3<f32>, settings: &FinderSettings) -> Vec<Region> {
     let image = crate::feed::luminance(pixels);
     let mut out: Vec<Region> = Vec::new();
@@ -287,13 +288,15 @@ pub fn find_regions_in(pixels: &Array3<f32>, settings: &FinderSettings) -> Vec<R
         grown(&mut bands);
         out.extend(bands);
     }
-    if settings.mark.enabled {
-        let mut marks = find_burned_in_marks(&image, Some(&exclude(&out)), &settings.mark);
+    // The field's marks before the text tags when they are on: a ruler's separate ticks would
+    // otherwise pass as letters on a line.
+    if settings.field_marks.enabled {
+        let mut marks = find_field_marks(pixels, &image, Some(&exclude(&out)), &settings.field_marks);
         grown(&mut marks);
         out.extend(marks);
     }
-    if settings.field_marks.enabled {
-        let mut marks = find_field_marks(pixels, &image, Some(&exclude(&out)), &settings.field_marks);
+    if settings.mark.enabled {
+        let mut marks = find_burned_in_marks(&image, Some(&exclude(&out)), &settings.mark);
         grown(&mut marks);
         out.extend(marks);
     }

@@ -202,6 +202,9 @@ impl Default for RepeatedPatchSettings {
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
 pub struct FieldMarkSettings {
+    /// Off by default for now: on the clean photographs they still find marks that are not
+    /// there (tests/suite/regions_marks.rs prints how many); `{"field_marks": {"enabled": true}}`
+    /// turns them on.
     pub enabled: bool,
     /// Widest stroke (pixels) a glyph, annotation or ruler tick may have: the top-hat that
     /// lifts strokes off their background uses a square of this side plus one, so wider
@@ -211,9 +214,16 @@ pub struct FieldMarkSettings {
     /// ring 3..6 px out), as a share of the image's value range. Default 0.25: a mark is drawn
     /// to be seen, and a quarter of the range is what the existing tag finder asks too.
     pub min_contrast: f32,
+    /// Stroke pixels lie within this share of the value range of the image's brightest (or
+    /// darkest) value: marks are drawn to be seen, in the brightest or darkest ink the picture
+    /// holds; a photograph's own thin structures mostly are not. Default 0.25 (the tag finder
+    /// uses 0.2 on crisp pixels; 0.25 leaves room for an anti-aliased stroke's core).
+    pub extreme_margin: f32,
     /// The same for the saturation channel (max − min of R, G, B; absolute, 0..1): a coloured
     /// pen line or ring on grey or differently coloured ground. Default 0.2.
     pub min_colour_contrast: f32,
+    /// ... whose pixels are at least this saturated. Default 0.4.
+    pub min_saturation: f32,
     /// The rise must be at least this many times the robust spread of the surroundings ring:
     /// a mark is drawn over the image and stands out from whatever lies under it; a bright
     /// grain of gravel or a blade of grass does not stand out from its like neighbours. Default 4.
@@ -221,6 +231,11 @@ pub struct FieldMarkSettings {
     /// At most this share of the rise may remain 2 px outside the stroke: rendered pixels end
     /// within their anti-aliased rim, highlights and anatomy fade. Default 0.25.
     pub max_fade: f32,
+    /// The brighter half of a mark's pixels (its core, drawn in one ink) spreads by at most
+    /// this (robust spread, in units of the value range; absolute for saturation). Default 0.03
+    /// (about 8 grey levels of 255): a photograph's highlights, mortar lines and coin reliefs
+    /// vary along their length; a clipped highlight may not, and is the known weak spot.
+    pub max_core_spread: f32,
     /// Smallest glyph or sticker (longer box side, pixels). Default 5.
     pub min_px: usize,
     /// Largest glyph, as a share of the image's shorter side. Default 0.2.
@@ -231,6 +246,9 @@ pub struct FieldMarkSettings {
     /// Glyphs join one region when the gap between their boxes is at most this many glyph
     /// sizes (the letters of one marker). Default 1.2.
     pub group_gap: f32,
+    /// A channel with more standing-out components than this (of at least `min_px`) is texture,
+    /// not marks, and gives no glyphs or annotations (rulers, found first, are kept). Default 12.
+    pub max_marks_per_channel: usize,
     /// Drawn annotations are at least this long (longer box side, pixels). Default 16.
     pub annotation_min_px: usize,
     /// ... and stroked at most this share of their size: a reader's line or ring is thin next
@@ -268,16 +286,20 @@ pub struct FieldMarkSettings {
 impl Default for FieldMarkSettings {
     fn default() -> Self {
         FieldMarkSettings {
-            enabled: true,
+            enabled: false,
             max_stroke_px: 8,
             min_contrast: 0.25,
+            extreme_margin: 0.25,
             min_colour_contrast: 0.2,
+            min_saturation: 0.4,
             min_isolation: 4.0,
             max_fade: 0.25,
+            max_core_spread: 0.03,
             min_px: 5,
             glyph_max_fraction: 0.2,
             glyph_max_thinness: 0.35,
             group_gap: 1.2,
+            max_marks_per_channel: 12,
             annotation_min_px: 16,
             annotation_max_thinness: 0.1,
             ring_min_hole: 0.3,
@@ -306,8 +328,8 @@ pub struct GrowSettings {
     /// a plate or rim a few pixels wider than the found strokes is covered; growth never runs
     /// far into the anatomy next to a mark.
     pub max_px: usize,
-    /// The surroundings are the ring this many pixels wide, one pixel beyond the ring being
-    /// judged. Default 4.
+    /// The surroundings are the ring this many pixels wide just beyond the farthest growth
+    /// (`max_px` + 2 px from the found region). Default 4.
     pub outer_width_px: usize,
     /// A ring pixel is unlike the surroundings when it differs from their median by more than
     /// this many robust spreads ... Default 3 (common practice for an outlier under a
