@@ -182,6 +182,7 @@ fn bare_glyphs_bright_and_dark_at_every_size_and_place() {
             }
         }
     }
+    // Measured 2026-12-05: found 119 of 126 (0.94), named 117 (0.93).
     let (found, named) = t.report("bare glyphs");
     assert!(found >= 0.9, "bare glyphs found {found:.2}");
     assert!(named >= 0.8, "bare glyphs named {named:.2}");
@@ -230,6 +231,7 @@ fn drawn_rings_lines_arrows_and_crosses() {
             }
         }
     }
+    // Measured 2026-12-05: found 244 of 252 (0.97), named 223 (0.88).
     let (found, named) = t.report("drawn annotations");
     assert!(found >= 0.9, "drawn annotations found {found:.2}");
     assert!(named >= 0.8, "drawn annotations named {named:.2}");
@@ -361,9 +363,10 @@ fn clean_photographs_grey_and_colour_give_no_marks() {
     }
     // They must find nothing here, and do not yet: this is why `FieldMarkSettings::enabled` is
     // off by default (with the defaults, regions_clean.rs finds nothing on these pictures). A
-    // regression check on the count measured on 2026-12-05 before the texture rule
-    // (`max_marks_per_channel`): 135 over the 18 pictures; it may only fall.
-    assert!(total <= 135, "false finds on clean photographs rose to {total} (listed above)");
+    // regression check on the count measured on 2026-12-05: 66 over the 18 pictures (camera 10,
+    // astronaut 14 grey and 14 colour, retina 7, gravel 5, ...; 135 before the texture rule
+    // `max_marks_per_channel`); it may only fall.
+    assert!(total <= 66, "false finds on clean photographs rose to {total} (listed above)");
 }
 
 #[test]
