@@ -4,7 +4,7 @@ use std::path::Path;
 
 use anyhow::Result;
 
-use crate::regions::{FinderSettings, find_regions, load_luminance, regions_file, write_regions};
+use crate::regions::{FinderSettings, find_regions_in, regions_file, write_regions};
 
 /// With `out`, writes `DIR/region-NN-KIND.png` masks (white = region) and `DIR/regions.json`
 /// and prints one line per region; without it, prints the JSON to standard output and writes
@@ -29,8 +29,9 @@ pub fn run(image: &Path, out: Option<&Path>, settings: &FinderSettings) -> Resul
             println!("wrote {}", dir.join("regions.json").display());
         }
         None => {
-            let luma = load_luminance(image)?;
-            let regions = find_regions(&luma, settings);
+            let picture = crate::feed::Picture::open(image)?;
+            let luma = picture.luminance();
+            let regions = find_regions_in(&picture.pixels, settings);
             println!("{}", serde_json::to_string_pretty(&regions_file(image, &luma, &regions, settings))?);
         }
     }

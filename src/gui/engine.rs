@@ -12,7 +12,7 @@ use crate::feed::{FeedCard, Feeder, Picture};
 use crate::methods::agree::Spread;
 use crate::methods::{self, Input, Reading, Request};
 use crate::model::{Model, Tap};
-use crate::regions::{FinderSettings, FlagSettings, find_regions, paint_out_all};
+use crate::regions::{FinderSettings, FlagSettings, find_regions_in, paint_out_all};
 
 use super::paint;
 use super::state::{Drawn, Prepared, Session, Shown};
@@ -51,7 +51,7 @@ pub fn prepare(session: &Session, path: &Path) -> Result<Prepared> {
         .with_context(|| format!("scoring {}", path.display()))?
         .to_vec();
     let finder = FinderSettings::default().for_picture(picture.burned_in_annotation());
-    let regions = find_regions(&picture.luminance(), &finder);
+    let regions = find_regions_in(&picture.pixels, &finder);
     let region_edges = regions.iter().map(|r| paint::mask_edges(&r.mask)).collect();
     let base_image = paint::picture_image(&picture);
     let painted = (!regions.is_empty()).then(|| {

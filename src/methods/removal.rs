@@ -11,8 +11,10 @@ use crate::control::Control;
 use crate::feed::FeedCard;
 use crate::model::Model;
 use crate::regions::{
-    Assessment, Fill, FinderSettings, FlagSettings, Region, Removal, Removals, assess_with_removals, find_regions, paint_out, paint_out_all,
+    Assessment, Fill, FinderSettings, FlagSettings, MaskUsed, Region, Removal, Removals, assess_with_removals, find_regions_in, paint_out,
+    paint_out_all,
 };
+use crate::regions::grow::union_used;
 
 /// Paints each of `regions` out of the picture `input`, then all of them together, and scores
 /// the results for the reading's target and score kind. `None` for a tensor input (no picture
@@ -28,17 +30,27 @@ pub fn removals(model: &Model, card: Option<&FeedCard>, input: &Input, reading: 
         }
     }
     let scorer = Scorer::new(model, card, reading.score_kind, reading.target.index)?;
-    let mut painted: Vec<(String, ndarray::Array3<f32>)> =
-        regions.iter().map(|r| (Fill::for_kind(r.kind).name().to_string(), paint_out(&picture.pixels, &r.mask, Fill::for_kind(r.kind)))).collect();
+    // Each region by its removal mask (grown to the whole mark when a finder found it).
+    let mut painted: Vec<(String, ndarray::Array3<f32>)> = regions
+        .iter()
+        .map(|r| (Fill::for_kind(r.kind).name().to_string(), paint_out(&picture.pixels, r.removal_mask(), Fill::for_kind(r.kind))))
+        .collect();
     let (all, fill) = paint_out_all(&picture.pixels, regions);
     painted.push((fill, all));
+    let mut used: Vec<MaskUsed> = regions.iter().map(|r| r.mask_used()).collect();
+    let mut union = ndarray::Array2::from_elem((picture.height(), picture.width()), false);
+    for r in regions {
+        union.zip_mut_with(r.removal_mask(), |u, &m| *u |= m);
+    }
+    used.push(union_used(&union, &used.iter().collect::<Vec<_>>()));
     let tensors = painted.iter().map(|(_, px)| feeder.tensor(px)).collect::<Result<Vec<_>>>()?;
     // The tapped vector at the input, as the reading recorded it.
     let clean = Array1::from(reading.scores.clone());
     let outs = model.forward_many(&tensors, scorer.tap, &Control::new())?;
-    let removal = |fill: &str, v: &Array1<f32>| {
+    let removal = |fill: &str, v: &Array1<f32>, mask: &MaskUsed| {
         let score = scorer.score(v);
         Removal {
+            mask: Some(mask.clone()),
             fill: fill.to_string(),
             score,
             drop: scorer.score(&clean) - score,
@@ -47,7 +59,7 @@ pub fn removals(model: &Model, card: Option<&FeedCard>, input: &Input, reading: 
             probability_drop: (scorer.probability(&clean) - scorer.probability(v)) as f64,
         }
     };
-    let mut each: Vec<Removal> = painted.iter().zip(&outs).map(|((f, _), v)| removal(f, v)).collect();
+    let mut each: Vec<Removal> = painted.iter().zip(&outs).zip(&used).map(|(((f, _), v), m)| removal(f, v, m)).collect();
     let all = each.pop();
     Ok(Some(Removals { each, all }))
 }
@@ -77,7 +89,7 @@ pub fn assess_input(
     flag: &FlagSettings,
 ) -> Result<Option<Assessment>> {
     let Input::Picture { picture, .. } = input else { return Ok(None) };
-    let mut regions = find_regions(&picture.luminance(), &finder.for_picture(picture.burned_in_annotation()));
+    let mut regions = find_regions_in(&picture.pixels, &finder.for_picture(picture.burned_in_annotation()));
     regions.extend(drawn);
     Ok(Some(assess(model, card, input, reading, &regions, flag)?))
 }

@@ -7,12 +7,15 @@ use anyhow::{Context, Result};
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
-use super::{FinderSettings, Region, RegionKind, Side, find_regions};
+use super::{FinderSettings, MarkShape, MaskUsed, Region, RegionKind, Side, find_regions_in};
 
 /// One found region as written to `regions.json`.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct FoundRegion {
     pub kind: RegionKind,
+    /// Burned-in marks: the shape the finder saw.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mark: Option<MarkShape>,
     pub label: String,
     pub detail: String,
     #[serde(rename = "box")]
@@ -24,6 +27,9 @@ pub struct FoundRegion {
     pub sides: Vec<Side>,
     /// File name of the mask PNG (white = region), relative to `regions.json`.
     pub mask: Option<String>,
+    /// The mask a removal would paint out: the region grown to the whole mark.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub removal_mask: Option<MaskUsed>,
 }
 
 /// The content of `regions.json`.
@@ -59,6 +65,8 @@ pub fn regions_file(image: &Path, luma: &Array2<f32>, regions: &[Region], settin
             .iter()
             .map(|r| FoundRegion {
                 kind: r.kind,
+                mark: r.mark,
+                removal_mask: r.grown.as_ref().map(|g| g.used.clone()),
                 label: r.label(),
                 detail: r.detail.clone(),
                 bbox: r.bbox,
@@ -83,8 +91,9 @@ fn write_mask(path: &Path, mask: &Array2<bool>) -> Result<()> {
 /// Finds regions in `image` and writes the mask PNGs and `regions.json` into `dir` (created if
 /// missing). Returns what `regions.json` holds.
 pub fn write_regions(image: &Path, dir: &Path, settings: &FinderSettings) -> Result<RegionsFile> {
-    let luma = load_luminance(image)?;
-    let regions = find_regions(&luma, settings);
+    let picture = crate::feed::Picture::open(image)?;
+    let luma = picture.luminance();
+    let regions = find_regions_in(&picture.pixels, settings);
     std::fs::create_dir_all(dir)
         .with_context(|| format!("cannot create output folder {} (check permissions or choose another --out)", dir.display()))?;
     let mut file = regions_file(image, &luma, &regions, settings);

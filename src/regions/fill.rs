@@ -66,8 +66,9 @@ pub fn paint_out(pixels: &Array3<f32>, mask: &Array2<bool>, fill: Fill) -> Array
     out
 }
 
-/// All `regions` painted out together: the border bands first (edge-carry from the content
-/// inside), then every other region (harmonic, from surroundings that no longer hold a band).
+/// All `regions` painted out together (each by its removal mask, grown when the finder grew
+/// it): the border bands first (edge-carry from the content inside), then every other region
+/// (harmonic, from surroundings that no longer hold a band).
 /// Returns the pixels and the name of what was used.
 pub fn paint_out_all(pixels: &Array3<f32>, regions: &[Region]) -> (Array3<f32>, String) {
     let (h, w, _) = pixels.dim();
@@ -77,7 +78,7 @@ pub fn paint_out_all(pixels: &Array3<f32>, regions: &[Region]) -> (Array3<f32>, 
         let mut mask = Array2::from_elem((h, w), false);
         let mut any = false;
         for r in regions.iter().filter(|r| Fill::for_kind(r.kind) == fill) {
-            mask.zip_mut_with(&r.mask, |m, &x| *m |= x);
+            mask.zip_mut_with(r.removal_mask(), |m, &x| *m |= x);
             any = true;
         }
         if any {

@@ -68,6 +68,10 @@ impl Default for FlagSettings {
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct RegionReport {
     pub kind: RegionKind,
+    /// Burned-in marks: the shape the finder saw (text, glyph, plate-tag, drawn-annotation,
+    /// ruler, sticker).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mark: Option<super::MarkShape>,
     pub label: String,
     #[serde(rename = "box")]
     pub bbox: [usize; 4],
@@ -101,6 +105,9 @@ pub struct Removal {
     pub top_label: Option<String>,
     /// The target's probability at the input minus after painting out.
     pub probability_drop: f64,
+    /// The mask painted out (grown from the found region, see [`super::grow`]).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mask: Option<super::MaskUsed>,
 }
 
 impl Removal {
@@ -208,6 +215,7 @@ pub fn assess_with_removals(
         let removal = removals.map(|x| x.each[i].clone());
         reports.push(RegionReport {
             kind: r.kind,
+            mark: r.mark,
             label: r.label(),
             bbox: r.bbox,
             suspect: counts && (passes(&f, s) || removal_passes(removal.as_ref(), s)),

@@ -17,7 +17,7 @@
 use ndarray::Array2;
 
 use super::grid::{box_mean, components, flat};
-use super::{MarkSettings, Region, RegionKind};
+use super::{MarkSettings, MarkShape, Region, RegionKind};
 
 #[derive(Clone, Debug)]
 struct Glyph {
@@ -288,7 +288,8 @@ fn group(h: usize, w: usize, glyphs: Vec<Glyph>, s: &MarkSettings) -> Vec<Region
             plural = if k == 1 { "" } else { "s" },
             line = if aligned { " on a common line" } else { "" },
         );
-        if let Some(r) = Region::from_mask(RegionKind::BurnedInMark, mask, conf, detail, reason) {
+        if let Some(mut r) = Region::from_mask(RegionKind::BurnedInMark, mask, conf, detail, reason) {
+            r.mark = Some(if detail == "text-like tag" { MarkShape::Text } else { MarkShape::Glyph });
             out.push(r);
         }
     }

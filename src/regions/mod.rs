@@ -12,26 +12,32 @@
 mod border;
 mod command;
 pub mod drawn;
+mod field;
 mod fill;
 pub mod figures;
 pub mod flag;
 mod grid;
+pub mod grow;
 mod mark;
+mod measure;
 mod repeated;
+mod ruler;
 mod settings;
 
-use ndarray::Array2;
+use ndarray::{Array2, Array3, Axis};
 use serde::{Deserialize, Serialize};
 
 pub use border::find_border_bands;
 pub use command::{FoundRegion, RegionsFile, load_luminance, regions_file, write_regions};
 pub use drawn::{DrawnFile, DrawnShape, Shape, load_drawn, save_drawn};
 pub use figures::Figures;
+pub use field::find_field_marks;
 pub use fill::{Fill, paint_out, paint_out_all};
+pub use grow::{Grown, MaskUsed, grow_mask};
 pub use flag::{Assessment, Evidence, FlagSettings, RegionReport, Removal, Removals, assess, assess_regions, assess_with_removals};
 pub use mark::find_burned_in_marks;
 pub use repeated::find_repeated_patches;
-pub use settings::{BorderSettings, FinderSettings, MarkSettings, RepeatedPatchSettings};
+pub use settings::{BorderSettings, FieldMarkSettings, FinderSettings, GrowSettings, MarkSettings, RepeatedPatchSettings};
 
 /// What a region is.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
@@ -65,6 +71,37 @@ impl RegionKind {
             RegionKind::BurnedInMark => "burned-in-mark",
             RegionKind::RepeatedPatch => "repeated-patch",
             RegionKind::DrawnRegion => "drawn-region",
+        }
+    }
+}
+
+/// What shape of burned-in mark a finder saw (`mark` in `regions.json` and `reading.json`).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum MarkShape {
+    /// Several glyphs on a common line, as a digitiser writes a tag.
+    Text,
+    /// A lone letter or symbol, or a few glyphs with no plate (a side marker).
+    Glyph,
+    /// Text or glyphs on a flat plate of their own: growth took in a flat band around them.
+    PlateTag,
+    /// A reader's marking drawn on the image: a ring, a line, an arrow, a cross.
+    DrawnAnnotation,
+    /// Evenly spaced ticks along a line.
+    Ruler,
+    /// A compact flat blob: a sticker, a label, a pen mark.
+    Sticker,
+}
+
+impl MarkShape {
+    pub fn name(self) -> &'static str {
+        match self {
+            MarkShape::Text => "text",
+            MarkShape::Glyph => "glyph",
+            MarkShape::PlateTag => "plate tag",
+            MarkShape::DrawnAnnotation => "drawn annotation",
+            MarkShape::Ruler => "ruler",
+            MarkShape::Sticker => "sticker",
         }
     }
 }
@@ -107,8 +144,13 @@ pub struct Region {
     /// Border bands: the sides the band lies on. Empty for other kinds.
     pub sides: Vec<Side>,
     /// Sub-kind or a person's label: "frame", "padding", "collimation edge", "flat margin",
-    /// "text-like tag", "symbol", or whatever a drawn region was called.
+    /// "text-like tag", "symbol", "ring", or whatever a drawn region was called.
     pub detail: String,
+    /// Burned-in marks: the shape the finder saw. `None` for other kinds.
+    pub mark: Option<MarkShape>,
+    /// The mask a removal paints out, grown from `mask` to the whole mark ([`grow`]); `None`
+    /// when it was not grown (drawn regions: a person's outline is used as drawn).
+    pub grown: Option<Grown>,
 }
 
 impl Region {
@@ -129,7 +171,22 @@ impl Region {
             reason: reason.into(),
             sides: Vec::new(),
             detail: detail.into(),
+            mark: None,
+            grown: None,
         })
+    }
+
+    /// The mask a removal paints out: the grown one when there is one.
+    pub fn removal_mask(&self) -> &Array2<bool> {
+        self.grown.as_ref().map_or(&self.mask, |g| &g.mask)
+    }
+
+    /// What [`Region::removal_mask`] holds, for the record.
+    pub fn mask_used(&self) -> MaskUsed {
+        match &self.grown {
+            Some(g) => g.used.clone(),
+            None => grow::union_used(&self.mask, &[]),
+        }
     }
 
     /// Short label for tables and file names, e.g. "border band (frame: top, bottom)".
@@ -196,19 +253,71 @@ pub fn mask_iou(a: &Array2<bool>, b: &Array2<bool>) -> f64 {
     if union == 0 { 0.0 } else { inter as f64 / union as f64 }
 }
 
-/// Runs the single-image finders: border bands first, then burned-in marks outside the bands
-/// (a frame line is sharp and extreme too, and would otherwise be taken for a stroke).
+/// Runs the single-image finders on a luminance image (H×W, 0..1); see [`find_regions_in`].
 pub fn find_regions(image: &Array2<f32>, settings: &FinderSettings) -> Vec<Region> {
-    let mut out = Vec::new();
+    find_regions_in(&image.view().insert_axis(Axis(2)).to_owned(), settings)
+}
+
+/// Runs the single-image finders on a picture's pixels (H×W×C, 0..1; colour pictures are also
+/// searched for saturated marks): border bands first, then (when on) the field's other marks
+/// outside the bands, then text tags outside both (a frame line is sharp and extreme too, and
+/// would otherwise be taken for a stroke). Each found region's removal mask is grown
+/// ([`grow`]) before the next finder looks.
+pub fn find_regions_in(pixels: &Array3<f32>, settings: &FinderSettings) -> Vec<Region> {
+    let image = crate::feed::luminance(pixels);
+    let mut out: Vec<Region> = Vec::new();
+    // Each finder looks outside the grown masks of the regions found before it.
+    let grown = |found: &mut [Region]| {
+        for r in found.iter_mut() {
+            let g = grow_mask(pixels, &r.mask, &settings.grow);
+            if r.mark.is_some_and(|m| matches!(m, MarkShape::Text | MarkShape::Glyph)) && on_plate(&image, r, &g) {
+                r.mark = Some(MarkShape::PlateTag);
+            }
+            r.grown = Some(g);
+        }
+    };
+    let exclude = |found: &[Region]| {
+        let mut ex = Array2::from_elem(image.dim(), false);
+        for r in found {
+            ex.zip_mut_with(r.removal_mask(), |e, &m| *e |= m);
+        }
+        ex
+    };
     if settings.border.enabled {
-        out.extend(find_border_bands(image, &settings.border));
+        let mut bands = find_border_bands(&image, &settings.border);
+        grown(&mut bands);
+        out.extend(bands);
+    }
+    // The field's marks before the text tags when they are on: a ruler's separate ticks would
+    // otherwise pass as letters on a line.
+    if settings.field_marks.enabled {
+        let mut marks = find_field_marks(pixels, &image, Some(&exclude(&out)), &settings.field_marks);
+        grown(&mut marks);
+        out.extend(marks);
     }
     if settings.mark.enabled {
-        let mut exclude = Array2::from_elem(image.dim(), false);
-        for r in &out {
-            exclude.zip_mut_with(&r.mask, |e, &m| *e |= m);
-        }
-        out.extend(find_burned_in_marks(image, Some(&exclude), &settings.mark));
+        let mut marks = find_burned_in_marks(&image, Some(&exclude(&out)), &settings.mark);
+        grown(&mut marks);
+        out.extend(marks);
     }
     out
+}
+
+/// Text sits on a plate of its own when the outermost pixels of its found box (one pixel beyond
+/// the strokes) are flat (robust spread at most 0.05 of 0..1) and differ from the pixels just
+/// outside the grown mask by at least 0.2: the strokes are not on the image's own ground.
+fn on_plate(image: &Array2<f32>, r: &Region, g: &Grown) -> bool {
+    let b = r.bbox;
+    let edge: Vec<f32> = image
+        .indexed_iter()
+        .filter(|((y, x), _)| (b[1]..b[3]).contains(y) && (b[0]..b[2]).contains(x) && (*y == b[1] || *y + 1 == b[3] || *x == b[0] || *x + 1 == b[2]))
+        .map(|(_, v)| *v)
+        .collect();
+    let (h, w) = image.dim();
+    let around = grid::dilate(h, w, &g.mask.iter().copied().collect::<Vec<_>>(), 2);
+    let outside: Vec<f32> = image.iter().zip(around.iter().zip(g.mask.iter())).filter(|(_, (a, m))| **a && !**m).map(|(v, _)| *v).collect();
+    !edge.is_empty()
+        && !outside.is_empty()
+        && measure::robust_spread(&edge) <= 0.05
+        && (grid::median(&edge) - grid::median(&outside)).abs() >= 0.2
 }

@@ -14,6 +14,10 @@ use serde::{Deserialize, Serialize};
 pub struct FinderSettings {
     pub border: BorderSettings,
     pub mark: MarkSettings,
+    /// Bare glyphs, drawn annotations, rulers, stickers and pen marks.
+    pub field_marks: FieldMarkSettings,
+    /// How a found region's mask is grown for removal.
+    pub grow: GrowSettings,
     pub repeated_patch: RepeatedPatchSettings,
 }
 
@@ -181,5 +185,169 @@ impl Default for RepeatedPatchSettings {
             max_part_fraction: 0.15,
             min_area: 6,
         }
+    }
+}
+
+/// The finders of the field's other marks ([`super::field`], [`super::ruler`]): bare glyphs and
+/// letters with no plate, drawn annotations (rings, lines, arrows, crosses), rulers (periodic
+/// ticks) and stickers or pen marks (compact flat blobs). Every test is on a generic property of
+/// a mark drawn over an image: it stands out from the pixels right around it (contrast and
+/// isolation), it ends abruptly (fade), and its strokes have a width (distance transform).
+///
+/// These numbers are a starting point, not a calibration. They were set on marks drawn by the
+/// tests over synthetic texture (tests/suite/regions_marks.rs) and checked against the clean
+/// scikit-image and pydicom photographs and the demo's mark-free sites, where they must find
+/// nothing; those two checks are regression checks, not evidence that the numbers are right for
+/// other images.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct FieldMarkSettings {
+    /// Off by default for now: on the clean photographs they still find marks that are not
+    /// there (tests/suite/regions_marks.rs prints how many); `{"field_marks": {"enabled": true}}`
+    /// turns them on.
+    pub enabled: bool,
+    /// Widest stroke (pixels) a glyph, annotation or ruler tick may have: the top-hat that
+    /// lifts strokes off their background uses a square of this side plus one, so wider
+    /// structures (anatomy, shading) go to zero. Default 8.
+    pub max_stroke_px: usize,
+    /// Smallest rise of a stroke above its surroundings (median inside minus median of the
+    /// ring 3..6 px out), as a share of the image's value range. Default 0.25: a mark is drawn
+    /// to be seen, and a quarter of the range is what the existing tag finder asks too.
+    pub min_contrast: f32,
+    /// Stroke pixels lie within this share of the value range of the image's brightest (or
+    /// darkest) value: marks are drawn to be seen, in the brightest or darkest ink the picture
+    /// holds; a photograph's own thin structures mostly are not. Default 0.25 (the tag finder
+    /// uses 0.2 on crisp pixels; 0.25 leaves room for an anti-aliased stroke's core).
+    pub extreme_margin: f32,
+    /// The same for the saturation channel (max − min of R, G, B; absolute, 0..1): a coloured
+    /// pen line or ring on grey or differently coloured ground. Default 0.2.
+    pub min_colour_contrast: f32,
+    /// ... whose pixels are at least this saturated. Default 0.4.
+    pub min_saturation: f32,
+    /// The rise must be at least this many times the robust spread of the surroundings ring:
+    /// a mark is drawn over the image and stands out from whatever lies under it; a bright
+    /// grain of gravel or a blade of grass does not stand out from its like neighbours. Default 4.
+    pub min_isolation: f32,
+    /// At most this share of the rise may remain 2 px outside the stroke: rendered pixels end
+    /// within their anti-aliased rim, highlights and anatomy fade. Default 0.25.
+    pub max_fade: f32,
+    /// The brighter half of a mark's pixels (its core, drawn in one ink) spreads by at most
+    /// this (robust spread, in units of the value range; absolute for saturation). Default 0.03
+    /// (about 8 grey levels of 255): a photograph's highlights, mortar lines and coin reliefs
+    /// vary along their length; a clipped highlight may not, and is the known weak spot.
+    pub max_core_spread: f32,
+    /// Smallest glyph or sticker (longer box side, pixels). Default 5.
+    pub min_px: usize,
+    /// Largest glyph, as a share of the image's shorter side. Default 0.2.
+    pub glyph_max_fraction: f32,
+    /// A glyph's stroke is at most this share of its size (letters are stroked, a filled disc
+    /// has a stroke as wide as itself). Default 0.35.
+    pub glyph_max_thinness: f32,
+    /// Glyphs join one region when the gap between their boxes is at most this many glyph
+    /// sizes (the letters of one marker). Default 1.2.
+    pub group_gap: f32,
+    /// A channel with more standing-out components than this (of at least `min_px`) is texture,
+    /// not marks, and gives no glyphs or annotations (rulers, found first, are kept). Default 12.
+    pub max_marks_per_channel: usize,
+    /// Drawn annotations are at least this long (longer box side, pixels). Default 16.
+    pub annotation_min_px: usize,
+    /// ... and stroked at most this share of their size: a reader's line or ring is thin next
+    /// to its length (the pixel font's letters are 1/7, so they stay glyphs). Default 0.1.
+    pub annotation_max_thinness: f32,
+    /// An annotation whose largest enclosed hole is at least this share of its box is a ring.
+    /// Default 0.3.
+    pub ring_min_hole: f32,
+    /// Largest annotation, ruler or sticker, as a share of the image's shorter side: a ring
+    /// around the whole picture is the picture's own outline (the Shepp-Logan skull). Default 0.6.
+    pub max_size_fraction: f32,
+    /// Rulers: at least this many ticks ... Default 5.
+    pub ruler_min_ticks: usize,
+    /// ... on a run at least this long (pixels) ... Default 24.
+    pub ruler_min_len: usize,
+    /// ... spaced evenly: every gap within this share of the median gap. Default 0.2.
+    pub ruler_spacing_tolerance: f32,
+    /// Separate ticks (no baseline) join one ruler when their boxes are at most this many
+    /// pixels apart. Default 6.
+    pub ruler_gap_px: usize,
+    /// Stickers and pen blobs: the largest, as a share of the image's shorter side (also the
+    /// top-hat that lifts them off their background). Default 0.3.
+    pub sticker_max_fraction: f32,
+    /// ... filled: area at least this share of the box (a disc is 0.79). Default 0.5.
+    pub sticker_min_fill: f32,
+    /// ... flat inside: robust spread inside at most this share of the rise (a printed or
+    /// inked blob is one colour; a coin, a stone or a star is shaded). Default 0.12.
+    pub sticker_max_inner_spread: f32,
+    /// ... and, for bright or dark blobs on a grey image, within this share of the value range
+    /// of the image's extreme (lead markers and labels are the brightest or darkest thing in a
+    /// radiograph). Default 0.15.
+    pub sticker_extreme_margin: f32,
+}
+
+impl Default for FieldMarkSettings {
+    fn default() -> Self {
+        FieldMarkSettings {
+            enabled: false,
+            max_stroke_px: 8,
+            min_contrast: 0.25,
+            extreme_margin: 0.25,
+            min_colour_contrast: 0.2,
+            min_saturation: 0.4,
+            min_isolation: 4.0,
+            max_fade: 0.25,
+            max_core_spread: 0.03,
+            min_px: 5,
+            glyph_max_fraction: 0.2,
+            glyph_max_thinness: 0.35,
+            group_gap: 1.2,
+            max_marks_per_channel: 12,
+            annotation_min_px: 16,
+            annotation_max_thinness: 0.1,
+            ring_min_hole: 0.3,
+            max_size_fraction: 0.6,
+            ruler_min_ticks: 5,
+            ruler_min_len: 24,
+            ruler_spacing_tolerance: 0.2,
+            ruler_gap_px: 6,
+            sticker_max_fraction: 0.3,
+            sticker_min_fill: 0.5,
+            sticker_max_inner_spread: 0.12,
+            sticker_extreme_margin: 0.15,
+        }
+    }
+}
+
+/// Growing a found region's mask for removal ([`super::grow`]): outward from the region, one
+/// pixel ring at a time, taking the ring's pixels that do not look like the surroundings (a
+/// plate's edge, an anti-aliased rim), until the ring looks like the surroundings or the limit
+/// is reached. A fill then starts from pixels the mark never touched.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct GrowSettings {
+    pub enabled: bool,
+    /// Growth stops after this many rings (pixels) whatever the rings look like. Default 8:
+    /// a plate or rim a few pixels wider than the found strokes is covered; growth never runs
+    /// far into the anatomy next to a mark.
+    pub max_px: usize,
+    /// The surroundings are the ring this many pixels wide just beyond the farthest growth
+    /// (`max_px` + 2 px from the found region). Default 4.
+    pub outer_width_px: usize,
+    /// A ring pixel is unlike the surroundings when it differs from their median by more than
+    /// this many robust spreads ... Default 3 (common practice for an outlier under a
+    /// Gaussian-like spread).
+    pub tolerance: f32,
+    /// ... and by more than this (0..1 units), so flat ground does not make every tiny
+    /// difference an outlier. Default 0.03 (about 8 grey levels of 255).
+    pub min_step: f32,
+    /// The ring looks like the surroundings when at most this share of its pixels are unlike
+    /// them (texture has a tail; a plate's side or a rim does not hide in it). Default 0.05.
+    pub noise_share: f32,
+    /// The grown mask is widened by this many pixels at the end, so the fill's boundary lies
+    /// beyond a faint rim too small to count as unlike. Default 1.
+    pub margin_px: usize,
+}
+
+impl Default for GrowSettings {
+    fn default() -> Self {
+        GrowSettings { enabled: true, max_px: 8, outer_width_px: 4, tolerance: 3.0, min_step: 0.03, noise_share: 0.05, margin_px: 1 }
     }
 }

@@ -34,7 +34,7 @@ use crate::control::Control;
 use crate::feed::FeedCard;
 use crate::methods::{self, Baseline, Input, Reading, Request, Rule, Scorer, TargetSpec};
 use crate::model::{Model, is_cancelled};
-use crate::regions::{FinderSettings, Region, find_regions};
+use crate::regions::{FinderSettings, Region, find_regions_in};
 
 use convergence::{Convergence, ConvergenceSettings};
 use curves::{CurveSettings, Curves};
@@ -334,7 +334,7 @@ pub fn run(
     clock(Phase::Reading, t);
     let case = Case::new(model, card, input, request, &reading)?;
     let regions = match input {
-        Input::Picture { picture, .. } => find_regions(&picture.luminance(), &settings.finder.for_picture(picture.burned_in_annotation())),
+        Input::Picture { picture, .. } => find_regions_in(&picture.pixels, &settings.finder.for_picture(picture.burned_in_annotation())),
         Input::Tensor { .. } => vec![],
     };
     // Players first: a grid that does not fit the image is the user's to fix, before any work.

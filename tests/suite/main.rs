@@ -45,6 +45,8 @@ mod regions_e2e;
 mod regions_figures;
 mod regions_finders;
 mod regions_flag;
+mod regions_grow;
+mod regions_marks;
 mod sweep;
 mod transformers;
 mod window_values;
