@@ -9,11 +9,13 @@ use super::{Input, Reading, Scorer, top_index};
 use crate::control::Control;
 use crate::feed::FeedCard;
 use crate::model::Model;
+use crate::regions::hotspot::HotspotRemoval;
 use crate::regions::{Assessment, Fill, FlagSettings, Hotspot, Removal, find_hotspots, hotspot, paint_out};
 
-/// What painting each hotspot's removal mask out does to the reading's target, one per hotspot
-/// in order. Empty for a tensor input (no picture to paint) or no hotspots.
-pub fn hotspot_removals(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading, hotspots: &[Hotspot]) -> Result<Vec<Removal>> {
+/// What painting each hotspot out does to the reading's target, one per hotspot in order: its
+/// removal mask, and for a hotspot that looks like a mark and has strokes, the strokes alone.
+/// Empty for a tensor input (no picture to paint) or no hotspots.
+pub fn hotspot_removals(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading, hotspots: &[Hotspot]) -> Result<Vec<HotspotRemoval>> {
     let Input::Picture { picture, feeder } = input else { return Ok(vec![]) };
     if hotspots.is_empty() {
         return Ok(vec![]);
@@ -25,21 +27,35 @@ pub fn hotspot_removals(model: &Model, card: Option<&FeedCard>, input: &Input, r
     }
     let scorer = Scorer::new(model, card, reading.score_kind, reading.target.index)?;
     let fill = Fill::Harmonic;
-    let tensors = hotspots.iter().map(|h| feeder.tensor(&paint_out(&picture.pixels, &h.removal_mask, fill))).collect::<Result<Vec<_>>>()?;
+    // The masks to paint: each hotspot's, then the strokes of those that look like marks.
+    let mut masks: Vec<&ndarray::Array2<bool>> = hotspots.iter().map(|h| &h.removal_mask).collect();
+    let strokes: Vec<Option<usize>> = hotspots
+        .iter()
+        .map(|h| match (&h.stroke_mask, h.looks_like_mark) {
+            (Some(m), true) => {
+                masks.push(m);
+                Some(masks.len() - 1)
+            }
+            _ => None,
+        })
+        .collect();
+    let tensors = masks.iter().map(|m| feeder.tensor(&paint_out(&picture.pixels, m, fill))).collect::<Result<Vec<_>>>()?;
     let clean = Array1::from(reading.scores.clone());
     let outs = model.forward_many(&tensors, scorer.tap, &Control::new())?;
-    Ok(outs
+    let removal = |v: &Array1<f32>| {
+        let score = scorer.score(v);
+        Removal {
+            fill: fill.name().to_string(),
+            score,
+            drop: scorer.score(&clean) - score,
+            top: top_index(v),
+            probability_drop: (scorer.probability(&clean) - scorer.probability(v)) as f64,
+        }
+    };
+    Ok(strokes
         .iter()
-        .map(|v| {
-            let score = scorer.score(v);
-            Removal {
-                fill: fill.name().to_string(),
-                score,
-                drop: scorer.score(&clean) - score,
-                top: top_index(v),
-                probability_drop: (scorer.probability(&clean) - scorer.probability(v)) as f64,
-            }
-        })
+        .enumerate()
+        .map(|(i, s)| HotspotRemoval { whole: removal(&outs[i]), strokes: s.map(|j| removal(&outs[j])) })
         .collect())
 }
 

@@ -315,6 +315,12 @@ fn measure(model: &Model, card: &FeedCard, images: &[Array2<f32>]) -> Rates {
         .par_iter()
         .map(|img| {
             let a = read_default(model, card, img);
+            if std::env::var_os("SPURION_HOTSPOT_DEBUG").is_some() {
+                eprintln!("suspect {} {:?}: {}", a.suspect, a.suspect_evidence, a.reason);
+                for h in &a.hotspots {
+                    eprintln!("   {:?} share {:.2} ml {:.2} {:?} {:?} drop {:?}", h.bbox, h.share, h.mark_likeness, h.role, h.descriptor, h.removal.as_ref().map(|r| r.probability_drop));
+                }
+            }
             let flipped = a.hotspots.iter().any(|h| h.suspect && h.flipped == Some(true));
             (a.suspect, a.suspect_evidence.contains(&Evidence::Hotspot), flipped)
         })

@@ -113,18 +113,20 @@ impl<'a> Context<'a> {
         Context { image, lo, hi, range, grad: morph::gradient(image), foreground: foreground(image) }
     }
 
-    /// The descriptor of a hotspot `mask` with box `b`, and the ink around it (on the whole
-    /// grid, true only near the hotspot).
-    pub fn describe(&self, mask: &Array2<bool>, b: [usize; 4]) -> (Descriptor, Array2<bool>) {
+    /// The descriptor of a hotspot `mask` with box `b`; the ink around it and the strokes
+    /// among that ink (both on the whole grid, true only near the hotspot).
+    pub fn describe(&self, mask: &Array2<bool>, b: [usize; 4]) -> (Descriptor, Array2<bool>, Array2<bool>) {
         let (h, w) = mask.dim();
         let side = h.min(w) as f32;
         let area = mask.iter().filter(|&&m| m).count();
-        // Ink: within the box grown by half its size (at least 3 pixels), far from the median
-        // of the ring just outside the hotspot.
-        let grow = ((b[2] - b[0]).max(b[3] - b[1]).div_ceil(2)).max(3);
+        // Ink: within the box grown by its size (at least an eighth of the shorter side), on the
+        // hotspot's side of the median of the ring just outside it (brighter or darker, as most
+        // of the hotspot's own standing-out pixels are), by at least a fifth of the range.
+        let size = (b[2] - b[0]).max(b[3] - b[1]);
+        let grow = size.max((0.12 * side).round() as usize).max(3);
         let win = [b[0].saturating_sub(grow), b[1].saturating_sub(grow), (b[2] + grow).min(w), (b[3] + grow).min(h)];
         let near = morph::dilate(mask, 2);
-        let far = morph::dilate(mask, 2 + grow.min(6));
+        let far = morph::dilate(mask, 2 + (size / 2).clamp(3, 6));
         let mut ring: Vec<f32> = vec![];
         for y in win[1]..win[3] {
             for x in win[0]..win[2] {
@@ -134,12 +136,24 @@ impl<'a> Context<'a> {
             }
         }
         let bg = morph::quantile(&mut ring, 0.5).unwrap_or_else(|| self.image.mean().unwrap_or(0.0));
+        let step = 0.2 * self.range;
+        let (mut up, mut down) = (0usize, 0usize);
+        for (p, &m) in near.indexed_iter() {
+            if m {
+                let d = self.image[p] - bg;
+                up += (d >= step) as usize;
+                down += (d <= -step) as usize;
+            }
+        }
+        let bright = up >= down;
+        let stands_out = |v: f32| if bright { v - bg >= step } else { bg - v >= step };
         let mut ink = Array2::from_elem((h, w), false);
         for y in win[1]..win[3] {
             for x in win[0]..win[2] {
-                ink[[y, x]] = (self.image[[y, x]] - bg).abs() >= 0.2 * self.range;
+                ink[[y, x]] = stands_out(self.image[[y, x]]);
             }
         }
+        let strokes = self.strokes(win, bright, step);
         // The hotspot's own ink: what lies in it or right next to it.
         let own: Vec<(usize, usize)> = ink.indexed_iter().filter(|(p, i)| **i && near[*p]).map(|(p, _)| p).collect();
         let margin = 0.08 * (self.hi - self.lo);
@@ -201,7 +215,25 @@ impl<'a> Context<'a> {
             thinness,
             area_fraction: area as f64 / (h * w) as f64,
         };
-        (d, ink)
+        (d, ink, strokes)
+    }
+
+    /// The strokes in window `win`: pixels that a grey opening (bright) or closing (dark) by a
+    /// square of side 2r+1 (r = 3 % of the shorter side, at least 2) takes away by at least
+    /// `step` — the top-hat transform, which keeps what is thinner than the square and leaves
+    /// out smooth or wide structures (common practice in mathematical morphology).
+    fn strokes(&self, win: [usize; 4], bright: bool, step: f32) -> Array2<bool> {
+        let (h, w) = self.image.dim();
+        let r = ((0.03 * h.min(w) as f32).round() as usize).max(2);
+        let crop = self.image.slice(ndarray::s![win[1]..win[3], win[0]..win[2]]).to_owned();
+        let s = if bright { 1.0 } else { -1.0 };
+        let v = crop.mapv(|x| s * x);
+        let opened = morph::grey_max(&morph::grey_min(&v, r), r);
+        let mut out = Array2::from_elem((h, w), false);
+        for ((y, x), &o) in opened.indexed_iter() {
+            out[[win[1] + y, win[0] + x]] = v[[y, x]] - o >= step;
+        }
+        out
     }
 }
 

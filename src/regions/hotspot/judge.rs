@@ -34,6 +34,14 @@ impl HotspotRole {
     }
 }
 
+/// What painting one hotspot out did: its whole removal mask, and its strokes alone (for a
+/// hotspot that looks like a mark and has strokes).
+#[derive(Clone, Debug, PartialEq)]
+pub struct HotspotRemoval {
+    pub whole: Removal,
+    pub strokes: Option<Removal>,
+}
+
 /// One hotspot as `reading.json`, the sweep's rows and the inspector carry it.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct HotspotReport {
@@ -54,6 +62,11 @@ pub struct HotspotReport {
     /// What painting it out did (absent when no model was asked).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub removal: Option<Removal>,
+    /// What painting its strokes alone out did (a hotspot that looks like a mark and has
+    /// strokes, thin ink a grey opening takes away): a mark drawn over anatomy is suspect only
+    /// when its strokes alone move the score.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub stroke_removal: Option<Removal>,
     /// The top class changed when it was painted out.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub flipped: Option<bool>,
@@ -69,20 +82,25 @@ impl HotspotReport {
 }
 
 /// The reports of `hotspots`, with what painting each out did (`removals`, one per hotspot,
-/// in order; `None` when no model was asked) given the top class at the input.
-pub fn judge(hotspots: &[Hotspot], removals: Option<&[Removal]>, top: usize, s: &FlagSettings) -> Vec<HotspotReport> {
+/// in order; `None` when no model was asked) given the top class at the input. Removal
+/// "matters" when it lowers the target's probability by at least `min_probability_drop`.
+pub fn judge(hotspots: &[Hotspot], removals: Option<&[HotspotRemoval]>, top: usize, s: &FlagSettings) -> Vec<HotspotReport> {
+    let matters = |r: &Removal| r.probability_drop >= s.min_probability_drop;
     hotspots
         .iter()
         .enumerate()
         .map(|(i, h)| {
-            let removal = removals.and_then(|r| r.get(i)).cloned();
-            let matters = removal.as_ref().map(|r| r.probability_drop >= s.min_probability_drop);
-            let role = match (matters, h.looks_like_mark) {
-                (None, _) => HotspotRole::Untested,
-                (Some(true), true) => HotspotRole::SuspectMark,
-                (Some(true), false) => HotspotRole::ModelEvidence,
-                (Some(false), true) => HotspotRole::UnusedMark,
-                (Some(false), false) => HotspotRole::Minor,
+            let r = removals.and_then(|r| r.get(i)).cloned();
+            let role = match &r {
+                None => HotspotRole::Untested,
+                Some(r) => match (matters(&r.whole), h.looks_like_mark, r.strokes.as_ref().map(matters)) {
+                    // The strokes alone leave the answer: what matters lies under them.
+                    (true, true, Some(false)) => HotspotRole::ModelEvidence,
+                    (true, true, _) => HotspotRole::SuspectMark,
+                    (true, false, _) => HotspotRole::ModelEvidence,
+                    (false, true, _) => HotspotRole::UnusedMark,
+                    (false, false, _) => HotspotRole::Minor,
+                },
             };
             let (hh, ww) = h.mask.dim();
             HotspotReport {
@@ -95,8 +113,9 @@ pub fn judge(hotspots: &[Hotspot], removals: Option<&[Removal]>, top: usize, s: 
                 looks_like_mark: h.looks_like_mark,
                 appearance: h.appearance.clone(),
                 removal_area: h.removal_mask.iter().filter(|&&m| m).count(),
-                flipped: removal.as_ref().map(|r| r.top != top),
-                removal,
+                flipped: r.as_ref().map(|r| r.whole.top != top),
+                stroke_removal: r.as_ref().and_then(|r| r.strokes.clone()),
+                removal: r.map(|r| r.whole),
                 role,
                 suspect: role == HotspotRole::SuspectMark,
             }
@@ -129,6 +148,10 @@ pub fn add_hotspot_evidence(a: &mut Assessment, reports: Vec<HotspotReport>, s: 
             s.min_probability_drop,
             r.top
         );
+        let said = match &h.stroke_removal {
+            Some(k) => format!("{said}; its strokes alone, {:.2}", k.probability_drop),
+            None => said,
+        };
         a.reason = if a.suspect { format!("{}; and {said}", a.reason) } else { said };
         a.suspect = true;
         a.suspect_evidence.push(Evidence::Hotspot);

@@ -30,7 +30,7 @@ use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
 pub use describe::{APPEARANCE_LEN, APPEARANCE_SIDE, Descriptor, Place, appearance};
-pub use judge::{HotspotReport, HotspotRole, add_hotspot_evidence, judge};
+pub use judge::{HotspotRemoval, HotspotReport, HotspotRole, add_hotspot_evidence, judge};
 pub use morph::{close, components, distance, otsu};
 
 use crate::sign::Sign;
@@ -99,6 +99,10 @@ pub struct Hotspot {
     pub mask: Array2<bool>,
     /// What removal paints out: `mask`, the ink connected to it nearby, grown a little.
     pub removal_mask: Array2<bool>,
+    /// The strokes alone (thin ink that a grey opening takes away) joined to the hotspot, grown
+    /// a little; `None` when there are none. Painting only these out tells a mark drawn over
+    /// anatomy from the anatomy under it.
+    pub stroke_mask: Option<Array2<bool>>,
     /// Share of the map's part inside `mask`, and that over the mask's area share (lift).
     pub share: f64,
     pub lift: f64,
@@ -142,9 +146,14 @@ pub fn find_hotspots(image: &Array2<f32>, map: &Array2<f32>, part: Sign, s: &Hot
     let mut positive: Vec<f32> = smooth.iter().copied().filter(|&v| v > 0.0).collect();
     let q = 1.0 - s.top_fraction * (h * w) as f64 / positive.len().max(1) as f64;
     let level = morph::quantile(&mut positive, q.max(0.0)).unwrap_or(peak).max(s.min_peak_fraction * peak);
-    // Values within rounding of the level count as reaching it, so a flat top does not break
-    // into specks.
-    let top = smooth.mapv(|v| v > 0.0 && v >= level * (1.0 - 1e-4));
+    // Hysteresis, as edge detectors link edges (common practice): the top is every part above
+    // a lower level (three times the share, and at least half the peak fraction) that reaches
+    // the level, so a mark lit unevenly stays whole. Values within rounding of a level count as
+    // reaching it, so a flat top does not break into specks.
+    let q_low = 1.0 - 3.0 * s.top_fraction * (h * w) as f64 / positive.len().max(1) as f64;
+    let low = morph::quantile(&mut positive, q_low.max(0.0)).unwrap_or(level).max(0.5 * s.min_peak_fraction * peak).min(level);
+    let high = smooth.mapv(|v| v > 0.0 && v >= level * (1.0 - 1e-4));
+    let top = flood(&high, &smooth.mapv(|v| v > 0.0 && v >= low * (1.0 - 1e-4)));
     let close_r = px(s.close_fraction, 1.0).round() as usize;
     let closed = morph::close(&top, close_r);
     let limits = Limits {
@@ -171,14 +180,20 @@ pub fn find_hotspots(image: &Array2<f32>, map: &Array2<f32>, part: Sign, s: &Hot
             }
             let bbox = super::mask_bbox(&mask)?;
             let lift = share / (pix.len() as f64 / (h * w) as f64);
-            let (descriptor, ink) = ctx.describe(&mask, bbox);
-            let removal_mask = morph::dilate(&ink_joined(&mask, &ink), grow);
+            let (descriptor, ink, strokes) = ctx.describe(&mask, bbox);
+            // The ink joined to the hotspot: a map often lights up only part of a mark, and
+            // painting out part of a mark leaves the rest.
+            let removal_mask = morph::dilate(&flood(&mask, &ink), grow);
+            let near = morph::dilate(&mask, 2);
+            let stroke_seeds = Array2::from_shape_fn((h, w), |p| strokes[p] && near[p]);
+            let stroke_mask = stroke_seeds.iter().any(|&m| m).then(|| morph::dilate(&flood(&stroke_seeds, &strokes), grow));
             let mark_likeness = descriptor.mark_likeness();
             Some(Hotspot {
                 bbox,
                 appearance: appearance(image, bbox, &descriptor),
                 mask,
                 removal_mask,
+                stroke_mask,
                 share,
                 lift,
                 looks_like_mark: mark_likeness >= s.min_mark_likeness,
@@ -232,25 +247,20 @@ fn split(smooth: &Array2<f32>, part: Vec<(usize, usize)>, l: &Limits, depth: usi
     }
 }
 
-/// The hotspot and the ink 8-connected to it within its box grown by half its size: a map
-/// often lights up only part of a mark, and painting out part of a mark leaves the rest.
-fn ink_joined(mask: &Array2<bool>, ink: &Array2<bool>) -> Array2<bool> {
-    let (h, w) = mask.dim();
-    let Some(b) = super::mask_bbox(mask) else { return mask.clone() };
-    let (mw, mh) = ((b[2] - b[0]).div_ceil(2), (b[3] - b[1]).div_ceil(2));
-    let (x0, y0, x1, y1) = (b[0].saturating_sub(mw), b[1].saturating_sub(mh), (b[2] + mw).min(w), (b[3] + mh).min(h));
-    let inside = |y: usize, x: usize| (y0..y1).contains(&y) && (x0..x1).contains(&x);
-    let mut out = mask.clone();
-    let mut stack: Vec<(usize, usize)> = mask.indexed_iter().filter(|(_, m)| **m).map(|(p, _)| p).collect();
+/// `seeds` and the pixels of `through` 8-connected to them through `through`.
+fn flood(seeds: &Array2<bool>, through: &Array2<bool>) -> Array2<bool> {
+    let (h, w) = seeds.dim();
+    let mut out = seeds.clone();
+    let mut stack: Vec<(usize, usize)> = seeds.indexed_iter().filter(|(_, m)| **m).map(|(p, _)| p).collect();
     while let Some((y, x)) = stack.pop() {
         for dy in -1isize..=1 {
             for dx in -1isize..=1 {
                 let (ny, nx) = (y as isize + dy, x as isize + dx);
-                if ny < 0 || nx < 0 {
+                if ny < 0 || nx < 0 || ny >= h as isize || nx >= w as isize {
                     continue;
                 }
                 let (ny, nx) = (ny as usize, nx as usize);
-                if inside(ny, nx) && ink[[ny, nx]] && !out[[ny, nx]] {
+                if through[[ny, nx]] && !out[[ny, nx]] {
                     out[[ny, nx]] = true;
                     stack.push((ny, nx));
                 }

@@ -58,6 +58,26 @@ fn separable(a: &Array2<f32>, f: impl Fn(&[f32], &mut [f32])) -> Array2<f32> {
     cols
 }
 
+/// Grey erosion: the minimum over a (2r+1)² square (the image's own pixels only).
+pub fn grey_min(a: &Array2<f32>, r: usize) -> Array2<f32> {
+    separable(a, |line, out| {
+        let n = line.len();
+        for (i, o) in out.iter_mut().enumerate() {
+            *o = line[i.saturating_sub(r)..(i + r + 1).min(n)].iter().copied().fold(f32::INFINITY, f32::min);
+        }
+    })
+}
+
+/// Grey dilation: the maximum over a (2r+1)² square (the image's own pixels only).
+pub fn grey_max(a: &Array2<f32>, r: usize) -> Array2<f32> {
+    separable(a, |line, out| {
+        let n = line.len();
+        for (i, o) in out.iter_mut().enumerate() {
+            *o = line[i.saturating_sub(r)..(i + r + 1).min(n)].iter().copied().fold(f32::NEG_INFINITY, f32::max);
+        }
+    })
+}
+
 /// Dilation by a (2r+1)² square.
 pub fn dilate(m: &Array2<bool>, r: usize) -> Array2<bool> {
     if r == 0 {
