@@ -159,6 +159,7 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     write_files(a, &e, &out)?;
     let reading = &e.reading;
     let suspect = e.assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
+    let hotspots = e.assessment.as_ref().map(|a| a.hotspots.clone()).unwrap_or_default();
 
     println!("{} on {} ({}), target {} \"{}\"", reading.method, reading.input, reading.model_file, reading.target.index, reading.target.label);
     if let Some(b) = &reading.baseline {
@@ -211,11 +212,35 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
             g * 100.0
         );
     }
+    for h in &hotspots {
+        println!("{}", hotspot_line(h));
+    }
     if let Some((flag, why)) = suspect {
         println!("{}", if flag { format!("SUSPECT: {why}") } else { format!("not suspect: {why}") });
     }
     println!("wrote {} (reading.json, map.npy, map.png, overlay.png) in {:.0} ms", out.display(), reading.elapsed_ms);
     Ok(())
+}
+
+/// One hotspot for the terminal: where, how much of the map, how mark-like, what removal did.
+fn hotspot_line(h: &crate::regions::HotspotReport) -> String {
+    let d = &h.descriptor;
+    let removal = h
+        .removal
+        .as_ref()
+        .map(|r| format!("; painted out: probability drop {:.2}, top class after {}", r.probability_drop, r.top))
+        .unwrap_or_default();
+    format!(
+        "{}: share {:.2}, mark-likeness {:.2} (saturation {:.2}, edge sharpness {:.2}, thinness {:.2}, outside foreground {:.2}){removal} -> {}",
+        h.label(),
+        h.share,
+        h.mark_likeness,
+        d.saturation,
+        d.edge_sharpness,
+        d.thinness,
+        d.outside_foreground,
+        h.role.name()
+    )
 }
 
 /// The drawn regions a ledger keeps for the image being read, on its grid.

@@ -47,6 +47,7 @@ mod regions_finders;
 mod regions_flag;
 mod regions_grow;
 mod regions_marks;
+mod regions_hotspot;
 mod sweep;
 mod transformers;
 mod window_values;
