@@ -49,7 +49,10 @@ pub fn hotspot_removals(model: &Model, card: Option<&FeedCard>, input: &Input, r
             score,
             drop: scorer.score(&clean) - score,
             top: top_index(v),
+            top_label: card.map(|c| c.label(top_index(v))),
             probability_drop: (scorer.probability(&clean) - scorer.probability(v)) as f64,
+            // A hotspot's own mask is recorded with the hotspot (its box and pixels).
+            mask: None,
         }
     };
     Ok(strokes

@@ -282,7 +282,7 @@ fn the_rule_does_not_fire_on_the_map_of_a_model_with_re_drawn_layers() {
     let (proto, _) = read_proto(model.path()).unwrap();
     let layers = spurion::review::redraw::layers(&proto);
     assert_eq!(layers.len(), 3, "ring filter, blob filter, head");
-    let opts = LoadOptions { input_shape: Some(model.input_shape().to_vec()) };
+    let opts = LoadOptions { input_shape: Some(model.input_shape().to_vec()), ..Default::default() };
     let mut rng = ChaCha8Rng::seed_from_u64(21);
     let images: Vec<Array2<f32>> = (0..6).map(|_| phantom(&mut rng, false, true).0).collect();
     for k in [1, layers.len()] {
