@@ -36,5 +36,6 @@ mod regions_e2e;
 mod regions_figures;
 mod regions_finders;
 mod regions_flag;
+mod regions_repeated;
 mod sweep;
 mod window_values;
