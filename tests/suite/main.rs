@@ -4,6 +4,7 @@
 mod common;
 mod cli_explain;
 mod demo_generator;
+mod demo_marks;
 mod demo_models;
 mod dicom_cli;
 mod dicom_common;
