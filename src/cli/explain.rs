@@ -106,6 +106,7 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
     let map2 = reading.map2d();
     let assessment = methods::assess_input(&model, card.as_ref(), &input, &reading, drawn, &Default::default(), &Default::default())?;
     let suspect = assessment.as_ref().map(|a| (a.suspect, a.reason.clone()));
+    let hotspots = assessment.as_ref().map(|a| a.hotspots.clone()).unwrap_or_default();
     write_json(&out.join("reading.json"), &ReadingFile::new(&reading, assessment).with_input(&input, a.with_patient_data).to_json()?)?;
     crate::feed::write_tensor(&out.join("map.npy"), &reading.map)?;
     crate::render::write_map_png(&out.join("map.png"), &map2, sign)?;
@@ -148,11 +149,35 @@ pub fn run(a: &ExplainArgs) -> Result<()> {
             g * 100.0
         );
     }
+    for h in &hotspots {
+        println!("{}", hotspot_line(h));
+    }
     if let Some((flag, why)) = suspect {
         println!("{}", if flag { format!("SUSPECT: {why}") } else { format!("not suspect: {why}") });
     }
     println!("wrote {} (reading.json, map.npy, map.png, overlay.png) in {:.0} ms", out.display(), reading.elapsed_ms);
     Ok(())
+}
+
+/// One hotspot for the terminal: where, how much of the map, how mark-like, what removal did.
+fn hotspot_line(h: &crate::regions::HotspotReport) -> String {
+    let d = &h.descriptor;
+    let removal = h
+        .removal
+        .as_ref()
+        .map(|r| format!("; painted out: probability drop {:.2}, top class after {}", r.probability_drop, r.top))
+        .unwrap_or_default();
+    format!(
+        "{}: share {:.2}, mark-likeness {:.2} (saturation {:.2}, edge sharpness {:.2}, thinness {:.2}, outside foreground {:.2}){removal} -> {}",
+        h.label(),
+        h.share,
+        h.mark_likeness,
+        d.saturation,
+        d.edge_sharpness,
+        d.thinness,
+        d.outside_foreground,
+        h.role.name()
+    )
 }
 
 /// The drawn regions a ledger keeps for the image being read, on its grid.

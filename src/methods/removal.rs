@@ -52,14 +52,17 @@ pub fn removals(model: &Model, card: Option<&FeedCard>, input: &Input, reading: 
 }
 
 /// A reading's figures on `regions` and the flag, with both kinds of evidence: the map's share
-/// of each region, and what painting each out does.
+/// of each region, and what painting each out does; then the map's hotspots, each painted out
+/// (`super::hotspot`).
 pub fn assess(model: &Model, card: Option<&FeedCard>, input: &Input, reading: &Reading, regions: &[Region], flag: &FlagSettings) -> Result<Assessment> {
     let removals = removals(model, card, input, reading, regions)?;
     let declared = match input {
         Input::Picture { picture, .. } => picture.burned_in_annotation(),
         Input::Tensor { .. } => None,
     };
-    assess_with_removals(&reading.map2d(), regions, removals.as_ref(), declared, flag)
+    let mut a = assess_with_removals(&reading.map2d(), regions, removals.as_ref(), declared, flag)?;
+    super::hotspot::add_hotspots(model, card, input, reading, &mut a, flag)?;
+    Ok(a)
 }
 
 /// For a picture: its regions (the finders', told of the file's own Burned In Annotation, then

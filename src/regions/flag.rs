@@ -15,6 +15,7 @@ use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
 use super::figures::{Figures, figures};
+use super::hotspot::{HotspotReport, HotspotSettings};
 use crate::sign::Sign;
 use super::{FinderSettings, Region, RegionKind, Side, find_regions};
 
@@ -43,6 +44,8 @@ pub struct FlagSettings {
     /// more on the Hillmoor images with a finding, and the control model's by far less
     /// (tests/regions_e2e.rs states the figures).
     pub min_probability_drop: f64,
+    /// Hotspots: compact places of the map tested by removal (see [`super::hotspot`]).
+    pub hotspot: HotspotSettings,
 }
 
 impl Default for FlagSettings {
@@ -60,6 +63,7 @@ impl Default for FlagSettings {
                 RegionKind::DrawnRegion,
             ],
             min_probability_drop: 0.25,
+            hotspot: HotspotSettings::default(),
         }
     }
 }
@@ -117,6 +121,8 @@ pub enum Evidence {
     Removal,
     /// The file itself declares burned-in text: DICOM's Burned In Annotation (0028,0301) is YES.
     BurnedInAnnotation,
+    /// A hotspot of the map that looks like a mark, and whose painting out changes the answer.
+    Hotspot,
 }
 
 impl Evidence {
@@ -125,6 +131,7 @@ impl Evidence {
             Evidence::Attribution => "attribution",
             Evidence::Removal => "removal",
             Evidence::BurnedInAnnotation => "burned-in-annotation",
+            Evidence::Hotspot => "hotspot",
         }
     }
 }
@@ -149,6 +156,9 @@ pub struct Assessment {
     /// Why the reading is or is not suspect, in one sentence (`suspect_reason` in JSON).
     #[serde(rename = "suspect_reason")]
     pub reason: String,
+    /// The map's hotspots, found whatever their shape, each with what painting it out did.
+    #[serde(default)]
+    pub hotspots: Vec<HotspotReport>,
 }
 
 fn passes(f: &Figures, s: &FlagSettings) -> bool {
@@ -247,6 +257,7 @@ pub fn assess_with_removals(
         suspect,
         suspect_evidence: evidence,
         reason,
+        hotspots: vec![],
     })
 }
 

@@ -16,6 +16,7 @@ mod fill;
 pub mod figures;
 pub mod flag;
 mod grid;
+pub mod hotspot;
 mod mark;
 mod repeated;
 mod settings;
@@ -28,6 +29,7 @@ pub use command::{FoundRegion, RegionsFile, load_luminance, regions_file, write_
 pub use drawn::{DrawnFile, DrawnShape, Shape, load_drawn, save_drawn};
 pub use figures::Figures;
 pub use fill::{Fill, paint_out, paint_out_all};
+pub use hotspot::{Hotspot, HotspotReport, HotspotRole, HotspotSettings, find_hotspots};
 pub use flag::{Assessment, Evidence, FlagSettings, RegionReport, Removal, Removals, assess, assess_regions, assess_with_removals};
 pub use mark::find_burned_in_marks;
 pub use repeated::find_repeated_patches;

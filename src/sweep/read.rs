@@ -16,7 +16,7 @@ use crate::control::Control;
 use crate::feed::{FeedCard, OpenOptions, Picture};
 use crate::methods::{self, Input, Request, top_index};
 use crate::model::Model;
-use crate::regions::{DrawnFile, FinderSettings, FlagSettings};
+use crate::regions::{DrawnFile, FinderSettings, FlagSettings, HotspotReport};
 
 /// Everything that decides each image's result besides the image itself.
 pub struct Setup<'a> {
@@ -93,9 +93,24 @@ impl Setup<'_> {
             burned_in_annotation: declared,
             verdict: None,
             seconds: started.elapsed().as_secs_f64(),
+            hotspot_summary: hotspot_summary(&a.hotspots),
+            hotspots: a.hotspots.clone(),
         };
         Ok(Entry { row, grid })
     }
+}
+
+/// The hotspots in words, one per `; `: "corner hotspot at [x0, y0, x1, y1]: suspect mark,
+/// probability drop 0.61".
+pub fn hotspot_summary(hotspots: &[HotspotReport]) -> String {
+    hotspots
+        .iter()
+        .map(|h| {
+            let drop = h.removal.as_ref().map(|r| format!(", probability drop {:.2}", r.probability_drop)).unwrap_or_default();
+            format!("{}: {}{drop}", h.label(), h.role.name())
+        })
+        .collect::<Vec<_>>()
+        .join("; ")
 }
 
 /// The part of an image's cache key that its drawn regions make (empty text when none), so a

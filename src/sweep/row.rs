@@ -2,6 +2,8 @@
 
 use serde::{Deserialize, Serialize};
 
+use crate::regions::HotspotReport;
+
 /// One row per image. Figures about regions are of all found regions together.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct Row {
@@ -39,12 +41,26 @@ pub struct Row {
     pub verdict: Option<String>,
     /// Seconds this image's reading took when it was computed (a cached row keeps them).
     pub seconds: f64,
+    /// The map's hotspots in one line each (`sweep.csv`'s view of `hotspots`): place, box,
+    /// role and the probability drop when painted out, joined by `; `.
+    #[serde(default)]
+    pub hotspot_summary: String,
+    /// The map's hotspots: place, box, descriptor, appearance, mark-likeness, what painting each
+    /// out did. In `sweep.jsonl` and the cache; `sweep.csv` has `hotspot_summary` instead.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub hotspots: Vec<HotspotReport>,
 }
 
 impl Row {
     /// Whether painting the regions out changed the top class.
     pub fn flipped(&self) -> Option<bool> {
         self.top_after_removal.map(|t| t != self.top)
+    }
+
+    /// The row as `sweep.csv` holds it: without the hotspot list (a table cell holds no list;
+    /// `hotspot_summary` says it in words).
+    pub fn for_csv(&self) -> Row {
+        Row { hotspots: vec![], ..self.clone() }
     }
 
     /// The same row with its seconds set to 0, for comparing runs whose timing differs.
@@ -82,6 +98,8 @@ pub(crate) mod tests {
             burned_in_annotation: None,
             verdict: None,
             seconds: 0.0,
+            hotspot_summary: String::new(),
+            hotspots: vec![],
         }
     }
 }

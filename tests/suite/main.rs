@@ -37,6 +37,7 @@ mod regions_e2e;
 mod regions_figures;
 mod regions_finders;
 mod regions_flag;
+mod regions_hotspot;
 mod regions_repeated;
 mod sweep;
 mod window_values;

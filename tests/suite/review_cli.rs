@@ -143,6 +143,8 @@ fn row(path: &str, group: &str, suspect: bool, share: f64, flipped: bool) -> spu
         burned_in_annotation: None,
         verdict: None,
         seconds: 0.1,
+        hotspot_summary: String::new(),
+        hotspots: vec![],
     }
 }
 

@@ -68,6 +68,8 @@ fn row(path: &str, group: &str, suspect: bool, share: Option<f64>, top_after: Op
         burned_in_annotation: None,
         verdict: None,
         seconds: 0.0,
+        hotspot_summary: String::new(),
+        hotspots: vec![],
     }
 }
 

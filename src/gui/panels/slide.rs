@@ -213,6 +213,19 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 super::curate::region_label(&painter, rect, at, format!("{}{}", r.label(), figures.unwrap_or_default()), look::REGION, &mut taken);
             }
         }
+        if app.view.show_regions
+            && let Some(s) = &shown
+        {
+            // The map's hotspots: a plain box each, red when it is suspect evidence.
+            for h in &s.assessment.hotspots {
+                let colour = if h.suspect { look::SIGNAL } else { look::LILAC };
+                let stroke = Stroke::new(1.2, colour);
+                let [x0, y0, x1, y1] = h.bbox.map(|v| v as f32);
+                let c = [[x0, y0], [x1, y0], [x1, y1], [x0, y1]].map(|p| place.to_screen(p));
+                painter.extend((0..4).map(|i| egui::Shape::line_segment([c[i], c[(i + 1) % 4]], stroke)));
+                super::curate::region_label(&painter, rect, c[3], format!("hotspot: {}", h.role.name()), colour, &mut taken);
+            }
+        }
         super::curate::paint_drawn(&painter, rect, app, &place, &path, shown.as_deref(), prepared.regions.len(), &mut taken);
 
         // Hover readout.

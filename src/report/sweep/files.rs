@@ -70,7 +70,7 @@ pub fn write(result: &ShardResult, out: &Path, seconds: f64, thumbs: Option<&Thu
     let groups = summarise(&result.rows, &result.atlas, &result.images_root)?;
     let mut csv = csv::Writer::from_writer(vec![]);
     for r in &result.rows {
-        csv.serialize(r)?;
+        csv.serialize(r.for_csv())?;
     }
     write_atomic(&out.join("sweep.csv"), &csv.into_inner()?)?;
     let mut jsonl = String::new();
