@@ -40,4 +40,5 @@ mod regions_flag;
 mod regions_hotspot;
 mod regions_repeated;
 mod sweep;
+mod sweep_recurring;
 mod window_values;
