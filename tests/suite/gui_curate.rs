@@ -22,7 +22,7 @@ use spurion::regions::RegionKind;
 use crate::gui_inspector::{drive, model_path, root, wait_for};
 
 /// Copies demo images into `dir/images/SITE/NAME`, as a cooperative's folders are laid out.
-fn site_folder(dir: &Path, names: &[&str]) -> PathBuf {
+pub(crate) fn site_folder(dir: &Path, names: &[&str]) -> PathBuf {
     let images = dir.join("images");
     for n in names {
         let site = n.split_once('-').map(|(_, s)| s.trim_end_matches(".png")).unwrap();
@@ -32,7 +32,7 @@ fn site_folder(dir: &Path, names: &[&str]) -> PathBuf {
     images
 }
 
-fn inspector(paths: Vec<PathBuf>, ledger: Option<PathBuf>, config_dir: &Path, method: MethodKind) -> Harness<'static, Inspector> {
+pub(crate) fn inspector(paths: Vec<PathBuf>, ledger: Option<PathBuf>, config_dir: &Path, method: MethodKind) -> Harness<'static, Inspector> {
     let mut app = Inspector::new(
         egui::Context::default(),
         GuiOptions { model: Some(model_path()), paths, ledger },
@@ -48,7 +48,7 @@ fn inspector(paths: Vec<PathBuf>, ledger: Option<PathBuf>, config_dir: &Path, me
 }
 
 /// Steps the UI until `done` holds (errors in the notes are allowed: some tests cause them).
-fn wait_until(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, done: impl Fn(&Inspector) -> bool) {
+pub(crate) fn wait_until(h: &mut Harness<'_, Inspector>, what: &str, secs: u64, done: impl Fn(&Inspector) -> bool) {
     let start = Instant::now();
     while !done(h.state()) {
         h.step();
@@ -73,7 +73,7 @@ fn click(h: &mut Harness<'_, Inspector>, label: &str) {
     h.run_steps(1);
 }
 
-fn notes(a: &Inspector) -> Vec<String> {
+pub(crate) fn notes(a: &Inspector) -> Vec<String> {
     a.notes.iter().map(|n| n.text.clone()).collect()
 }
 
@@ -82,7 +82,7 @@ fn sweep_rows(a: &Inspector) -> usize {
 }
 
 /// Starts the sweep from its tab, as a person would, and waits for its table.
-fn run_sweep(h: &mut Harness<'_, Inspector>, rows: usize) {
+pub(crate) fn run_sweep(h: &mut Harness<'_, Inspector>, rows: usize) {
     if h.state().sweep.tab != spurion::gui::sweep::BottomTab::Sweep {
         click(h, "Sweep");
     }
@@ -94,7 +94,7 @@ fn run_sweep(h: &mut Harness<'_, Inspector>, rows: usize) {
     h.run_steps(2);
 }
 
-fn saved(a: &Inspector) -> bool {
+pub(crate) fn saved(a: &Inspector) -> bool {
     a.ledger.status() == Some(Status::Saved)
 }
 

@@ -16,6 +16,7 @@ mod engine_torch;
 mod engine_whole;
 mod gui_curate;
 mod gui_inspector;
+mod gui_recurring;
 mod gui_review;
 mod ledger;
 mod ledger_disk;
