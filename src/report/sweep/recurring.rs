@@ -11,9 +11,11 @@ use crate::feed::Picture;
 use crate::sweep::{RecurringHotspot, recurring::Member};
 
 /// A member's hotspot cut out of its image with a margin of half the box's size (at least 6
-/// pixels), its box outlined, scaled (nearest) to about 72 pixels across. `None` when the image
-/// no longer opens or is not the size the hotspot was found on.
+/// pixels), scaled to 72 pixels on its longer side (nearest when growing, area averaging when
+/// shrinking), its box outlined. `None` when the image no longer opens or is not the size the
+/// hotspot was found on.
 pub fn exemplar_picture(images_root: &Path, m: &Member) -> Option<image::RgbImage> {
+    const SIDE: f32 = 72.0;
     let lum = Picture::open(&images_root.join(&m.path)).ok()?.luminance();
     let (h, w) = lum.dim();
     if [w, h] != m.image_size {
@@ -21,29 +23,29 @@ pub fn exemplar_picture(images_root: &Path, m: &Member) -> Option<image::RgbImag
     }
     let [x0, y0, x1, y1] = m.bbox;
     let pad = ((x1 - x0).max(y1 - y0) / 2).max(6);
-    let (cx0, cy0, cx1, cy1) = (
-        x0.saturating_sub(pad),
-        y0.saturating_sub(pad),
-        (x1 + pad).min(w),
-        (y1 + pad).min(h),
-    );
-    let side = (cx1 - cx0).max(cy1 - cy0).max(1);
-    let up = (72 / side).max(1) as u32;
-    Some(image::RgbImage::from_fn(
-        (cx1 - cx0) as u32 * up,
-        (cy1 - cy0) as u32 * up,
-        |px, py| {
-            let (x, y) = (cx0 + (px / up) as usize, cy0 + (py / up) as usize);
-            let on_box = ((x == x0 || x + 1 == x1) && (y0..y1).contains(&y))
-                || ((y == y0 || y + 1 == y1) && (x0..x1).contains(&x));
-            if on_box {
-                image::Rgb([240, 170, 40])
-            } else {
-                let v = (lum[[y, x]].clamp(0.0, 1.0) * 255.0).round() as u8;
-                image::Rgb([v, v, v])
-            }
-        },
-    ))
+    let (cx0, cy0, cx1, cy1) = (x0.saturating_sub(pad), y0.saturating_sub(pad), (x1 + pad).min(w), (y1 + pad).min(h));
+    let crop = image::GrayImage::from_fn((cx1 - cx0) as u32, (cy1 - cy0) as u32, |x, y| {
+        image::Luma([(lum[[cy0 + y as usize, cx0 + x as usize]].clamp(0.0, 1.0) * 255.0).round() as u8])
+    });
+    let k = SIDE / (cx1 - cx0).max(cy1 - cy0).max(1) as f32;
+    let (nw, nh) = (((cx1 - cx0) as f32 * k).round().max(1.0) as u32, ((cy1 - cy0) as f32 * k).round().max(1.0) as u32);
+    let filter = if k >= 1.0 { image::imageops::FilterType::Nearest } else { image::imageops::FilterType::Triangle };
+    let small = image::imageops::resize(&crop, nw, nh, filter);
+    let mut out = image::RgbImage::from_fn(nw, nh, |x, y| {
+        let v = small.get_pixel(x, y).0[0];
+        image::Rgb([v, v, v])
+    });
+    let at = |v: usize, from: usize, n: u32| (((v - from) as f32 * k) as u32).min(n - 1);
+    let (bx0, by0, bx1, by1) = (at(x0, cx0, nw), at(y0, cy0, nh), at(x1, cx0, nw), at(y1, cy0, nh));
+    for x in bx0..=bx1 {
+        out.put_pixel(x, by0, image::Rgb([240, 170, 40]));
+        out.put_pixel(x, by1, image::Rgb([240, 170, 40]));
+    }
+    for y in by0..=by1 {
+        out.put_pixel(bx0, y, image::Rgb([240, 170, 40]));
+        out.put_pixel(bx1, y, image::Rgb([240, 170, 40]));
+    }
+    Some(out)
 }
 
 fn counts(m: &std::collections::BTreeMap<String, usize>) -> String {
