@@ -100,14 +100,16 @@ impl Setup<'_> {
     }
 }
 
-/// The hotspots in words, one per `; `: "corner hotspot at [x0, y0, x1, y1]: suspect mark,
-/// probability drop 0.61".
+/// The hotspots in words, one per `; `: "corner hotspot at x 4..19 y 43..58: suspect mark
+/// (probability drop 0.61)".
 pub fn hotspot_summary(hotspots: &[HotspotReport]) -> String {
     hotspots
         .iter()
         .map(|h| {
-            let drop = h.removal.as_ref().map(|r| format!(", probability drop {:.2}", r.probability_drop)).unwrap_or_default();
-            format!("{}: {}{drop}", h.label(), h.role.name())
+            let drop = h.removal.as_ref().map(|r| format!(" (probability drop {:.2})", r.probability_drop)).unwrap_or_default();
+            // No commas, so that the table's cell stays one plain field.
+            let [x0, y0, x1, y1] = h.bbox;
+            format!("{} hotspot at x {x0}..{x1} y {y0}..{y1}: {}{drop}", h.descriptor.place.name(), h.role.name())
         })
         .collect::<Vec<_>>()
         .join("; ")

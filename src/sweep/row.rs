@@ -39,8 +39,6 @@ pub struct Row {
     /// unsure, exclude), as it stood when the files were written; empty without a ledger.
     #[serde(default)]
     pub verdict: Option<String>,
-    /// Seconds this image's reading took when it was computed (a cached row keeps them).
-    pub seconds: f64,
     /// The map's hotspots in one line each (`sweep.csv`'s view of `hotspots`): place, box,
     /// role and the probability drop when painted out, joined by `; `.
     #[serde(default)]
@@ -49,6 +47,8 @@ pub struct Row {
     /// out did. In `sweep.jsonl` and the cache; `sweep.csv` has `hotspot_summary` instead.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub hotspots: Vec<HotspotReport>,
+    /// Seconds this image's reading took when it was computed (a cached row keeps them).
+    pub seconds: f64,
 }
 
 impl Row {

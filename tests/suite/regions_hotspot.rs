@@ -391,3 +391,58 @@ fn hotspots_reach_reading_json_and_the_terminal() {
     assert_eq!(h["role"], "suspect-mark");
     assert!(h["descriptor"]["place"].is_string() && h["descriptor"]["saturation"].is_number());
 }
+
+#[test]
+fn a_sweep_carries_each_images_hotspots() {
+    // Four images with the ring under the ring shortcut model, through `spurion sweep` with its
+    // defaults: every row of sweep.jsonl lists its hotspots with place, box, descriptor,
+    // appearance, mark-likeness and what painting each out did; sweep.csv says them in words.
+    let tmp = tempfile::tempdir().unwrap();
+    let images = tmp.path().join("images");
+    std::fs::create_dir_all(&images).unwrap();
+    let mut rng = ChaCha8Rng::seed_from_u64(31);
+    for i in 0..4 {
+        let (img, _) = phantom(&mut rng, i % 2 == 0, true);
+        image::GrayImage::from_fn(N as u32, N as u32, |x, y| image::Luma([(img[[y as usize, x as usize]] * 255.0).round() as u8]))
+            .save(images.join(format!("{i}.png")))
+            .unwrap();
+    }
+    let model = fixture("hotspot/ring_shortcut.onnx");
+    let out = tmp.path().join("out");
+    let o = std::process::Command::new(env!("CARGO_BIN_EXE_spurion"))
+        .args(["sweep", "--model", model.to_str().unwrap(), "--images", images.to_str().unwrap(), "--out", out.to_str().unwrap()])
+        .args(["--cache", tmp.path().join("cache").to_str().unwrap(), "--quiet"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let rows: Vec<spurion::sweep::Row> =
+        std::fs::read_to_string(out.join("sweep.jsonl")).unwrap().lines().map(|l| serde_json::from_str(l).unwrap()).collect();
+    assert_eq!(rows.len(), 4);
+    let suspect = rows.iter().filter(|r| r.hotspots.iter().any(|h| h.role == HotspotRole::SuspectMark)).count();
+    assert!(suspect >= 3, "{suspect}/4 rows with a suspect hotspot");
+    for r in &rows {
+        for h in &r.hotspots {
+            assert_eq!(h.image_size, [N, N]);
+            assert_eq!(h.appearance.len(), spurion::regions::hotspot::APPEARANCE_LEN);
+            assert!(h.removal.is_some() && h.flipped.is_some());
+        }
+        assert!(r.evidence.contains("hotspot") == r.hotspots.iter().any(|h| h.suspect), "{}", r.evidence);
+    }
+    let mut csv = csv::Reader::from_path(out.join("sweep.csv")).unwrap();
+    let col = csv.headers().unwrap().iter().position(|c| c == "hotspot_summary").expect("a hotspot_summary column");
+    assert!(!csv.headers().unwrap().iter().any(|c| c == "hotspots"), "the list stays out of the table");
+    let said: Vec<String> = csv.records().map(|r| r.unwrap()[col].to_string()).collect();
+    assert!(said.iter().filter(|s| s.contains("suspect mark")).count() >= 3, "{said:?}");
+    // A second sweep reads every row from the cache, hotspots included.
+    let out2 = tmp.path().join("out2");
+    let o = std::process::Command::new(env!("CARGO_BIN_EXE_spurion"))
+        .args(["sweep", "--model", model.to_str().unwrap(), "--images", images.to_str().unwrap(), "--out", out2.to_str().unwrap()])
+        .args(["--cache", tmp.path().join("cache").to_str().unwrap(), "--quiet"])
+        .output()
+        .unwrap();
+    assert!(o.status.success());
+    let again: Vec<spurion::sweep::Row> =
+        std::fs::read_to_string(out2.join("sweep.jsonl")).unwrap().lines().map(|l| serde_json::from_str(l).unwrap()).collect();
+    let strip = |v: &[spurion::sweep::Row]| v.iter().map(|r| r.timeless()).collect::<Vec<_>>();
+    assert_eq!(strip(&again), strip(&rows));
+}

@@ -278,6 +278,13 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                     )
                     .on_hover_text(&rr.reason);
                 }
+                for h in &shown.assessment.hotspots {
+                    let removal = h.removal.as_ref().map(|x| format!(" · {}", removal_text(x, t))).unwrap_or_default();
+                    ui.label(
+                        RichText::new(format!("{}: share {:.2} · mark-likeness {:.2}{removal} · {}", h.label(), h.share, h.mark_likeness, h.role.name()))
+                            .small(),
+                    );
+                }
                 if let Some(x) = &shown.assessment.removal_all {
                     ui.label(RichText::new(format!("all regions ({}): {}", x.fill, removal_text(x, t))).small());
                 }
