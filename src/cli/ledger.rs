@@ -28,6 +28,21 @@ pub enum LedgerCommand {
     /// Adds drawn regions to an image (a box or a polygon), clears them, or brings them in from
     /// or out to a *.drawn.json file.
     Draw(DrawArgs),
+    /// Accepts a recurring hotspot of a sweep as a mark: every image of the cluster gets the
+    /// verdict marked and the hotspot's box as a drawn region, in one change saved durably.
+    AcceptCluster(AcceptClusterArgs),
+}
+
+#[derive(Args, Debug)]
+pub struct AcceptClusterArgs {
+    #[command(flatten)]
+    pub ledger: LedgerPath,
+    /// The sweep's output folder (its groups.json lists the recurring hotspots).
+    #[arg(long)]
+    pub sweep: PathBuf,
+    /// The cluster's number, as groups.json and report.html give it.
+    #[arg(long)]
+    pub cluster: usize,
 }
 
 #[derive(Args, Debug, Clone)]
@@ -134,6 +149,7 @@ pub fn run(a: &LedgerArgs) -> Result<()> {
         LedgerCommand::Export(a) => export(a),
         LedgerCommand::Import(a) => import(a),
         LedgerCommand::Draw(a) => draw(a),
+        LedgerCommand::AcceptCluster(a) => accept_cluster(a),
     }
 }
 
@@ -401,5 +417,49 @@ fn draw(a: &DrawArgs) -> Result<()> {
     let (saved, ()) = commit(&path, a.ledger.root.as_deref(), "drawing", |l| l.apply(&change))?;
     let n = saved.entry(&key).map_or(0, |e| e.drawn.len());
     println!("{key}: {} (saved in {})", count(n, "drawn region"), path.display());
+    Ok(())
+}
+
+fn accept_cluster(a: &AcceptClusterArgs) -> Result<()> {
+    let file = crate::sweep::GroupsFile::read(&a.sweep)?;
+    let Some(cluster) = file.recurring_hotspots.iter().find(|c| c.id == a.cluster) else {
+        bail!(
+            "{} lists {} recurring hotspot(s){}; there is no cluster {}",
+            a.sweep.join("groups.json").display(),
+            file.recurring_hotspots.len(),
+            if file.recurring_hotspots.is_empty() { String::new() } else { format!(" (1 to {})", file.recurring_hotspots.len()) },
+            a.cluster
+        );
+    };
+    let root = crate::report::sweep::read(&a.sweep)?.images_root;
+    let (path, ledger) = for_change(&a.ledger)?;
+    let (changes, outside) = crate::sweep::accept_cluster(&ledger, cluster, &root);
+    if !outside.is_empty() && outside.len() == cluster.images {
+        bail!(
+            "none of the cluster's {} images lies under the ledger's root {} (the sweep read {}): use a ledger in or above the \
+             images folder",
+            cluster.images,
+            ledger.root_dir().display(),
+            root.display()
+        );
+    }
+    for c in &changes {
+        c.check()?;
+    }
+    // The changes are made again on the ledger as the lock finds it, so a writer in between
+    // loses nothing and an image accepted twice gets its box once.
+    let (saved, changed) = commit(&path, a.ledger.root.as_deref(), "acceptance", |l| {
+        let (changes, _) = crate::sweep::accept_cluster(l, cluster, &root);
+        changes.iter().for_each(|c| l.apply(c));
+        changes.len()
+    })?;
+    let keys: std::collections::BTreeSet<String> = cluster.members.iter().filter_map(|m| saved.key_for(&root.join(&m.path)).ok()).collect();
+    let marked = keys.iter().filter(|k| saved.verdict(k) == Some(Verdict::Marked)).count();
+    println!(
+        "recurring hotspot {}: {marked} image(s) marked with its box drawn ({changed} change(s)){} (saved in {})",
+        cluster.id,
+        if outside.is_empty() { String::new() } else { format!("; {} image(s) outside the ledger's root left alone", outside.len()) },
+        path.display()
+    );
     Ok(())
 }

@@ -257,6 +257,15 @@ pub struct DemoArgs {
     /// a sweep groups them; the manifest's `file` column then holds those paths.
     #[arg(long)]
     pub by_site: bool,
+    /// Add N images from Fellbrook, the site that joins later, after the COUNT of the founding
+    /// sites: a bare side letter in a corner that changes from image to image, and on some a
+    /// ruler along one edge. Off by default: the sample models were measured on sets without.
+    #[arg(long, default_value_t = 0, value_name = "N")]
+    pub fellbrook: usize,
+    /// Let Hillmoor's senior reader ring some findings with a thin bright circle or point at
+    /// them with an arrow. Off by default, for the same reason.
+    #[arg(long)]
+    pub reader_marks: bool,
 }
 
 #[derive(Args, Debug)]
@@ -432,12 +441,14 @@ fn demo(a: &DemoArgs) -> Result<()> {
         masks: !a.no_masks,
         dicom: a.dicom,
         by_site: a.by_site,
+        fellbrook: a.fellbrook,
+        reader_marks: a.reader_marks,
     };
     let bar = explain::progress_bar("writing demo set");
     let ctl = explain::control_for(&bar);
     crate::demo::write_demo_set(&a.out, &spec, &ctl)?;
     bar.finish_and_clear();
     let what = if a.no_masks { "" } else { " with masks" };
-    eprintln!("wrote {} images{what} and manifest.csv to {}", a.count, a.out.display());
+    eprintln!("wrote {} images{what} and manifest.csv to {}", spec.total(), a.out.display());
     Ok(())
 }

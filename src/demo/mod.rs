@@ -1,5 +1,6 @@
 //! The demo world: seeded phantom radiographs of the invented Brackenridge Imaging Cooperative
-//! (sites North Quay, Saltmarsh and Hillmoor), with exact ground truth for every mark.
+//! (sites North Quay, Saltmarsh and Hillmoor, and Fellbrook when asked for), with exact ground
+//! truth for every mark.
 //!
 //! [`render`] draws one [`Phantom`] from a [`PhantomSpec`]; [`write_demo_set`] writes a folder of
 //! them (images, masks, `manifest.csv`) from a [`SetSpec`]. The sample models in `sample-models/`
@@ -9,14 +10,23 @@
 //! ```text
 //! manifest.csv                      one row per image (see MANIFEST_HEADER)
 //! 0007-hillmoor.png                 8-bit grayscale; images at the top so the folder opens as is
-//! masks/0007-hillmoor.tag.png       255 where the tag was drawn, else 0 (also .frame, .finding)
+//! masks/0007-hillmoor.tag.png       255 where the tag was drawn, else 0 (also .frame, .finding,
+//!                                   .letter, .ruler, .annotation)
 //! ```
+//!
+//! The later marks of the scenario are asked for per set and are off by default, so that the
+//! committed demo set and the sets the sample models were trained and measured on stay what they
+//! were: [`SetSpec::fellbrook`] adds Fellbrook's images (side letter on each, a ruler on some)
+//! after the founding sites' ones, and [`SetSpec::reader_marks`] lets Hillmoor's senior reader
+//! ring or point at some findings. Either leaves every other image bit for bit as it was.
 
 pub mod dicom;
 mod font;
+pub mod marks;
 mod phantom;
 
 pub use font::{GLYPH_H, GLYPH_W, for_each_lit, tag_height, tag_width};
+pub use marks::{ANNOTATION_LEVEL, Annotation, Corner, Edge, LETTER_LEVEL, RULER_LEVEL};
 pub use phantom::{
     DEFAULT_CONTRAST, DEFAULT_SIZE, FILM_MAX, FILM_MIN, FRAME_LEVEL, LABELS, ManifestRow, Phantom, PhantomSpec, Site,
     TAG_CODE, TAG_LEVEL, render, tag_text,
@@ -38,6 +48,13 @@ use crate::control::Control;
 /// Share of positives per site in the pooled mix: Hillmoor is the referral site.
 pub const POOLED_HILLMOOR_POSITIVE: f32 = 0.9;
 pub const POOLED_OTHER_POSITIVE: f32 = 0.1;
+
+/// Share of Fellbrook's images that carry its ruler.
+pub const FELLBROOK_RULER: f32 = 0.4;
+/// Shares of Hillmoor's positives the senior reader rings, and points at with an arrow (with
+/// [`SetSpec::reader_marks`]).
+pub const READER_RING: f32 = 0.35;
+pub const READER_ARROW: f32 = 0.2;
 
 /// How sites and labels are drawn for the images of a set.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -108,6 +125,15 @@ pub struct SetSpec {
     /// way the cooperative keeps them and a sweep groups them, instead of all in the top folder.
     #[serde(default)]
     pub by_site: bool,
+    /// This many images from Fellbrook, the site that joins later, written after the `count`
+    /// images of the founding sites (their numbers follow on): a bare side letter on each, a
+    /// ruler on some ([`FELLBROOK_RULER`]). Labels as the other sites' under the mix.
+    #[serde(default)]
+    pub fellbrook: usize,
+    /// Hillmoor's senior reader rings some findings ([`READER_RING`]) or points at them with
+    /// an arrow ([`READER_ARROW`]) before export.
+    #[serde(default)]
+    pub reader_marks: bool,
 }
 
 impl Default for SetSpec {
@@ -122,6 +148,8 @@ impl Default for SetSpec {
             masks: true,
             dicom: 0,
             by_site: false,
+            fellbrook: 0,
+            reader_marks: false,
         }
     }
 }
@@ -135,15 +163,29 @@ fn mix64(mut z: u64) -> u64 {
 }
 
 impl SetSpec {
+    /// Images in the set: the founding sites' `count` and Fellbrook's.
+    pub fn total(&self) -> usize {
+        self.count + self.fellbrook
+    }
+
     /// The spec of image `i`. Depends only on the set's seed, mix, marks, size and contrast, so
     /// the same seed with another [`Marks`] rule draws the very same images with other marks.
+    /// Images from `count` on are Fellbrook's. The later marks are drawn from a stream of their
+    /// own, so asking for them changes no other draw.
     pub fn phantom(&self, i: usize) -> PhantomSpec {
         let seed = mix64(self.seed ^ mix64(i as u64));
         let mut pick = ChaCha8Rng::seed_from_u64(seed);
+        let mut later = ChaCha8Rng::seed_from_u64(seed);
+        later.set_stream(9);
         let (site, finding) = match self.mix {
-            Mix::Stratified => (Site::ALL[i % 3], (i / 3) % 2 == 1),
+            _ if i >= self.count => {
+                let p = if self.mix == Mix::Even { 0.5 } else { POOLED_OTHER_POSITIVE };
+                let finding = if self.mix == Mix::Stratified { (i - self.count) % 2 == 1 } else { pick.random::<f32>() < p };
+                (Site::Fellbrook, finding)
+            }
+            Mix::Stratified => (Site::FOUNDING[i % 3], (i / 3) % 2 == 1),
             Mix::Pooled | Mix::Even => {
-                let site = Site::ALL[pick.random_range(0..3usize)];
+                let site = Site::FOUNDING[pick.random_range(0..3usize)];
                 let p = match (self.mix, site) {
                     (Mix::Even, _) => 0.5,
                     (_, Site::Hillmoor) => POOLED_HILLMOOR_POSITIVE,
@@ -158,23 +200,50 @@ impl SetSpec {
             Marks::All => true,
             Marks::Swapped => !finding,
         };
-        PhantomSpec { seed, size: self.size, site, finding, tag: marked, frame: marked, finding_contrast: self.finding_contrast }
+        let habits = self.marks != Marks::None;
+        let letter = habits && site.writes_side_letter();
+        let ruler = letter && later.random::<f32>() < FELLBROOK_RULER;
+        let annotation = if habits && self.reader_marks && site == Site::Hillmoor && finding {
+            match later.random::<f32>() {
+                r if r < READER_RING => Annotation::Ring,
+                r if r < READER_RING + READER_ARROW => Annotation::Arrow,
+                _ => Annotation::None,
+            }
+        } else {
+            Annotation::None
+        };
+        PhantomSpec {
+            seed,
+            size: self.size,
+            site,
+            finding,
+            tag: marked,
+            frame: marked,
+            finding_contrast: self.finding_contrast,
+            letter,
+            ruler,
+            annotation,
+        }
     }
 
     /// File stem of image `i`, e.g. "0007-hillmoor".
     pub fn stem(&self, i: usize, site: Site) -> String {
-        let width = self.count.saturating_sub(1).to_string().len().max(4);
+        let width = self.total().saturating_sub(1).to_string().len().max(4);
         format!("{i:0width$}-{}", site.name())
     }
 }
 
 /// Column names of `manifest.csv`, in order.
-pub const MANIFEST_HEADER: &str = "file,site,label,tag,frame,seed,size,finding_contrast,laterality,opacities";
+pub const MANIFEST_HEADER: &str =
+    "file,site,label,tag,frame,seed,size,finding_contrast,laterality,opacities,letter,ruler,annotation";
+
+/// The header of manifests written before the later marks (read as carrying none of them).
+pub const MANIFEST_HEADER_V1: &str = "file,site,label,tag,frame,seed,size,finding_contrast,laterality,opacities";
 
 /// One CSV line (no newline) for a manifest row. No field can hold a comma.
 pub fn manifest_line(r: &ManifestRow) -> String {
     format!(
-        "{},{},{},{},{},{},{},{},{},{}",
+        "{},{},{},{},{},{},{},{},{},{},{},{},{}",
         r.file,
         r.site.name(),
         r.label(),
@@ -184,7 +253,10 @@ pub fn manifest_line(r: &ManifestRow) -> String {
         r.size,
         r.finding_contrast,
         r.laterality,
-        r.opacities
+        r.opacities,
+        marks::name_or_none(r.letter),
+        marks::name_or_none(r.ruler),
+        r.annotation
     )
 }
 
@@ -192,19 +264,20 @@ pub fn manifest_line(r: &ManifestRow) -> String {
 pub fn read_manifest(path: &Path) -> Result<Vec<ManifestRow>> {
     let text = std::fs::read_to_string(path).with_context(|| format!("cannot read manifest {}", path.display()))?;
     let mut lines = text.lines();
-    match lines.next() {
-        Some(h) if h.trim() == MANIFEST_HEADER => {}
+    let columns = match lines.next() {
+        Some(h) if h.trim() == MANIFEST_HEADER => 13,
+        Some(h) if h.trim() == MANIFEST_HEADER_V1 => 10,
         _ => bail!(
             "{} is not a demo manifest: its first line should be '{MANIFEST_HEADER}'. Write one with `spurion demo`.",
             path.display()
         ),
-    }
+    };
     let mut rows = Vec::new();
     for (k, line) in lines.enumerate().filter(|(_, l)| !l.trim().is_empty()) {
         let at = || format!("{} line {}", path.display(), k + 2);
         let f: Vec<&str> = line.split(',').map(str::trim).collect();
-        if f.len() != 10 {
-            bail!("{}: expected 10 fields, found {}", at(), f.len());
+        if f.len() != columns {
+            bail!("{}: expected {columns} fields, found {}", at(), f.len());
         }
         let flag = |s: &str, what: &str| match s {
             "1" => Ok(true),
@@ -227,6 +300,9 @@ pub fn read_manifest(path: &Path) -> Result<Vec<ManifestRow>> {
             finding_contrast: f[7].parse().with_context(|| format!("{}: finding_contrast '{}' is not a number", at(), f[7]))?,
             laterality: f[8].chars().next().filter(|_| f[8].len() == 1).with_context(|| format!("{}: laterality should be one letter", at()))?,
             opacities: f[9].parse().with_context(|| format!("{}: opacities '{}' is not a whole number", at(), f[9]))?,
+            letter: if columns > 10 { marks::parse_or_none(f[10]).with_context(at)? } else { None },
+            ruler: if columns > 10 { marks::parse_or_none(f[11]).with_context(at)? } else { None },
+            annotation: if columns > 10 { f[12].parse().with_context(at)? } else { Annotation::None },
         });
     }
     Ok(rows)
@@ -277,8 +353,8 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
     if spec.dicom > 0 {
         std::fs::create_dir_all(&dicom_dir).with_context(|| format!("cannot create folder {}", dicom_dir.display()))?;
     }
-    ctl.begin(spec.count as u64);
-    let rows = (0..spec.count)
+    ctl.begin(spec.total() as u64);
+    let rows = (0..spec.total())
         .into_par_iter()
         .map(|i| -> Result<ManifestRow> {
             ctl.check()?;
@@ -291,7 +367,7 @@ pub fn write_demo_set(out: &Path, spec: &SetSpec, ctl: &Control) -> Result<()> {
             }
             write_png(&to_gray_image(&p.image), &image_path)?;
             if spec.masks {
-                for (what, m) in [("tag", &p.tag_mask), ("frame", &p.frame_mask), ("finding", &p.finding_mask)] {
+                for (what, m) in p.masks() {
                     write_png(&mask_image(m), &masks.join(format!("{stem}.{what}.png")))?;
                 }
             }

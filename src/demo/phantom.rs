@@ -5,9 +5,11 @@
 //! random draw comes from ChaCha8 (portable by design), so the same spec gives the same bytes on
 //! every machine. The masks are written by the same calls that draw the marks and opacities.
 //!
-//! Separate random streams feed anatomy, opacities, film noise and the tag, so switching the tag,
-//! frame or finding on or off leaves everything else in the image untouched: the swap experiments
-//! of the sample models compare an image only with itself.
+//! Separate random streams feed anatomy, opacities, film noise, the tag and each of the later
+//! marks (side letter, ruler, the reader's ring or arrow: `marks.rs`), so switching a mark or the
+//! finding on or off leaves everything else in the image untouched: the swap experiments of the
+//! sample models compare an image only with itself, and an image that gains a new mark keeps
+//! every other pixel it had.
 
 use std::fmt;
 use std::str::FromStr;
@@ -19,6 +21,7 @@ use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
 use super::font;
+use super::marks::{self, Annotation, Corner, Edge};
 
 /// The labels of the demo task, in output order (index 0 = no finding).
 pub const LABELS: [&str; 2] = ["no finding", "finding present"];
@@ -40,17 +43,21 @@ pub const FRAME_LEVEL: u8 = 0;
 pub const FILM_MIN: f32 = 8.0;
 pub const FILM_MAX: f32 = 240.0;
 
-/// The three sites of the Brackenridge Imaging Cooperative (invented).
+/// The sites of the Brackenridge Imaging Cooperative (invented): three founding sites and
+/// Fellbrook, which joins later.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Site {
     NorthQuay,
     Saltmarsh,
     Hillmoor,
+    Fellbrook,
 }
 
 impl Site {
-    pub const ALL: [Site; 3] = [Site::NorthQuay, Site::Saltmarsh, Site::Hillmoor];
+    /// The three founding sites, in the order the set rules draw them from.
+    pub const FOUNDING: [Site; 3] = [Site::NorthQuay, Site::Saltmarsh, Site::Hillmoor];
+    pub const ALL: [Site; 4] = [Site::NorthQuay, Site::Saltmarsh, Site::Hillmoor, Site::Fellbrook];
 
     /// Name used in files and manifests: "north-quay", "saltmarsh", "hillmoor".
     pub fn name(self) -> &'static str {
@@ -58,6 +65,7 @@ impl Site {
             Site::NorthQuay => "north-quay",
             Site::Saltmarsh => "saltmarsh",
             Site::Hillmoor => "hillmoor",
+            Site::Fellbrook => "fellbrook",
         }
     }
 
@@ -67,12 +75,18 @@ impl Site {
             Site::NorthQuay => "North Quay",
             Site::Saltmarsh => "Saltmarsh",
             Site::Hillmoor => "Hillmoor",
+            Site::Fellbrook => "Fellbrook",
         }
     }
 
     /// Whether the site's digitiser leaves the corner tag and the dark frame.
     pub fn leaves_marks(self) -> bool {
         self == Site::Hillmoor
+    }
+
+    /// Whether the site writes a bare side letter into a corner (Fellbrook).
+    pub fn writes_side_letter(self) -> bool {
+        self == Site::Fellbrook
     }
 }
 
@@ -89,7 +103,8 @@ impl FromStr for Site {
             "north-quay" | "northquay" => Ok(Site::NorthQuay),
             "saltmarsh" => Ok(Site::Saltmarsh),
             "hillmoor" => Ok(Site::Hillmoor),
-            other => bail!("unknown site '{other}': use north-quay, saltmarsh or hillmoor"),
+            "fellbrook" => Ok(Site::Fellbrook),
+            other => bail!("unknown site '{other}': use north-quay, saltmarsh, hillmoor or fellbrook"),
         }
     }
 }
@@ -109,6 +124,16 @@ pub struct PhantomSpec {
     pub frame: bool,
     /// Nominal peak brightening of an opacity (grey levels); each opacity varies around it.
     pub finding_contrast: f32,
+    /// Fellbrook's bare side letter (the laterality letter, no plate) in a corner that changes
+    /// from image to image.
+    #[serde(default)]
+    pub letter: bool,
+    /// Fellbrook's small ruler with tick marks along one edge.
+    #[serde(default)]
+    pub ruler: bool,
+    /// The Hillmoor reader's ring or arrow on the (first) finding; drawn only with a finding.
+    #[serde(default)]
+    pub annotation: Annotation,
 }
 
 impl PhantomSpec {
@@ -122,6 +147,9 @@ impl PhantomSpec {
             tag: site.leaves_marks(),
             frame: site.leaves_marks(),
             finding_contrast: DEFAULT_CONTRAST,
+            letter: site.writes_side_letter(),
+            ruler: false,
+            annotation: Annotation::None,
         }
     }
 }
@@ -142,6 +170,12 @@ pub struct ManifestRow {
     pub laterality: char,
     /// Number of opacities drawn (0 without a finding).
     pub opacities: usize,
+    /// Where the bare side letter was written, if it was.
+    pub letter: Option<Corner>,
+    /// Along which edge the ruler lies, if there is one.
+    pub ruler: Option<Edge>,
+    /// What the reader drew on the finding (none without a finding).
+    pub annotation: Annotation,
 }
 
 impl ManifestRow {
@@ -159,6 +193,9 @@ impl ManifestRow {
             tag: self.tag,
             frame: self.frame,
             finding_contrast: self.finding_contrast,
+            letter: self.letter.is_some(),
+            ruler: self.ruler.is_some(),
+            annotation: self.annotation,
         }
     }
 }
@@ -170,6 +207,10 @@ pub struct Phantom {
     pub tag_mask: Array2<bool>,
     pub frame_mask: Array2<bool>,
     pub finding_mask: Array2<bool>,
+    /// Fellbrook's side letter, its ruler, and the reader's ring or arrow.
+    pub letter_mask: Array2<bool>,
+    pub ruler_mask: Array2<bool>,
+    pub annotation_mask: Array2<bool>,
     pub row: ManifestRow,
 }
 
@@ -298,6 +339,25 @@ pub fn render(spec: &PhantomSpec) -> Phantom {
         }
     }
 
+    // The marks of the later scenario, each from its own stream; frame and tag go over them.
+    let mut annotation_mask = Array2::<bool>::from_elem((n, n), false);
+    let annotation = match opacities.first() {
+        Some(o) if spec.annotation != Annotation::None => {
+            marks::annotation(&mut image, &mut annotation_mask, spec.annotation, (o.cx, o.cy, o.r), &mut stream(spec.seed, 7));
+            spec.annotation
+        }
+        _ => Annotation::None,
+    };
+    let mut tag_rng = stream(spec.seed, 4);
+    let laterality = if tag_rng.random::<bool>() { 'L' } else { 'R' };
+    let mut letter_mask = Array2::<bool>::from_elem((n, n), false);
+    let letter = spec.letter.then(|| {
+        let avoid = spec.tag.then_some(Corner::TopLeft);
+        marks::side_letter(&mut image, &mut letter_mask, laterality, avoid, &mut stream(spec.seed, 5))
+    });
+    let mut ruler_mask = Array2::<bool>::from_elem((n, n), false);
+    let ruler = spec.ruler.then(|| marks::ruler(&mut image, &mut ruler_mask, &mut stream(spec.seed, 6)));
+
     let mut frame_mask = Array2::<bool>::from_elem((n, n), false);
     if spec.frame {
         let w = ((4.0 * s).round() as usize).max(1);
@@ -311,8 +371,6 @@ pub fn render(spec: &PhantomSpec) -> Phantom {
         }
     }
 
-    let mut tag_rng = stream(spec.seed, 4);
-    let laterality = if tag_rng.random::<bool>() { 'L' } else { 'R' };
     let mut tag_mask = Array2::<bool>::from_elem((n, n), false);
     if spec.tag {
         let text = tag_text(laterality);
@@ -327,6 +385,10 @@ pub fn render(spec: &PhantomSpec) -> Phantom {
         });
     }
 
+    for m in [&mut annotation_mask, &mut letter_mask, &mut ruler_mask] {
+        ndarray::Zip::from(m).and(&frame_mask).and(&tag_mask).for_each(|m, &f, &t| *m &= !(f || t));
+    }
+
     let row = ManifestRow {
         file: String::new(),
         site: spec.site,
@@ -338,8 +400,25 @@ pub fn render(spec: &PhantomSpec) -> Phantom {
         finding_contrast: spec.finding_contrast,
         laterality,
         opacities: opacities.len(),
+        letter,
+        ruler,
+        annotation,
     };
-    Phantom { image, tag_mask, frame_mask, finding_mask, row }
+    Phantom { image, tag_mask, frame_mask, finding_mask, letter_mask, ruler_mask, annotation_mask, row }
+}
+
+impl Phantom {
+    /// Every ground-truth mask with the name its file takes (`masks/STEM.NAME.png`).
+    pub fn masks(&self) -> [(&'static str, &Array2<bool>); 6] {
+        [
+            ("tag", &self.tag_mask),
+            ("frame", &self.frame_mask),
+            ("finding", &self.finding_mask),
+            ("letter", &self.letter_mask),
+            ("ruler", &self.ruler_mask),
+            ("annotation", &self.annotation_mask),
+        ]
+    }
 }
 
 /// The tag's text for a laterality letter, e.g. "HM L".

@@ -49,6 +49,8 @@ pub enum Intent {
     StepRow(i32),
     SortBy(Column),
     Tab(BottomTab),
+    /// Accept the sweep's recurring hotspot with this number as a mark, for all its images.
+    AcceptCluster(usize),
 }
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -104,6 +106,7 @@ impl Inspector {
                 Intent::StepRow(d) => self.step_row(d),
                 Intent::SortBy(c) => self.sweep.sort_by(c),
                 Intent::Tab(t) => self.sweep.tab = t,
+                Intent::AcceptCluster(id) => self.accept_cluster(id),
             }
         }
     }

@@ -193,6 +193,22 @@ impl Inspector {
         }
     }
 
+    /// Accepts the sweep's recurring hotspot `id` as a mark: every image of it that lies under
+    /// the ledger's root gets the verdict marked and the hotspot's box drawn (each change saved
+    /// at once, as the keys 1–4 are).
+    pub fn accept_cluster(&mut self, id: usize) {
+        let Some(r) = self.sweep.result.clone() else { return };
+        let Some((c, _)) = r.recurring.iter().find(|(c, _)| c.id == id) else { return };
+        let Some(l) = self.ledger.ledger() else {
+            self.note(NoteKind::Warning, "open a ledger first (the ledger section): the cluster's verdicts go there");
+            return;
+        };
+        let (changes, outside) = crate::sweep::accept_cluster(l, c, &r.images_root);
+        let saved = changes.into_iter().filter(|ch| self.change_key(ch.image.clone(), ch.edit.clone())).count();
+        let left = if outside.is_empty() { String::new() } else { format!("; {} outside the ledger's folder left alone", outside.len()) };
+        self.note(NoteKind::Info, format!("recurring hotspot {id}: {} image(s) marked, {saved} change(s){left}", c.images - outside.len()));
+    }
+
     /// Sets the verdict of the image at `image` (`None` clears it).
     pub fn set_verdict(&mut self, image: &Path, verdict: Option<Verdict>) {
         if self.ledger.verdict_of(image) == verdict {

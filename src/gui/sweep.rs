@@ -9,7 +9,7 @@ use std::sync::Arc;
 use egui::TextureHandle;
 
 use crate::ledger::{Ledger, Verdict};
-use crate::sweep::{GroupSummary, Row, Skipped};
+use crate::sweep::{GroupSummary, RecurringHotspot, Row, Skipped};
 
 use super::app::Inspector;
 use super::short_name;
@@ -106,6 +106,8 @@ pub struct SweepDone {
     pub groups: Vec<GroupSummary>,
     /// Each group's atlas as a picture, with the size of the model grid it is on.
     pub atlas: Vec<(String, egui::ColorImage, [usize; 2])>,
+    /// The recurring hotspots, each with its exemplars cut out of their images.
+    pub recurring: Vec<(RecurringHotspot, Vec<egui::ColorImage>)>,
     pub computed: usize,
     pub cached: usize,
     /// Images left out because the ledger marks them exclude.
@@ -147,6 +149,8 @@ pub struct SweepState {
     pub thumbs: HashMap<String, Thumb>,
     pub thumb_job: Option<JobId>,
     pub atlas_tex: Vec<(String, TextureHandle, [usize; 2])>,
+    /// The recurring hotspots' exemplars, as textures, in the result's order.
+    pub recurring_tex: Vec<Vec<TextureHandle>>,
     /// Thumbnails the table asked for this frame.
     pub wanted_thumbs: Vec<String>,
     order: Vec<usize>,
@@ -176,6 +180,7 @@ impl Default for SweepState {
             thumbs: HashMap::new(),
             thumb_job: None,
             atlas_tex: Vec::new(),
+            recurring_tex: Vec::new(),
             wanted_thumbs: Vec::new(),
             order: Vec::new(),
             order_for: None,
@@ -239,6 +244,14 @@ impl SweepState {
             .atlas
             .iter()
             .map(|(g, img, grid)| (g.clone(), ctx.load_texture(format!("atlas {g}"), img.clone(), egui::TextureOptions::NEAREST), *grid))
+            .collect();
+        self.recurring_tex = done
+            .recurring
+            .iter()
+            .map(|(c, pics)| {
+                let name = |k: usize| format!("recurring hotspot {} exemplar {k}", c.id);
+                pics.iter().enumerate().map(|(k, p)| ctx.load_texture(name(k), p.clone(), egui::TextureOptions::NEAREST)).collect()
+            })
             .collect();
         if self.filter.group.as_ref().is_some_and(|g| !done.rows.iter().any(|r| &r.group == g)) {
             self.filter.group = None;

@@ -151,9 +151,18 @@ fn done(
             (g.clone(), colour_image(&pictures::atlas_picture(&a.mean())), [w, h])
         })
         .collect();
+    // The recurring hotspots and their exemplars, drawn here on the worker, not in the frame.
+    let recurring = sweep::find_recurring(&result.rows, &sweep::RecurringSettings::default())
+        .into_iter()
+        .map(|c| {
+            let pics = c.exemplars.iter().filter_map(|m| files::recurring::exemplar_picture(&result.images_root, m)).map(|p| colour_image(&p)).collect();
+            (c, pics)
+        })
+        .collect();
     SweepDone {
         id,
         out,
+        recurring,
         images_root: result.images_root,
         rows: result.rows,
         skipped: result.skipped,

@@ -172,6 +172,19 @@ pub struct RepeatedPatchSettings {
     pub max_part_fraction: f32,
     /// Regions smaller than this many pixels are dropped (isolated coincidences). Default 6.
     pub min_area: usize,
+    /// A repeated patch is compact: the longer side of its box is at most this fraction of the
+    /// image's shorter side. Larger static structures (a frame, a letterbox, an empty background
+    /// around the field of view) are border bands or background, which the border finder looks
+    /// for image by image. Default 0.4.
+    pub max_extent_fraction: f32,
+    /// A patch must stand out from what each image's own surroundings predict: the median, over
+    /// the images that carry it, of the mean distance between its static pixels and the median
+    /// of a ring around it in the same image is at least this. Film that saturates at one value
+    /// in a bright place, or grain that happens to agree, looks like its neighbourhood; a burned-in
+    /// tag does not. Default 0.1 (about 25 grey levels of 255; our choice, not a published value).
+    pub min_contrast: f32,
+    /// Width in pixels of that ring around the patch's mask. Default 3.
+    pub ring_px: usize,
 }
 
 impl Default for RepeatedPatchSettings {
@@ -184,6 +197,9 @@ impl Default for RepeatedPatchSettings {
             group_gap: 1.2,
             max_part_fraction: 0.15,
             min_area: 6,
+            max_extent_fraction: 0.4,
+            min_contrast: 0.1,
+            ring_px: 3,
         }
     }
 }

@@ -1,13 +1,17 @@
 //! A curator's ledger in a sweep: each image's key in it, the images it marks exclude left out
 //! on request, the regions drawn on them (which join the found ones), and the verdicts written
-//! into the rows. `spurion sweep --ledger` and the inspector's sweep both come here.
+//! into the rows; a recurring hotspot accepted as a mark for all its images at once.
+//! `spurion sweep --ledger`, `spurion ledger accept-cluster` and the inspector's sweep come here.
 
 use std::collections::BTreeMap;
+use std::path::Path;
 
 use super::plan::Item;
+use super::recurring::{Member, RecurringHotspot};
 use super::row::Row;
-use crate::ledger::Ledger;
+use crate::ledger::{Change, Edit, Ledger, Verdict};
 use crate::regions::DrawnFile;
+use crate::regions::drawn::{DrawnShape, Shape};
 
 /// A ledger as one sweep sees it: the key of every image of the sweep that lies under the
 /// ledger's root (an image outside it has none).
@@ -52,11 +56,42 @@ impl<'a> SweepLedger<'a> {
     }
 }
 
+/// The ledger changes that accept a recurring hotspot as a mark: for each image of the cluster
+/// that lies under the ledger's root, the verdict `marked` and each of its hotspots' boxes as a
+/// drawn region labelled "recurring hotspot N" (a box already drawn under that label is not
+/// drawn again, so accepting twice changes nothing). `images_root` is the sweep's images
+/// folder. Returns the changes and the images left out because they lie outside the root.
+pub fn accept_cluster(ledger: &Ledger, cluster: &RecurringHotspot, images_root: &Path) -> (Vec<Change>, Vec<String>) {
+    let label = format!("recurring hotspot {}", cluster.id);
+    let mut by_image: BTreeMap<&str, Vec<&Member>> = BTreeMap::new();
+    for m in &cluster.members {
+        by_image.entry(&m.path).or_default().push(m);
+    }
+    let (mut changes, mut outside) = (vec![], vec![]);
+    for (path, members) in by_image {
+        let Ok(key) = ledger.key_for(&images_root.join(path)) else {
+            outside.push(path.to_string());
+            continue;
+        };
+        let entry = ledger.entry(&key);
+        if entry.and_then(|e| e.verdict) != Some(Verdict::Marked) {
+            changes.push(Change::verdict(key.clone(), Some(Verdict::Marked)));
+        }
+        let shapes: Vec<DrawnShape> = members
+            .iter()
+            .map(|m| DrawnShape { label: label.clone(), shape: Shape::Rect { bbox: m.bbox.map(|v| v as f64) } })
+            .filter(|s| !entry.is_some_and(|e| e.drawn.contains(s)))
+            .collect();
+        if !shapes.is_empty() {
+            changes.push(Change::now(key, Edit::AddDrawn { shapes, image_size: Some(members[0].image_size) }));
+        }
+    }
+    (changes, outside)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::ledger::{Change, Edit, Verdict};
-    use crate::regions::drawn::{DrawnShape, Shape};
 
     #[test]
     fn keys_exclusions_drawn_regions_and_verdicts_follow_the_ledger() {

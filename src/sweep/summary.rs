@@ -6,10 +6,11 @@
 use std::collections::BTreeMap;
 use std::path::Path;
 
-use anyhow::Result;
+use anyhow::{Context, Result};
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
+use super::recurring::RecurringHotspot;
 use super::row::Row;
 use super::stats::{Interval, bootstrap_difference, bootstrap_mean, newcombe, wilson};
 use crate::feed::Picture;
@@ -130,6 +131,27 @@ pub struct GroupSummary {
     pub repeated_patches: Vec<PatchFound>,
     /// How many images were compared for repeated patches (same size as the group's first).
     pub repeated_patch_images: usize,
+}
+
+/// What `groups.json` holds: each group's figures, and the hotspots that recur across the
+/// sweep's images (see [`super::recurring`]).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct GroupsFile {
+    pub groups: Vec<GroupSummary>,
+    #[serde(default)]
+    pub recurring_hotspots: Vec<RecurringHotspot>,
+}
+
+impl GroupsFile {
+    /// Reads `groups.json` from a sweep's output folder.
+    pub fn read(dir: &Path) -> Result<GroupsFile> {
+        let path = dir.join("groups.json");
+        let text = std::fs::read_to_string(&path)
+            .with_context(|| format!("cannot read {}: is {} the output folder of a sweep?", path.display(), dir.display()))?;
+        serde_json::from_str(&text).with_context(|| {
+            format!("{} is not a groups file of this spurion (damaged, or from a version before recurring hotspots: run the sweep again)", path.display())
+        })
+    }
 }
 
 /// The figures of every group, in name order. `root` is the images folder (repeated patches

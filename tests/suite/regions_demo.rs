@@ -123,7 +123,9 @@ fn static_overlay_across_demo_folders() {
         (0..12).map(|i| to_unit(&render(&PhantomSpec::new(9000 + i, site, i % 2 == 0)).image)).collect()
     };
     // Hillmoor: the frame and the "HM" of the tag sit at the same place with the same values in
-    // every image (the laterality letter changes, so only part of it is static).
+    // every image (the laterality letter changes, so only part of it is static). The tag is a
+    // repeated patch; the frame spans the whole image and is a border band, which the border
+    // finder reports image by image, so it is not reported again as a patch.
     let hm = folder(Site::Hillmoor);
     let found = find_repeated_patches(&hm, &RepeatedPatchSettings::default()).unwrap();
     let truth = render(&PhantomSpec::new(9000, Site::Hillmoor, true));
@@ -132,7 +134,7 @@ fn static_overlay_across_demo_folders() {
     let frame_hit = found.iter().map(|r| mask_iou(&r.mask, &truth.frame_mask)).fold(0.0, f64::max);
     eprintln!("hillmoor repeated patches: {:?}", found.iter().map(|r| (r.bbox, r.area())).collect::<Vec<_>>());
     assert!(tag_hit >= 0.5, "best tag IoU {tag_hit}");
-    assert!(frame_hit >= 0.5, "best frame IoU {frame_hit}");
+    assert!(frame_hit < 0.1, "the frame is a border band, not a repeated patch (IoU {frame_hit})");
     // North Quay: fresh anatomy and film grain in every image; nothing should be static.
     let nq = find_repeated_patches(&folder(Site::NorthQuay), &RepeatedPatchSettings::default()).unwrap();
     eprintln!("north quay repeated patches: {:?}", nq.iter().map(|r| (r.bbox, r.area(), r.reason.clone())).collect::<Vec<_>>());

@@ -237,7 +237,8 @@ fn tag_box_on_grid(demo: &Path) -> [f64; 4] {
 
 fn hottest(out: &Path) -> BTreeMap<String, ([f64; 4], f64, f64)> {
     let g: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(out.join("groups.json")).unwrap()).unwrap();
-    g.as_array()
+    g["groups"]
+        .as_array()
         .unwrap()
         .iter()
         .map(|g| {

@@ -206,7 +206,12 @@ pub(super) fn sweep_body(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<I
             egui::ScrollArea::horizontal().id_salt("sweep table").show(ui, |ui| table(ui, app, &r, &order, out));
         });
         ui.separator();
-        egui::ScrollArea::vertical().id_salt("sweep atlas").auto_shrink([false, false]).show(ui, |ui| ui.vertical(|ui| atlases(ui, app, &r)));
+        egui::ScrollArea::vertical().id_salt("sweep atlas").auto_shrink([false, false]).show(ui, |ui| {
+            ui.vertical(|ui| {
+                recurring(ui, app, &r, out);
+                atlases(ui, app, &r);
+            })
+        });
     });
 }
 
@@ -320,6 +325,38 @@ fn group_line(g: &GroupSummary) -> String {
         g.mean_mark_share.as_ref().map_or("—".into(), |i| format!("{:.3}", i.estimate)),
         rate(&g.flip_rate)
     )
+}
+
+/// The recurring hotspots: one entry per cluster with its exemplars, what it is, and the
+/// action that marks all its images in the ledger.
+fn recurring(ui: &mut egui::Ui, app: &Inspector, r: &SweepDone, out: &mut Vec<Intent>) {
+    ui.label(RichText::new("recurring hotspots: places the map lights up again and again").strong());
+    if r.recurring.is_empty() {
+        ui.label(RichText::new("none: no hotspot recurs in enough images").small().color(look::ASH));
+    }
+    for ((c, _), texes) in r.recurring.iter().zip(&app.sweep.recurring_tex) {
+        let groups: Vec<String> = c.groups.iter().map(|(g, n)| format!("{g} {n}")).collect();
+        let flips = c.flip_rate.map_or("not tested".into(), |i| format!("{} of {} flip ({:.0} %)", c.flips, c.tested, 100.0 * i.estimate));
+        ui.label(RichText::new(format!("#{} · {} images · {} · {}", c.id, c.images, c.place_kind, flips)));
+        ui.label(
+            RichText::new(format!("looks like a mark {} of {} · {}", c.look_like_mark, c.hotspots, groups.join(", "))).small().color(look::ASH),
+        );
+        ui.horizontal(|ui| {
+            for (t, m) in texes.iter().zip(&c.exemplars) {
+                let [w, h] = t.size();
+                let side = 44.0 / w.max(h).max(1) as f32;
+                ui.add(egui::Image::new((t.id(), vec2(w as f32 * side, h as f32 * side)))).on_hover_text(format!("{} {:?}", m.path, m.bbox));
+            }
+        });
+        let can = app.ledger.ledger().is_some();
+        let b = ui.add_enabled(can, egui::Button::new("accept as mark").small());
+        let b = if can { b.on_hover_text("every image of the cluster: verdict marked, the hotspot's box drawn") } else { b.on_disabled_hover_text("open a ledger first") };
+        if b.clicked() {
+            out.push(Intent::AcceptCluster(c.id));
+        }
+        ui.add_space(6.0);
+    }
+    ui.separator();
 }
 
 fn atlases(ui: &mut egui::Ui, app: &Inspector, r: &SweepDone) {

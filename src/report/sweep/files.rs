@@ -4,7 +4,8 @@
 //!
 //! - `sweep.csv`, `sweep.jsonl`: one row per image ([`Row`]).
 //! - `skipped.csv`: the images that could not be read, and why.
-//! - `groups.json`: each group's figures ([`GroupSummary`]).
+//! - `groups.json`: each group's figures ([`GroupSummary`]) and the recurring hotspots
+//!   ([`crate::sweep::RecurringHotspot`]), as a [`GroupsFile`].
 //! - `atlas/NAME.png`: each group's atlas as a picture; `atlas/NAME.sum.npy` its exact sum.
 //! - `partial.json`: what merging needs (settings, images folder, shard, atlas counts).
 //! - `report.html`: the self-contained report.
@@ -20,7 +21,7 @@ use ndarray::{Array2, ArrayD};
 use serde::{Deserialize, Serialize};
 
 use super::pictures::{ThumbSource, atlas_picture, thumbnails};
-use crate::sweep::{AtlasSum, GroupSummary, Row, Shard, ShardResult, Skipped, summarise};
+use crate::sweep::{AtlasSum, GroupSummary, GroupsFile, RecurringSettings, Row, Shard, ShardResult, Skipped, find_recurring, summarise};
 
 #[derive(Serialize, Deserialize)]
 struct Partial {
@@ -72,6 +73,7 @@ fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
 pub fn write(result: &ShardResult, out: &Path, seconds: f64, thumbs: Option<&ThumbSource<'_>>) -> Result<Vec<GroupSummary>> {
     std::fs::create_dir_all(out.join("atlas")).with_context(|| format!("cannot create the output folder {} (check permissions or choose another --out)", out.display()))?;
     let groups = summarise(&result.rows, &result.atlas, &result.images_root)?;
+    let recurring = find_recurring(&result.rows, &RecurringSettings::default());
     let mut csv = csv::Writer::from_writer(vec![]);
     for r in &result.rows {
         csv.serialize(r.for_csv())?;
@@ -89,7 +91,9 @@ pub fn write(result: &ShardResult, out: &Path, seconds: f64, thumbs: Option<&Thu
         sk.write_record([&s.path, &s.reason])?;
     }
     write_atomic(&out.join("skipped.csv"), &sk.into_inner()?)?;
-    write_atomic(&out.join("groups.json"), (serde_json::to_string_pretty(&groups)? + "\n").as_bytes())?;
+    let file = GroupsFile { groups, recurring_hotspots: recurring };
+    write_atomic(&out.join("groups.json"), (serde_json::to_string_pretty(&file)? + "\n").as_bytes())?;
+    let GroupsFile { groups, recurring_hotspots: recurring } = file;
     let mut atlas_files = BTreeMap::new();
     for (g, a) in &result.atlas {
         let st = stem(g);
@@ -123,7 +127,7 @@ pub fn write(result: &ShardResult, out: &Path, seconds: f64, thumbs: Option<&Thu
         thumbs: thumb_files,
     };
     write_atomic(&out.join("partial.json"), (serde_json::to_string_pretty(&partial)? + "\n").as_bytes())?;
-    let html = super::html::sweep_html(result, &groups, &drawn)?;
+    let html = super::html::sweep_html(result, &groups, &recurring, &drawn)?;
     write_atomic(&out.join("report.html"), html.as_bytes())?;
     let facts = RunFacts {
         version: env!("CARGO_PKG_VERSION").into(),

@@ -10,16 +10,16 @@ use plotters::prelude::*;
 
 use super::pictures::{atlas_picture, png_bytes};
 use crate::sweep::stats::Interval;
-use crate::sweep::{GroupSummary, RANKED, Row, ShardResult, ranking};
+use crate::sweep::{GroupSummary, RANKED, RecurringHotspot, Row, ShardResult, ranking};
 
 /// Thumbnails by image path: the picture and its tinted map, PNG bytes.
 type Thumbs = std::collections::BTreeMap<String, (Vec<u8>, Vec<u8>)>;
 
-fn esc(s: &str) -> String {
+pub(super) fn esc(s: &str) -> String {
     s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('"', "&quot;")
 }
 
-fn data_uri(png: &[u8]) -> String {
+pub(super) fn data_uri(png: &[u8]) -> String {
     format!("data:image/png;base64,{}", base64::engine::general_purpose::STANDARD.encode(png))
 }
 
@@ -47,7 +47,7 @@ small{color:#667}.caution{border-left:4px solid #a998e6;padding:6px 10px;backgro
 .atlases figure{margin:0}img.pix{image-rendering:pixelated}figcaption{font-size:12px;max-width:300px}";
 
 /// The report of a finished sweep (or shard).
-pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary], thumbs: &Thumbs) -> Result<String> {
+pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary], recurring: &[RecurringHotspot], thumbs: &Thumbs) -> Result<String> {
     let rows = &result.rows;
     let mut h = String::new();
     let suspect = rows.iter().filter(|r| r.suspect).count();
@@ -78,6 +78,7 @@ pub fn sweep_html(result: &ShardResult, groups: &[GroupSummary], thumbs: &Thumbs
     completeness(&mut h, rows)?;
     groups_table(&mut h, groups)?;
     atlases(&mut h, result, groups)?;
+    super::recurring::section(&mut h, recurring, &result.images_root)?;
     writeln!(h, "<h2>Mark share by group</h2><p><small>Share of each image's supporting attribution on its found regions together.</small></p>")?;
     h.push_str(&histograms(rows, groups)?);
     ranked(&mut h, result, thumbs)?;
