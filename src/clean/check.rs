@@ -20,24 +20,14 @@ use crate::control::Control;
 use crate::feed::{FeedCard, OpenOptions, Picture};
 use crate::methods::{Input, top_index};
 use crate::model::{Model, Tap};
-use crate::sweep::stats::{Interval, wilson};
+use crate::sweep::stats::{self, Interval, Paired, wilson};
 use crate::sweep::{Exclude, Groups, Shard, plan};
 
 /// Newcombe's method-10 interval for p₂ − p₁ of paired binary outcomes: `both` right before and
-/// after, `lost` right before only, `gained` right after only, `neither`.
+/// after, `lost` right before only, `gained` right after only, `neither`. The sweep's
+/// [`stats::newcombe_paired`], whose tests check it on Newcombe's worked examples.
 pub fn newcombe_paired(both: usize, lost: usize, gained: usize, neither: usize) -> Option<Interval> {
-    let n = both + lost + gained + neither;
-    let before = wilson(both + lost, n)?;
-    let after = wilson(both + gained, n)?;
-    let (a, b, c, d) = (both as f64, lost as f64, gained as f64, neither as f64);
-    let denom = ((a + b) * (c + d) * (a + c) * (b + d)).sqrt();
-    let phi = if denom > 0.0 { (a * d - b * c) / denom } else { 0.0 };
-    let diff = after.estimate - before.estimate;
-    let (d_after, e_after) = (after.estimate - after.low, after.high - after.estimate);
-    let (d_before, e_before) = (before.estimate - before.low, before.high - before.estimate);
-    let low = diff - (d_after.powi(2) - 2.0 * phi * d_after * e_before + e_before.powi(2)).max(0.0).sqrt();
-    let high = diff + (e_after.powi(2) - 2.0 * phi * e_after * d_before + d_before.powi(2)).max(0.0).sqrt();
-    Some(Interval { estimate: diff, low: low.max(-1.0), high: high.min(1.0) })
+    stats::newcombe_paired(Paired { both, second_only: gained, first_only: lost, neither })
 }
 
 /// One group's figures.
