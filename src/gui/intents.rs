@@ -137,7 +137,7 @@ impl Inspector {
     }
 
     pub(crate) fn export(&mut self, what: ExportWhat) {
-        match super::export::plan(self, what) {
+        match super::slide::export::plan(self, what) {
             Ok(job) => {
                 self.workers.spawn(
                     "writing export",

@@ -32,7 +32,7 @@ pub enum Done {
     /// A sweep run here or read back from its files (`id` tells which start it answers).
     Sweep { id: u64, result: Result<super::sweep::SweepDone, String>, cancelled: bool },
     /// The sweep view's cleaning of the marked images.
-    Clean { result: Result<super::clean_work::CleanDone, String>, cancelled: bool },
+    Clean { result: Result<super::sweep::clean_work::CleanDone, String>, cancelled: bool },
     /// One thumbnail of the sweep `sweep`'s table.
     Thumb { sweep: u64, rel: String, result: Result<egui::ColorImage, String> },
     /// A job that sent its results through its outbox has ended.

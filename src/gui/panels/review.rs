@@ -483,7 +483,7 @@ fn shapley_section(ui: &mut egui::Ui, app: &mut Inspector, s: &Shapley, job: u64
             Some(_) => {
                 for c in &s.cells {
                     let r = to_screen(c.bbox);
-                    p.rect_filled(r, 0.0, crate::gui::review_work::value_colour(c.value, top));
+                    p.rect_filled(r, 0.0, crate::gui::review::review_work::value_colour(c.value, top));
                     p.rect_stroke(r, 0.0, Stroke::new(1.0, Color32::from_gray(90)), StrokeKind::Inside);
                     let g = p.layout_no_wrap(tick_label(c.value), FontId::proportional(10.0), look::CHALK);
                     if r.width() >= g.size().x + 6.0 && r.height() >= 16.0 {

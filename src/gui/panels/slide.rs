@@ -5,7 +5,7 @@ use egui::{Color32, Rect, RichText, Sense, Stroke, pos2, vec2};
 use super::fmt_value;
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
-use crate::gui::textures::LayerKey;
+use crate::gui::slide::textures::LayerKey;
 use crate::gui::look;
 use crate::gui::short_name;
 use crate::gui::state::*;
@@ -206,7 +206,7 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 }
                 Overlay::Contour => {
                     let edges = app.contour_edges(&lk, s);
-                    let stroke = Stroke::new(1.6, crate::gui::paint::contour_colour(app.view.sign));
+                    let stroke = Stroke::new(1.6, crate::gui::slide::paint::contour_colour(app.view.sign));
                     painter.extend(edges.iter().map(|[a, b]| egui::Shape::line_segment([place.to_screen(*a), place.to_screen(*b)], stroke)));
                 }
                 Overlay::Off => {}

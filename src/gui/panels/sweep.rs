@@ -102,7 +102,7 @@ fn clean_controls(ui: &mut egui::Ui, app: &Inspector, out: &mut Vec<Intent>) {
             }
         }
         None => {
-            let to = crate::gui::clean_work::default_clean_out(&r.images_root);
+            let to = crate::gui::sweep::clean_work::default_clean_out(&r.images_root);
             let hint = format!(
                 "paints the marks of the sweep's suspect images, and of the images the ledger marks marked, out into a copy of the folder \
                  ({}; the folder itself is never written), then opens the cleaned copy beside the original",

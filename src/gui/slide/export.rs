@@ -13,10 +13,10 @@ use crate::report::ReadingFile;
 use crate::render;
 use crate::sign::Sign;
 
-use super::app::Inspector;
-use super::intents::ExportWhat;
-use super::look;
-use super::state::{Overlay, Prepared, Shown};
+use crate::gui::app::Inspector;
+use crate::gui::intents::ExportWhat;
+use crate::gui::look;
+use crate::gui::state::{Overlay, Prepared, Shown};
 
 /// Everything an export needs, owned, so the worker can write it.
 pub enum ExportJob {
@@ -127,8 +127,8 @@ pub fn view_image(prepared: &Prepared, shown: &Shown, sign: Sign, overlay: Overl
         }
         Overlay::Contour => {
             let mut base = render::picture_rgb(pixels);
-            let edges = super::paint::mask_edges(&agree::top_mask(&agree::view(&shown.map, sign), share));
-            let c = super::paint::contour_colour(sign);
+            let edges = crate::gui::slide::paint::mask_edges(&agree::top_mask(&agree::view(&shown.map, sign), share));
+            let c = crate::gui::slide::paint::contour_colour(sign);
             paint_edges(&mut base, &edges, [c.r(), c.g(), c.b()]);
             base
         }
