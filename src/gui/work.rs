@@ -25,7 +25,7 @@ pub enum Done {
     Exported { result: Result<Vec<PathBuf>, String> },
     /// A DICOM picture drawn through a display window (`key` names the window).
     Display { path: PathBuf, key: String, result: Result<egui::ColorImage, String> },
-    /// The review panel's and the strip curves' jobs (src/gui/review.rs).
+    /// The review panel's and the strip curves' jobs (src/gui/review/mod.rs).
     Review(super::review::ReviewDone),
     /// A ledger opened (read) on a worker, ready to be kept by its own saving thread.
     Ledger { path: PathBuf, result: Result<crate::ledger::Store, String> },

@@ -67,7 +67,7 @@ pub(crate) fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Insp
         InspectorConfig::headless(dir),
     );
     // Keep the test quick: few fixed IG steps (the figures are compared for the same
-    // settings); the refined default is checked in src/gui/engine.rs.
+    // settings); the refined default is checked in src/gui/slide/engine.rs.
     app.form.steps = STEPS;
     app.form.refine = false;
     drive(app)

@@ -14,7 +14,6 @@ use crate::render;
 use crate::sign::Sign;
 
 use crate::gui::app::Inspector;
-use crate::gui::intents::ExportWhat;
 use crate::gui::look;
 use crate::gui::state::{Overlay, Prepared, Shown};
 
@@ -23,6 +22,15 @@ pub enum ExportJob {
     View { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown>, sign: Sign, overlay: Overlay, opacity: f32, share: f64, regions: bool },
     Strip { path: PathBuf, prepared: Arc<Prepared>, tiles: Vec<(String, Arc<Shown>)>, sign: Sign, per_map: bool },
     Json { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown> },
+}
+
+/// What an export writes. (Defined here rather than beside `Intent` so that the exports do not
+/// import the intents that call them.)
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ExportWhat {
+    View,
+    Strip,
+    Json,
 }
 
 fn slug(s: &str) -> String {

@@ -14,6 +14,9 @@ use crate::gui::work::Pick;
 use crate::ledger::Verdict;
 use crate::sweep::{GroupSummary, Row};
 
+pub(super) mod curate;
+pub(super) mod ledger;
+
 const ROW: f32 = 38.0;
 const THUMB: f32 = 34.0;
 const ATLAS_COLUMN: f32 = 300.0;

@@ -6,7 +6,7 @@
 
 use egui::{Color32, FontId, Rect, RichText, Sense, Stroke, StrokeKind, pos2, vec2};
 
-use super::plot::{Plot, legend_entry, legend_row, range_of};
+use self::plot::{Plot, legend_entry, legend_row, range_of};
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
 use crate::gui::look;
@@ -20,6 +20,10 @@ use crate::review::convergence::Convergence;
 use crate::review::curves::{Curve, Curves};
 use crate::review::randomise::{Cascade, MethodCascade};
 use crate::review::shapley::Shapley;
+
+mod plot;
+pub(super) mod review_strip;
+pub(super) mod strip;
 
 pub const CURVES_DEF: &str = "Deletion and insertion curves (Petsiuk, Das, Saenko 2018, RISE): the input's pixels \
 are replaced by the fill, most supporting first (deletion), or put back into the fill in the same order (insertion), and \
