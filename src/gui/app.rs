@@ -1,7 +1,7 @@
 //! The inspector: owns the state, draws the panels, applies their intents, runs jobs. The work
-//! is spread over the files beside this one: opening files ([`super::open`]), the readings
-//! ([`super::readings`]), finished jobs ([`super::results`]), intents ([`super::intents`]) and
-//! textures ([`super::textures`]).
+//! is spread over the files beside this one: opening files ([`super::slide::open`]), the readings
+//! ([`super::slide::readings`]), finished jobs ([`super::slide::results`]), intents ([`super::intents`]) and
+//! textures ([`super::slide::textures`]).
 
 use std::path::PathBuf;
 use std::sync::Arc;
@@ -10,12 +10,12 @@ use std::time::{Duration, Instant};
 use super::config::InspectorConfig;
 use super::form::Form;
 use super::intents::Intent;
-use super::ledger::LedgerState;
+use super::sweep::ledger::LedgerState;
 use super::sweep::SweepState;
 use super::panels;
 use super::recent::Recent;
 use super::state::*;
-use super::textures::Textures;
+use super::slide::textures::Textures;
 use super::work::Workers;
 use super::{GuiOptions, default_inputs};
 

@@ -4,6 +4,7 @@ use std::path::PathBuf;
 use std::time::{Duration, Instant};
 
 use super::app::Inspector;
+use super::slide::export::ExportWhat;
 use super::state::{JobId, NoteKind};
 use super::sweep::{BottomTab, Column};
 use super::work::{Done, Pick};
@@ -52,14 +53,6 @@ pub enum Intent {
     /// Accept the sweep's recurring hotspot with this number as a mark, for all its images.
     AcceptCluster(usize),
 }
-
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum ExportWhat {
-    View,
-    Strip,
-    Json,
-}
-
 
 impl Inspector {
     pub(crate) fn apply(&mut self, intents: Vec<Intent>) {
@@ -137,7 +130,7 @@ impl Inspector {
     }
 
     pub(crate) fn export(&mut self, what: ExportWhat) {
-        match super::export::plan(self, what) {
+        match super::slide::export::plan(self, what) {
             Ok(job) => {
                 self.workers.spawn(
                     "writing export",

@@ -8,27 +8,20 @@
 //! come from `spurion::methods`, region figures from `spurion::regions`, agreement and rank
 //! figures from `spurion::methods::agree`; this module only turns them into pixels and text.
 
+// The frame and the shared state sit here; the rooms a user sees each have a folder: the slide
+// and its reading (`slide`), the strip's review (`review`), the sweep and the ledger (`sweep`).
 pub mod app;
-pub mod clean_work;
 pub mod config;
-pub mod engine;
-pub mod export;
 pub mod form;
 pub mod intents;
-pub mod ledger;
 pub mod look;
-mod open;
-pub mod paint;
 pub mod panels;
-mod readings;
 pub mod recent;
 mod results;
 pub mod review;
-mod review_work;
+pub mod slide;
 pub mod state;
 pub mod sweep;
-pub mod sweep_work;
-pub mod textures;
 pub mod work;
 
 use std::path::{Path, PathBuf};

@@ -25,14 +25,14 @@ pub enum Done {
     Exported { result: Result<Vec<PathBuf>, String> },
     /// A DICOM picture drawn through a display window (`key` names the window).
     Display { path: PathBuf, key: String, result: Result<egui::ColorImage, String> },
-    /// The review panel's and the strip curves' jobs (src/gui/review.rs).
+    /// The review panel's and the strip curves' jobs (src/gui/review/mod.rs).
     Review(super::review::ReviewDone),
     /// A ledger opened (read) on a worker, ready to be kept by its own saving thread.
     Ledger { path: PathBuf, result: Result<crate::ledger::Store, String> },
     /// A sweep run here or read back from its files (`id` tells which start it answers).
     Sweep { id: u64, result: Result<super::sweep::SweepDone, String>, cancelled: bool },
     /// The sweep view's cleaning of the marked images.
-    Clean { result: Result<super::clean_work::CleanDone, String>, cancelled: bool },
+    Clean { result: Result<super::sweep::clean_work::CleanDone, String>, cancelled: bool },
     /// One thumbnail of the sweep `sweep`'s table.
     Thumb { sweep: u64, rel: String, result: Result<egui::ColorImage, String> },
     /// A job that sent its results through its outbox has ended.

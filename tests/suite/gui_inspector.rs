@@ -67,7 +67,7 @@ pub(crate) fn harness(images: Vec<PathBuf>, dir: &Path) -> Harness<'static, Insp
         InspectorConfig::headless(dir),
     );
     // Keep the test quick: few fixed IG steps (the figures are compared for the same
-    // settings); the refined default is checked in src/gui/engine.rs.
+    // settings); the refined default is checked in src/gui/slide/engine.rs.
     app.form.steps = STEPS;
     app.form.refine = false;
     drive(app)
@@ -264,7 +264,7 @@ fn with_no_arguments_the_first_view_is_a_marked_positive_under_the_default_basel
     // The command line with every setting at its default reads the same image the same way.
     let cli = crate::regions_e2e::explain_with_defaults(&model_path(), &want, &tmp.path().join("cli"));
     let prepared = h.state().current_prepared().unwrap();
-    let gui = spurion::gui::export::reading_json(&prepared, &shown).unwrap();
+    let gui = spurion::gui::slide::export::reading_json(&prepared, &shown).unwrap();
     for k in ["method", "settings", "baseline", "steps", "target", "score_kind", "suspect", "suspect_evidence"] {
         assert_eq!(gui[k], cli[k], "field {k}: inspector {} vs spurion explain {}", gui[k], cli[k]);
     }

@@ -4,8 +4,9 @@ use egui::RichText;
 
 use super::{fmt_opt, removal_text};
 use crate::gui::app::Inspector;
-use crate::gui::intents::{ExportWhat, Intent};
+use crate::gui::intents::Intent;
 use crate::gui::look;
+use crate::gui::slide::export::ExportWhat;
 use crate::gui::state::*;
 use crate::gui::work::Pick;
 use crate::gui::form::{BLACK_BASELINE_CAVEAT, method_menu};
@@ -217,7 +218,7 @@ pub fn controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
 
 
             ui.separator();
-            super::ledger::ledger_section(ui, app, out);
+            super::sweep::ledger::ledger_section(ui, app, out);
 
             if let Some((_, shown)) = app.current_shown() {
                 ui.separator();

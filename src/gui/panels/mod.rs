@@ -1,32 +1,32 @@
 //! The panels. Each draws the state it is given and pushes intents; settings that are plain
 //! values (the form, the view settings) are edited in place, as egui widgets do.
+//!
+//! The frame's own panels sit here (bars, controls, the slide, about, feed); the strip and the
+//! review have `review/` (the review panel, the baseline strip, its tiles' curves, the plots),
+//! the sweep and the ledger `sweep/` (the sweep view, the ledger section, the curator's bar).
 
 mod about;
 mod bars;
 mod controls;
-mod plot;
-mod review;
-mod review_strip;
-mod curate;
 mod feed;
-mod ledger;
+mod review;
 mod slide;
-mod strip;
 mod sweep;
 
 pub use about::{about, drop_hint, unsaved_on_close};
 pub use bars::{image_list, status_bar, top_bar};
 pub use controls::controls;
-pub use review::{cascade_text, convergence_text, deletion_text, insertion_text, review_panel, shapley_sum_text};
-pub use review_strip::{TILE_KEYS, tile_key_name};
-pub use curate::{shape_of, verdict_word};
 pub use feed::feed_window;
+pub use review::review_strip::{TILE_KEYS, tile_key_name};
+pub use review::strip::{agreement_cell_overlap, agreement_cell_rho};
+pub use review::{cascade_text, convergence_text, deletion_text, insertion_text, review_panel, shapley_sum_text};
 pub use slide::slide;
-pub use strip::{agreement_cell_overlap, agreement_cell_rho};
+pub use sweep::curate::{shape_of, verdict_word};
 
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
 use crate::gui::sweep::BottomTab;
+use review::{review_strip, strip};
 
 /// The bottom panel: the baseline strip or the sweep, one tab each (each keeps its own height).
 pub fn bottom_panel(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {

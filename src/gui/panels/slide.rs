@@ -5,7 +5,7 @@ use egui::{Color32, Rect, RichText, Sense, Stroke, pos2, vec2};
 use super::fmt_value;
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
-use crate::gui::textures::LayerKey;
+use crate::gui::slide::textures::LayerKey;
 use crate::gui::look;
 use crate::gui::short_name;
 use crate::gui::state::*;
@@ -91,7 +91,7 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
         };
         let path = entry.path.clone();
         // The verdict bar first: an image that cannot be opened can still be given its verdict.
-        super::curate::curator_bar(ui, app, &path, out);
+        super::sweep::curate::curator_bar(ui, app, &path, out);
         let Some(entry) = app.current_image() else { return };
         let prepared = match &entry.state {
             ImageState::Ready(p) => p.clone(),
@@ -181,7 +181,7 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
         }
         let place = SlidePlace { origin: pos2(rect.center().x - centre[0] * zoom, rect.center().y - centre[1] * zoom), zoom };
         app.slide_place = Some(place);
-        super::curate::draw_drag(app, &resp, &place, &path, [w as usize, h as usize], out);
+        super::sweep::curate::draw_drag(app, &resp, &place, &path, [w as usize, h as usize], out);
         let img_rect = Rect::from_min_max(place.to_screen([0.0, 0.0]), place.to_screen([w, h]));
         let painter = ui.painter_at(rect);
         let uv = Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0));
@@ -206,7 +206,7 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 }
                 Overlay::Contour => {
                     let edges = app.contour_edges(&lk, s);
-                    let stroke = Stroke::new(1.6, crate::gui::paint::contour_colour(app.view.sign));
+                    let stroke = Stroke::new(1.6, crate::gui::slide::paint::contour_colour(app.view.sign));
                     painter.extend(edges.iter().map(|[a, b]| egui::Shape::line_segment([place.to_screen(*a), place.to_screen(*b)], stroke)));
                 }
                 Overlay::Off => {}
@@ -218,10 +218,10 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
             let stroke = Stroke::new(1.4, look::REGION);
             for (i, (r, edges)) in prepared.regions.iter().zip(&prepared.region_edges).enumerate() {
                 painter.extend(edges.iter().map(|[a, b]| egui::Shape::line_segment([place.to_screen(*a), place.to_screen(*b)], stroke)));
-                let figures = shown.as_ref().and_then(|s| super::curate::figures_text(s, i));
+                let figures = shown.as_ref().and_then(|s| super::sweep::curate::figures_text(s, i));
                 // Label inside the image near the region's corner, clamped to the panel.
                 let at = place.to_screen([r.bbox[0] as f32, r.bbox[3] as f32]);
-                super::curate::region_label(&painter, rect, at, format!("{}{}", r.label(), figures.unwrap_or_default()), look::REGION, &mut taken);
+                super::sweep::curate::region_label(&painter, rect, at, format!("{}{}", r.label(), figures.unwrap_or_default()), look::REGION, &mut taken);
             }
         }
         if app.view.show_regions
@@ -234,10 +234,10 @@ pub fn slide(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
                 let [x0, y0, x1, y1] = h.bbox.map(|v| v as f32);
                 let c = [[x0, y0], [x1, y0], [x1, y1], [x0, y1]].map(|p| place.to_screen(p));
                 painter.extend((0..4).map(|i| egui::Shape::line_segment([c[i], c[(i + 1) % 4]], stroke)));
-                super::curate::region_label(&painter, rect, c[3], format!("hotspot: {}", h.role.name()), colour, &mut taken);
+                super::sweep::curate::region_label(&painter, rect, c[3], format!("hotspot: {}", h.role.name()), colour, &mut taken);
             }
         }
-        super::curate::paint_drawn(&painter, rect, app, &place, &path, shown.as_deref(), prepared.regions.len(), &mut taken);
+        super::sweep::curate::paint_drawn(&painter, rect, app, &place, &path, shown.as_deref(), prepared.regions.len(), &mut taken);
 
         // Hover readout.
         let readout = resp.hover_pos().filter(|p| img_rect.contains(*p)).map(|p| {

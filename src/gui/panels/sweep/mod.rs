@@ -14,6 +14,9 @@ use crate::gui::work::Pick;
 use crate::ledger::Verdict;
 use crate::sweep::{GroupSummary, Row};
 
+pub(super) mod curate;
+pub(super) mod ledger;
+
 const ROW: f32 = 38.0;
 const THUMB: f32 = 34.0;
 const ATLAS_COLUMN: f32 = 300.0;
@@ -102,7 +105,7 @@ fn clean_controls(ui: &mut egui::Ui, app: &Inspector, out: &mut Vec<Intent>) {
             }
         }
         None => {
-            let to = crate::gui::clean_work::default_clean_out(&r.images_root);
+            let to = crate::gui::sweep::clean_work::default_clean_out(&r.images_root);
             let hint = format!(
                 "paints the marks of the sweep's suspect images, and of the images the ledger marks marked, out into a copy of the folder \
                  ({}; the folder itself is never written), then opens the cleaned copy beside the original",

@@ -4,7 +4,7 @@
 
 use egui::{Key as K, Modifiers, RichText, Role, Stroke, StrokeKind, WidgetInfo, vec2};
 
-use super::review::{CURVES_DEF, both_curves_plot, deletion_insertion_colours};
+use super::{CURVES_DEF, both_curves_plot, deletion_insertion_colours};
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
 use crate::gui::look;
@@ -100,8 +100,8 @@ pub fn tile_curves(ui: &mut egui::Ui, app: &Inspector, k: &Key, width: f32) {
             .response
             .on_hover_text(format!(
                 "{}\n{}\nfill {}; score at the input {:.3}, at the fill {:.3}\n\nAmber: deletion; teal: insertion. Solid: the map's order; dashed: random orders.",
-                super::review::deletion_text(&c.deletion),
-                super::review::insertion_text(&c.insertion),
+                super::deletion_text(&c.deletion),
+                super::insertion_text(&c.insertion),
                 c.fill,
                 c.score_input,
                 c.score_fill

@@ -8,10 +8,10 @@ use ndarray::Array2;
 
 use crate::methods::agree;
 
-use super::app::Inspector;
-use super::short_name;
-use super::state::*;
-use super::work::Done;
+use crate::gui::app::Inspector;
+use crate::gui::short_name;
+use crate::gui::state::*;
+use crate::gui::work::Done;
 
 impl Inspector {
     pub fn current_image(&self) -> Option<&ImageEntry> {
@@ -73,8 +73,8 @@ impl Inspector {
             true,
             move |ctl, _| {
                 let r = match &earlier {
-                    Some(shown) => super::engine::reassess(&session, &prepared, shown, &k.drawn),
-                    None => super::engine::read(&session, &prepared, &k.request, &k.drawn, ctl),
+                    Some(shown) => crate::gui::slide::engine::reassess(&session, &prepared, shown, &k.drawn),
+                    None => crate::gui::slide::engine::read(&session, &prepared, &k.request, &k.drawn, ctl),
                 };
                 let cancelled = r.as_ref().err().is_some_and(crate::model::is_cancelled) || ctl.is_cancelled();
                 Done::Reading { key: k, result: r.map_err(|e| format!("{e:#}")), cancelled }
@@ -142,12 +142,12 @@ impl Inspector {
         };
         let keys = missing.clone();
         let label = format!("baseline strip · {} maps", keys.len());
-        let job = move |ctl: &crate::control::Control, outbox: &super::work::Outbox| {
+        let job = move |ctl: &crate::control::Control, outbox: &crate::gui::work::Outbox| {
             for k in keys {
                 if ctl.is_cancelled() {
                     break;
                 }
-                let r = super::engine::read(&session, &prepared, &k.request, &k.drawn, ctl);
+                let r = crate::gui::slide::engine::read(&session, &prepared, &k.request, &k.drawn, ctl);
                 let cancelled = r.as_ref().err().is_some_and(crate::model::is_cancelled) || ctl.is_cancelled();
                 outbox.send(Done::Reading { key: k, result: r.map_err(|e| format!("{e:#}")), cancelled });
             }

@@ -3,10 +3,10 @@
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
-use super::app::Inspector;
-use super::short_name;
-use super::state::{ImageEntry, ImageState, NoteKind};
-use super::work::{Done, Pick};
+use crate::gui::app::Inspector;
+use crate::gui::short_name;
+use crate::gui::state::{ImageEntry, ImageState, NoteKind};
+use crate::gui::work::{Done, Pick};
 
 impl Inspector {
     pub fn open_model(&mut self, path: &Path) {
@@ -17,7 +17,7 @@ impl Inspector {
         let (id, _) = self.workers.spawn(
             format!("loading model {}", short_name(path)),
             false,
-            move |_ctl, _| Done::Model { result: super::engine::load_session(&p).map_err(|e| format!("{e:#}")), path: p },
+            move |_ctl, _| Done::Model { result: crate::gui::slide::engine::load_session(&p).map_err(|e| format!("{e:#}")), path: p },
             move |msg| Done::Model { path: q, result: Err(msg) },
         );
         self.model_job = Some(id);
@@ -36,7 +36,7 @@ impl Inspector {
         let (id, _) = self.workers.spawn(
             format!("writing the feed card of {}", short_name(&p)),
             false,
-            move |_ctl, _| Done::Model { result: super::engine::write_card(&session, preset, labels).map_err(|e| format!("{e:#}")), path: p },
+            move |_ctl, _| Done::Model { result: crate::gui::slide::engine::write_card(&session, preset, labels).map_err(|e| format!("{e:#}")), path: p },
             move |msg| Done::Model { path: q, result: Err(msg) },
         );
         self.model_job = Some(id);
@@ -160,7 +160,7 @@ impl Inspector {
         self.workers.spawn(
             format!("opening {}", short_name(&p)),
             false,
-            move |_ctl, _| Done::Image { result: super::engine::prepare(&session, &p).map_err(|e| format!("{e:#}")), path: p },
+            move |_ctl, _| Done::Image { result: crate::gui::slide::engine::prepare(&session, &p).map_err(|e| format!("{e:#}")), path: p },
             move |msg| Done::Image { path: q, result: Err(msg) },
         );
     }
@@ -196,7 +196,7 @@ impl Inspector {
             }
             Pick::SweepImages => {
                 self.sweep.images_field = paths[0].display().to_string();
-                self.sweep.out_field = super::sweep::default_out(&paths[0]).display().to_string();
+                self.sweep.out_field = crate::gui::sweep::default_out(&paths[0]).display().to_string();
             }
             Pick::SweepOut => self.sweep.out_field = paths[0].display().to_string(),
         }

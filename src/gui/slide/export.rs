@@ -13,16 +13,24 @@ use crate::report::ReadingFile;
 use crate::render;
 use crate::sign::Sign;
 
-use super::app::Inspector;
-use super::intents::ExportWhat;
-use super::look;
-use super::state::{Overlay, Prepared, Shown};
+use crate::gui::app::Inspector;
+use crate::gui::look;
+use crate::gui::state::{Overlay, Prepared, Shown};
 
 /// Everything an export needs, owned, so the worker can write it.
 pub enum ExportJob {
     View { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown>, sign: Sign, overlay: Overlay, opacity: f32, share: f64, regions: bool },
     Strip { path: PathBuf, prepared: Arc<Prepared>, tiles: Vec<(String, Arc<Shown>)>, sign: Sign, per_map: bool },
     Json { path: PathBuf, prepared: Arc<Prepared>, shown: Arc<Shown> },
+}
+
+/// What an export writes. (Defined here rather than beside `Intent` so that the exports do not
+/// import the intents that call them.)
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ExportWhat {
+    View,
+    Strip,
+    Json,
 }
 
 fn slug(s: &str) -> String {
@@ -127,8 +135,8 @@ pub fn view_image(prepared: &Prepared, shown: &Shown, sign: Sign, overlay: Overl
         }
         Overlay::Contour => {
             let mut base = render::picture_rgb(pixels);
-            let edges = super::paint::mask_edges(&agree::top_mask(&agree::view(&shown.map, sign), share));
-            let c = super::paint::contour_colour(sign);
+            let edges = crate::gui::slide::paint::mask_edges(&agree::top_mask(&agree::view(&shown.map, sign), share));
+            let c = crate::gui::slide::paint::contour_colour(sign);
             paint_edges(&mut base, &edges, [c.r(), c.g(), c.b()]);
             base
         }

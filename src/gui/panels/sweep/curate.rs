@@ -5,7 +5,7 @@ use std::path::Path;
 
 use egui::{Color32, FontId, Painter, Pos2, Rect, Response, RichText, Stroke, pos2, vec2};
 
-use super::{fmt_opt, removal_text};
+use crate::gui::panels::{fmt_opt, removal_text};
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
 use crate::gui::look;
@@ -23,7 +23,7 @@ pub fn verdict_word(v: Option<Verdict>) -> &'static str {
 }
 
 /// The verdict buttons, the note, the drawing tools and the ledger's status, above the picture.
-pub(super) fn curator_bar(ui: &mut egui::Ui, app: &mut Inspector, path: &Path, out: &mut Vec<Intent>) {
+pub(in crate::gui::panels) fn curator_bar(ui: &mut egui::Ui, app: &mut Inspector, path: &Path, out: &mut Vec<Intent>) {
     let key = app.ledger.key_of(path);
     let entry = app.ledger.entry_of(path).cloned();
     let verdict = entry.as_ref().and_then(|e| e.verdict);
@@ -106,7 +106,7 @@ pub fn shape_of(mode: DrawMode, points: &[[f32; 2]], size: [usize; 2]) -> Result
 
 /// Dragging on the slide in a drawing mode: the shape grows while the button is down and is
 /// added to the ledger when it is let go.
-pub(super) fn draw_drag(app: &mut Inspector, resp: &Response, place: &SlidePlace, path: &Path, size: [usize; 2], out: &mut Vec<Intent>) {
+pub(in crate::gui::panels) fn draw_drag(app: &mut Inspector, resp: &Response, place: &SlidePlace, path: &Path, size: [usize; 2], out: &mut Vec<Intent>) {
     let mode = app.draw.mode;
     if mode == DrawMode::Off {
         return;
@@ -151,7 +151,7 @@ pub(super) fn draw_drag(app: &mut Inspector, resp: &Response, place: &SlidePlace
 
 /// A label on a dark ground near `at`, kept inside `clip`, moved down past the labels already
 /// put in `taken` so that two regions' labels never cover each other.
-pub(super) fn region_label(painter: &Painter, clip: Rect, at: Pos2, text: String, colour: Color32, taken: &mut Vec<Rect>) {
+pub(in crate::gui::panels) fn region_label(painter: &Painter, clip: Rect, at: Pos2, text: String, colour: Color32, taken: &mut Vec<Rect>) {
     // Wrapped to the slide's width and moved left as far as needed, so that a long label on a
     // small slide (the sweep tab open, a small window) is read whole, never cut at the edge.
     let galley = painter.layout(text, FontId::proportional(12.0), colour, (clip.width() - 10.0).max(80.0));
@@ -168,7 +168,7 @@ pub(super) fn region_label(painter: &Painter, clip: Rect, at: Pos2, text: String
 }
 
 /// The figures of a region as its label says them.
-pub(super) fn figures_text(s: &Shown, i: usize) -> Option<String> {
+pub(in crate::gui::panels) fn figures_text(s: &Shown, i: usize) -> Option<String> {
     let rr = s.assessment.regions.get(i)?;
     let removal = rr.removal.as_ref().map(|x| format!(" · {}", removal_text(x, s.reading.target.index))).unwrap_or_default();
     Some(format!(" · share {} · lift {}{removal}", fmt_opt(rr.figures.mark_share, 2), fmt_opt(rr.figures.lift, 1)))
@@ -195,7 +195,7 @@ fn shape_points(s: &Shape) -> Vec<[f32; 2]> {
 /// labelled with its figures once the reading has them (they follow the `found` found regions
 /// in the assessment), and the shape being drawn.
 #[allow(clippy::too_many_arguments)]
-pub(super) fn paint_drawn(painter: &Painter, clip: Rect, app: &Inspector, place: &SlidePlace, path: &Path, shown: Option<&Shown>, found: usize, taken: &mut Vec<Rect>) {
+pub(in crate::gui::panels) fn paint_drawn(painter: &Painter, clip: Rect, app: &Inspector, place: &SlidePlace, path: &Path, shown: Option<&Shown>, found: usize, taken: &mut Vec<Rect>) {
     let stroke = Stroke::new(1.6, look::REGION);
     let drawn = app.ledger.drawn_of(path);
     for (j, d) in drawn.shapes().iter().enumerate() {

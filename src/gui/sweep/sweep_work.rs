@@ -18,8 +18,8 @@ use crate::regions::DrawnFile;
 use crate::report::sweep::{self as files, ThumbSource, pictures};
 use crate::sweep::{self, Cache, Exclude, Groups, Setup, Shard, ShardResult, SweepLedger};
 
-use super::state::Session;
-use super::sweep::SweepDone;
+use crate::gui::state::Session;
+use crate::gui::sweep::SweepDone;
 
 /// What the table's thumbnails need to find an image's map in the sweep's cache.
 pub struct ThumbLookup {

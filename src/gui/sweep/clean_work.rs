@@ -15,10 +15,10 @@ use crate::feed::OpenOptions;
 use crate::ledger::Verdict;
 use crate::regions::RegionKind;
 
-use super::app::Inspector;
-use super::short_name;
-use super::state::{JobId, NoteKind};
-use super::work::Done;
+use crate::gui::app::Inspector;
+use crate::gui::short_name;
+use crate::gui::state::{JobId, NoteKind};
+use crate::gui::work::Done;
 
 /// The cleaning job of the sweep view.
 #[derive(Default)]

@@ -19,7 +19,7 @@ fn shape_text(s: &Shape) -> String {
     }
 }
 
-pub(super) fn ledger_section(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
+pub(in crate::gui::panels) fn ledger_section(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     ui.heading("Ledger");
     if let Some(p) = &app.ledger.path {
         // The file by its folder and name (the whole path on hover), so no machine's path shows.

@@ -6,7 +6,7 @@
 
 use egui::{Color32, FontId, Rect, RichText, Sense, Stroke, StrokeKind, pos2, vec2};
 
-use super::plot::{Plot, legend_entry, legend_row, range_of};
+use self::plot::{Plot, legend_entry, legend_row, range_of};
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
 use crate::gui::look;
@@ -20,6 +20,10 @@ use crate::review::convergence::Convergence;
 use crate::review::curves::{Curve, Curves};
 use crate::review::randomise::{Cascade, MethodCascade};
 use crate::review::shapley::Shapley;
+
+mod plot;
+pub(super) mod review_strip;
+pub(super) mod strip;
 
 pub const CURVES_DEF: &str = "Deletion and insertion curves (Petsiuk, Das, Saenko 2018, RISE): the input's pixels \
 are replaced by the fill, most supporting first (deletion), or put back into the fill in the same order (insertion), and \
@@ -483,7 +487,7 @@ fn shapley_section(ui: &mut egui::Ui, app: &mut Inspector, s: &Shapley, job: u64
             Some(_) => {
                 for c in &s.cells {
                     let r = to_screen(c.bbox);
-                    p.rect_filled(r, 0.0, crate::gui::review_work::value_colour(c.value, top));
+                    p.rect_filled(r, 0.0, crate::gui::review::review_work::value_colour(c.value, top));
                     p.rect_stroke(r, 0.0, Stroke::new(1.0, Color32::from_gray(90)), StrokeKind::Inside);
                     let g = p.layout_no_wrap(tick_label(c.value), FontId::proportional(10.0), look::CHALK);
                     if r.width() >= g.size().x + 6.0 && r.height() >= 16.0 {

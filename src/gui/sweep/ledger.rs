@@ -11,10 +11,10 @@ use crate::ledger::{BackgroundStore, Change, DiskWriter, Edit, Entry, Ledger, St
 use crate::regions::DrawnFile;
 use crate::regions::drawn::DrawnShape;
 
-use super::app::Inspector;
-use super::short_name;
-use super::state::{Drawn, JobId, NoteKind};
-use super::work::Done;
+use crate::gui::app::Inspector;
+use crate::gui::short_name;
+use crate::gui::state::{Drawn, JobId, NoteKind};
+use crate::gui::work::Done;
 
 /// The ledger as the inspector holds it.
 #[derive(Default)]

@@ -15,9 +15,9 @@ use crate::review::shapley::Shapley;
 use crate::review::{self, Case, Review, Settings};
 use crate::sign::Sign;
 
-use super::review::{CurveKey, ReviewDone, ReviewImages, ReviewResult};
-use super::state::{Prepared, Session, Shown};
-use super::work::{Done, Outbox};
+use crate::gui::review::{CurveKey, ReviewDone, ReviewImages, ReviewResult};
+use crate::gui::state::{Prepared, Session, Shown};
+use crate::gui::work::{Done, Outbox};
 
 /// The whole review of `request` on the prepared image: `review::run`, as `spurion review`
 /// calls it, each phase reported as it starts.
@@ -78,7 +78,7 @@ pub fn value_colour(v: f64, top: f64) -> Color32 {
 /// as the picture's texture is.
 fn region_values(s: &Shapley, h: usize, w: usize) -> ColorImage {
     let top = s.cells.iter().map(|c| c.value.abs()).fold(0.0, f64::max);
-    let step = super::paint::texture_step(h, w);
+    let step = crate::gui::slide::paint::texture_step(h, w);
     let (th, tw) = (h.div_ceil(step), w.div_ceil(step));
     let mut px = vec![Color32::TRANSPARENT; th * tw];
     for c in &s.cells {

@@ -1,6 +1,6 @@
 //! The sweep in the inspector: what the sweep view edits (folders, filters, the sort), the
 //! finished sweep it shows, and the rows in the order and selection the view asks for. The
-//! sweep itself, its files and its thumbnails are made on workers ([`super::sweep_work`]).
+//! sweep itself, its files and its thumbnails are made on workers ([`sweep_work`]).
 
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
@@ -11,10 +11,14 @@ use egui::TextureHandle;
 use crate::ledger::{Ledger, Verdict};
 use crate::sweep::{GroupSummary, RecurringHotspot, Row, Skipped};
 
+pub mod clean_work;
+pub mod ledger;
+pub mod sweep_work;
+
 use super::app::Inspector;
 use super::short_name;
+use self::sweep_work::ThumbLookup;
 use super::state::{JobId, NoteKind};
-use super::sweep_work::{self, ThumbLookup};
 use super::work::Done;
 
 /// What the bottom panel shows.
@@ -159,7 +163,7 @@ pub struct SweepState {
     keys: Vec<Option<String>>,
     keys_for: Option<(u64, Option<PathBuf>)>,
     /// The cleaning of the marked images.
-    pub clean: super::clean_work::CleanState,
+    pub clean: clean_work::CleanState,
 }
 
 impl Default for SweepState {

@@ -1,5 +1,5 @@
 //! The calls into the engine that worker jobs make. Each hands the engine its own typed request
-//! and turns engine results into [`super::state`] types; none computes anything itself.
+//! and turns engine results into [`crate::gui::state`] types; none computes anything itself.
 
 use std::path::Path;
 use std::sync::Arc;
@@ -14,8 +14,8 @@ use crate::methods::{self, Input, Reading, Request};
 use crate::model::{Model, Tap};
 use crate::regions::{FinderSettings, FlagSettings, find_regions_in, paint_out_all};
 
-use super::paint;
-use super::state::{Drawn, Prepared, Session, Shown};
+use crate::gui::slide::paint;
+use crate::gui::state::{Drawn, Prepared, Session, Shown};
 
 pub fn load_session(path: &Path) -> Result<Session> {
     let model = Model::load(path, &FeedCard::sidecar_load_options(path)?)?;
@@ -36,7 +36,7 @@ pub fn load_session(path: &Path) -> Result<Session> {
 }
 
 fn short(p: &Path) -> String {
-    super::short_name(p)
+    crate::gui::short_name(p)
 }
 
 /// Opens an image, scores it and finds its regions.

@@ -9,10 +9,10 @@ use egui::TextureHandle;
 use crate::methods::agree;
 use crate::sign::Sign;
 
-use super::app::Inspector;
-use super::paint;
-use super::state::{Key, Overlay, Prepared, Shown};
-use super::work::Done;
+use crate::gui::app::Inspector;
+use crate::gui::slide::paint;
+use crate::gui::state::{Key, Overlay, Prepared, Shown};
+use crate::gui::work::Done;
 
 /// Texture caches, keyed by what they show.
 #[derive(Default)]
@@ -82,7 +82,7 @@ impl Inspector {
                 self.workers.spawn(
                     "display window",
                     false,
-                    move |_, _| Done::Display { result: super::engine::display_image(&picture, &w).map_err(|e| format!("{e:#}")), path: p, key: k },
+                    move |_, _| Done::Display { result: crate::gui::slide::engine::display_image(&picture, &w).map_err(|e| format!("{e:#}")), path: p, key: k },
                     move |msg| Done::Display { path: q, key: k2, result: Err(msg) },
                 );
             }

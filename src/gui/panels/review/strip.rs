@@ -2,7 +2,7 @@
 
 use egui::{Color32, Rect, RichText, Sense, pos2, vec2};
 
-use super::fmt_opt;
+use crate::gui::panels::fmt_opt;
 use crate::gui::app::Inspector;
 use crate::gui::intents::Intent;
 use crate::gui::look;
@@ -11,7 +11,7 @@ use crate::gui::state::*;
 // -------------------------------------------------------------------- baseline strip
 
 /// The strip's controls, beside the bottom panel's tabs.
-pub(super) fn strip_controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
+pub(in crate::gui::panels) fn strip_controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     let enabled = app.form.method.entry().in_strip;
     if ui
         .add_enabled(enabled, egui::Button::new("Compute strip"))
@@ -31,7 +31,7 @@ pub(super) fn strip_controls(ui: &mut egui::Ui, app: &mut Inspector, out: &mut V
 }
 
 /// The strip's maps and agreement matrix.
-pub(super) fn strip_body(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
+pub(in crate::gui::panels) fn strip_body(ui: &mut egui::Ui, app: &mut Inspector, out: &mut Vec<Intent>) {
     let Some(plan) = app.strip.wanted.clone() else {
         ui.label(
             RichText::new("The same image under black, grey, blur, uniform noise, Gaussian noise, dataset mean and custom baselines, on one colour scale, with how far the maps agree.")

@@ -20,6 +20,8 @@ use crate::review::randomise::CascadeSettings;
 use crate::review::shapley::{Players, ShapleySettings};
 use crate::review::{self, Phase, Review, Settings, defaults as d};
 
+pub(super) mod review_work;
+
 use super::app::Inspector;
 use super::short_name;
 use super::state::{JobId, Key, NoteKind};
@@ -294,7 +296,7 @@ impl Inspector {
             label,
             true,
             move |ctl, outbox| {
-                let r = super::review_work::run(&session, &prepared, &req, &settings, ctl, outbox);
+                let r = review_work::run(&session, &prepared, &req, &settings, ctl, outbox);
                 let cancelled = r.as_ref().err().is_some_and(crate::model::is_cancelled) || ctl.is_cancelled();
                 Done::Review(ReviewDone::Finished { result: r.map_err(|e| format!("{e:#}")), cancelled })
             },
@@ -384,7 +386,7 @@ impl Inspector {
             format!("deletion and insertion curves · {} maps", todo.len()),
             true,
             move |ctl, outbox| {
-                super::review_work::strip_curves(&session, &prepared, todo, &settings, ctl, outbox);
+                review_work::strip_curves(&session, &prepared, todo, &settings, ctl, outbox);
                 Done::Review(ReviewDone::StripEnded)
             },
             |msg| Done::Failed(format!("the strip's curves stopped: {msg}")),
