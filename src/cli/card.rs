@@ -71,6 +71,10 @@ pub fn run(a: &CardArgs) -> Result<()> {
         (None, _) => "the mean and std given".to_string(),
     };
     let text = crate::feed::card_text(&card, &a.model, &how)?;
+    // `--out` may name a folder that is not there yet, as explain's and sweep's do.
+    if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty() && !d.exists()) {
+        std::fs::create_dir_all(dir).with_context(|| format!("cannot create the folder {} for the feed card", dir.display()))?;
+    }
     crate::feed::write_card(&path, &text, a.force).with_context(|| format!("the feed card of {}", a.model.display()))?;
     println!("wrote {}:\n\n{text}", path.display());
     if let Some(g) = model.input_normalisation() {

@@ -228,7 +228,7 @@ fn hotspot_line(h: &crate::regions::HotspotReport) -> String {
     let removal = h
         .removal
         .as_ref()
-        .map(|r| format!("; painted out: probability drop {:.2}, top class after {}", r.probability_drop, r.top))
+        .map(|r| format!("; painted out: probability drop {:.2}, top class after {}", r.probability_drop, r.top_class()))
         .unwrap_or_default();
     format!(
         "{}: share {:.2}, mark-likeness {:.2} (saturation {:.2}, edge sharpness {:.2}, thinness {:.2}, outside foreground {:.2}){removal} -> {}",

@@ -419,7 +419,16 @@ fn a_sweep_carries_each_images_hotspots() {
         std::fs::read_to_string(out.join("sweep.jsonl")).unwrap().lines().map(|l| serde_json::from_str(l).unwrap()).collect();
     assert_eq!(rows.len(), 4);
     let suspect = rows.iter().filter(|r| r.hotspots.iter().any(|h| h.role == HotspotRole::SuspectMark)).count();
-    assert!(suspect >= 3, "{suspect}/4 rows with a suspect hotspot");
+    let said: Vec<String> = rows
+        .iter()
+        .map(|r| format!("{}: {} [{}]", r.path, r.hotspot_summary, r.hotspots.iter().map(|h| format!("{:?} drop {:?}", h.role, h.removal.as_ref().map(|x| x.probability_drop))).collect::<Vec<_>>().join(", ")))
+        .collect();
+    // 4 of 4 when written, under the blur baseline; 2 of 4 under the default of four noise draws
+    // (on 0.png the ring is not the top of the map, on 2.png its strokes alone do not move the
+    // score, so it is the model's evidence). The rate is measured on 40 images in
+    // `suspect_rates_with_every_setting_at_its_default`; here the sweep must carry what the
+    // reading found.
+    assert!(suspect >= 2, "{suspect}/4 rows with a suspect hotspot:\n{}", said.join("\n"));
     for r in &rows {
         for h in &r.hotspots {
             assert_eq!(h.image_size, [N, N]);
@@ -432,7 +441,7 @@ fn a_sweep_carries_each_images_hotspots() {
     let col = csv.headers().unwrap().iter().position(|c| c == "hotspot_summary").expect("a hotspot_summary column");
     assert!(!csv.headers().unwrap().iter().any(|c| c == "hotspots"), "the list stays out of the table");
     let said: Vec<String> = csv.records().map(|r| r.unwrap()[col].to_string()).collect();
-    assert!(said.iter().filter(|s| s.contains("suspect mark")).count() >= 3, "{said:?}");
+    assert_eq!(said.iter().filter(|s| s.contains("suspect mark")).count(), suspect, "the table says what sweep.jsonl holds: {said:?}");
     // A second sweep reads every row from the cache, hotspots included.
     let out2 = tmp.path().join("out2");
     let o = std::process::Command::new(env!("CARGO_BIN_EXE_spurion"))

@@ -53,12 +53,12 @@ fn flag_banner(ui: &mut egui::Ui, shown: &Shown) {
     if a.suspect {
         egui::Frame::new().fill(look::SIGNAL).inner_margin(6.0).corner_radius(3.0).show(ui, |ui| {
             ui.set_width(ui.available_width());
-            ui.label(RichText::new(format!("SUSPECT — {}", a.reason)).color(Color32::WHITE).strong());
+            ui.label(RichText::new(format!("SUSPECT — {}", first_clause(&a.reason))).color(Color32::WHITE).strong()).on_hover_text(&a.reason);
         });
     } else {
         egui::Frame::new().stroke(Stroke::new(1.0, look::MOSS)).inner_margin(6.0).corner_radius(3.0).show(ui, |ui| {
             ui.set_width(ui.available_width());
-            ui.label(RichText::new(format!("not suspect — {}", a.reason)).color(look::MOSS));
+            ui.label(RichText::new(format!("not suspect — {}", first_clause(&a.reason))).color(look::MOSS)).on_hover_text(&a.reason);
         });
     }
     if let Some(s) = shown.reading.completeness_shortfall() {
@@ -66,6 +66,18 @@ fn flag_banner(ui: &mut egui::Ui, shown: &Shown) {
             ui.set_width(ui.available_width());
             ui.label(RichText::new(format!("completeness {s}")).color(look::LILAC));
         });
+    }
+}
+
+/// The flag's reason as the banner says it: its first clause, and how many more the whole
+/// reason (on hover, and in reading.json) holds, so the banner stays two or three lines and the
+/// picture keeps its room.
+fn first_clause(reason: &str) -> String {
+    let mut parts = reason.split("; and ");
+    let first = parts.next().unwrap_or_default().to_string();
+    match parts.count() {
+        0 => first,
+        n => format!("{first}; and {n} more (hover for the whole reason)"),
     }
 }
 

@@ -146,7 +146,7 @@ pub fn add_hotspot_evidence(a: &mut Assessment, reports: Vec<HotspotReport>, s: 
             r.fill,
             r.probability_drop,
             s.min_probability_drop,
-            r.top
+            r.top_class()
         );
         let said = match &h.stroke_removal {
             Some(k) => format!("{said}; its strokes alone, {:.2}", k.probability_drop),
