@@ -134,37 +134,17 @@ pub fn close(m: &Array2<bool>, r: usize) -> Array2<bool> {
     erode(&dilate(m, r), r)
 }
 
-/// The 8-connected parts of a mask, each as the list of its pixels (row, column).
+/// The 8-connected parts of a mask, each as the list of its pixels (row, column) in raster
+/// order, parts in the order of their first pixel (the regions' own labelling,
+/// [`crate::regions::grid::components`]).
 pub fn components(m: &Array2<bool>) -> Vec<Vec<(usize, usize)>> {
     let (h, w) = m.dim();
-    let mut seen = Array2::from_elem((h, w), false);
-    let mut out = vec![];
-    for y0 in 0..h {
-        for x0 in 0..w {
-            if !m[[y0, x0]] || seen[[y0, x0]] {
-                continue;
-            }
-            seen[[y0, x0]] = true;
-            let mut part = vec![(y0, x0)];
-            let mut i = 0;
-            while i < part.len() {
-                let (y, x) = part[i];
-                i += 1;
-                for dy in -1isize..=1 {
-                    for dx in -1isize..=1 {
-                        let (ny, nx) = (y as isize + dy, x as isize + dx);
-                        if ny < 0 || nx < 0 || ny >= h as isize || nx >= w as isize {
-                            continue;
-                        }
-                        let (ny, nx) = (ny as usize, nx as usize);
-                        if m[[ny, nx]] && !seen[[ny, nx]] {
-                            seen[[ny, nx]] = true;
-                            part.push((ny, nx));
-                        }
-                    }
-                }
-            }
-            out.push(part);
+    let on: Vec<bool> = m.iter().copied().collect();
+    let (label, n) = crate::regions::grid::components(h, w, &on);
+    let mut out = vec![Vec::new(); n];
+    for (p, &l) in label.iter().enumerate() {
+        if l > 0 {
+            out[l as usize - 1].push((p / w, p % w));
         }
     }
     out
