@@ -4,6 +4,7 @@ best setting.
 usage: peer_speed.py OUT_DIR THREADS REPEATS
        peer_speed.py OUT_DIR THREADS REPEATS vit
        peer_speed.py OUT_DIR THREADS 1 vit-peak BATCH CHANNELS_LAST
+       peer_speed.py OUT_DIR THREADS 1 user BATCH CHANNELS_LAST
 
 Builds a ResNet-18 (torchvision's architecture, random weights from a fixed seed, no download),
 exports it to OUT_DIR/resnet18.onnx (batch 1, opset 17) and OUT_DIR/resnet18-batch.onnx (dynamic
@@ -38,6 +39,12 @@ in batches of 1, 8 and 16, NCHW and channels-last (which only touches the patch 
 Mode `vit-peak` runs one such setting once in a fresh process and reports its peak resident
 memory (ru_maxrss: the interpreter, torch, the weights and autograd's tape at that batch), so
 that the bench can set it beside spurion's.
+
+Mode `user` is the peer as a user runs it once: a fresh process that imports torch, builds the
+ResNet-18 and loads the weights the main run saved (OUT_DIR/resnet18.pt), reads OUT_DIR/x.npy,
+computes integrated gradients (64 midpoint steps, black baseline) at the given setting and writes
+the map (OUT_DIR/user-ig.npy). The bench times the whole process, set-up included, beside one
+`spurion explain` command doing the same reading.
 """
 import resource
 import copy
@@ -137,6 +144,8 @@ def vit_main(out, threads, repeats, mode):
 
 def main():
     out, threads, repeats = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
+    if len(sys.argv) > 4 and sys.argv[4] == "user":
+        return user_main(out, threads, int(sys.argv[5]), sys.argv[6] == "1")
     if len(sys.argv) > 4:
         return vit_main(out, threads, repeats, sys.argv[4])
     thread_counts = [int(t) for t in os.environ.get("SPURION_BENCH_PEER_THREADS", str(threads)).split(",")]
@@ -161,6 +170,7 @@ def main():
     rng = np.random.default_rng(18)
     x = rng.uniform(-1.0, 1.0, size=(1, 3, 224, 224)).astype(np.float32)
     np.save(os.path.join(out, "x.npy"), x)
+    torch.save(net.state_dict(), os.path.join(out, "resnet18.pt"))
     xt = torch.from_numpy(x)
     for name, dyn in (("resnet18.onnx", None), ("resnet18-batch.onnx", {"x": {0: "n"}, "y": {0: "n"}})):
         torch.onnx.export(net, (xt,), os.path.join(out, name), dynamo=False, opset_version=17,
@@ -264,6 +274,31 @@ def main():
                    "runs": refine_runs, "seconds": refine_totals, "median": float(np.median(refine_totals))},
         "occlusion": occ_runs,
     }))
+
+
+def user_main(out, threads, batch, channels_last):
+    """One reading as a user runs it: everything from the interpreter's start is in the time."""
+    torch.set_num_threads(threads)
+    net = torchvision.models.resnet18(weights=None, num_classes=1000).eval()
+    net.load_state_dict(torch.load(os.path.join(out, "resnet18.pt")))
+    if channels_last:
+        net = net.to(memory_format=torch.channels_last)
+    xt = torch.from_numpy(np.load(os.path.join(out, "x.npy")))
+    with torch.no_grad():
+        target = int(torch.argmax(net(xt)[0]))
+    steps = 64
+    alphas = (torch.arange(steps, dtype=torch.float32) + 0.5) / steps
+    total = torch.zeros_like(xt)
+    for a in alphas.split(batch):
+        pts = a.view(-1, 1, 1, 1) * xt
+        if channels_last:
+            pts = pts.contiguous(memory_format=torch.channels_last)
+        pts.requires_grad_(True)
+        (g,) = torch.autograd.grad(net(pts)[:, target].sum(), pts)
+        total += g.sum(0, keepdim=True)
+    attr = (xt * total / steps).detach().numpy()
+    np.save(os.path.join(out, "user-ig.npy"), attr)
+    print(json.dumps({"target": target, "sum": float(attr.sum())}))
 
 
 if __name__ == "__main__":

@@ -13,12 +13,12 @@ use crate::methods::{Baseline, Method, Request, Rule, ScoreKind, TargetSpec};
 pub struct ReadingArgs {
     #[arg(long, default_value = d::METHOD_TEXT, help = method_names())]
     pub method: String,
-    #[arg(long, default_value = d::BASELINE_TEXT, help = format!("{} (folder: expected-gradients draws). Default blur:8: a black baseline gives a dark frame no attribution", baseline_forms()))]
+    #[arg(long, default_value = d::BASELINE_TEXT, help = format!("{} (folder: expected-gradients draws). The default, uniform noise with {} draws averaged: a black baseline gives a dark frame no attribution, and one fixed baseline leaves its own pattern in the map whatever the model", baseline_forms(), d::IG_DRAWS))]
     pub baseline: String,
     /// Integrated-gradients steps, a fixed count. Without --steps, integrated gradients start at
     /// 8 midpoint steps and add gradients where the path needs them until the completeness gap
-    /// is below 1% (as --adaptive does), up to 1024 gradients; a reading that stops at that cap
-    /// says so.
+    /// is below 1% (as --adaptive does), up to 1024 gradients for the whole reading (a noise
+    /// baseline's draws share them); a reading that stops at that cap says so.
     #[arg(long, value_parser = RangedU64ValueParser::<usize>::new().range(1..))]
     pub steps: Option<usize>,
     /// Integrated-gradients quadrature for a fixed --steps: gauss-legendre | midpoint | trapezoid.

@@ -10,10 +10,13 @@ use super::reading::Completeness;
 use super::{Job, Outcome, Rule, defaults, gap_of};
 use crate::model::StraightPath;
 
-/// Most gradients the refinement takes for one reading (its cap). The refinement puts its
-/// gradients where the path changes, so a reading that needs more has a path the straight line
-/// resolves badly (a saturated score turning in a tiny stretch); the reading then says it
-/// stopped short of its target.
+/// Most gradients the refinement takes for one reading (its cap), all paths together: a
+/// distribution baseline's draws share it (each draw may take an even share of what the earlier
+/// ones left). The refinement puts its gradients where the path changes, so a reading that needs
+/// more has a path the straight line resolves badly (a saturated score turning in a tiny
+/// stretch); the reading then says it stopped short of its target. One budget for the reading,
+/// not one per draw, so that the slowest default reading costs what the cap says (a per-draw cap
+/// let four draws take 4,096 gradients on a third-party classifier).
 pub const MAX_REFINED_STEPS: usize = 1024;
 
 /// Most bytes of point gradients the refinement holds at once (cells beyond are folded into the
@@ -38,6 +41,8 @@ pub(super) fn integrated_gradients(job: &Job, steps: usize, rule: Rule, adaptive
     let fbs: Vec<f64> = xbs.iter().map(|xb| Ok(job.scorer.score(&job.model.forward(xb, job.scorer.tap)?) as f64)).collect::<Result<_>>()?;
     let mean_fb = fbs.iter().sum::<f64>() / draws as f64;
     let diff_all = job.score_x as f64 - mean_fb;
+    let steps = steps.max(1);
+    let cap = MAX_REFINED_STEPS.max(draws * steps);
     let mut map = ArrayD::<f32>::zeros(job.x.raw_dim());
     let mut c = Completeness {
         gap: None,
@@ -45,24 +50,81 @@ pub(super) fn integrated_gradients(job: &Job, steps: usize, rule: Rule, adaptive
         reached: adaptive.map(|_| true),
         steps: 0,
         forwards: 0,
-        cap: adaptive.map(|_| draws * MAX_REFINED_STEPS.max(steps)),
+        cap: adaptive.map(|_| cap),
         rule: if adaptive.is_some() { "adaptive midpoint".into() } else { rule.name().into() },
     };
+    let mut budget = Budget::new(draws, cap);
     for (k, (xb, fb)) in xbs.iter().zip(&fbs).enumerate() {
-        let (m, report) = one_path(job, xb, *fb, diff_all, steps.max(1), rule, adaptive, k == 0)?;
-        map.scaled_add(1.0 / draws as f32, &m);
-        c.steps += report.gradients;
-        c.forwards += report.forwards;
-        if adaptive.is_some() {
-            c.reached = Some(c.reached == Some(true) && report.reached);
-        }
+        let (path_cap, share) = budget.next(steps);
+        let p = one_path(job, xb, *fb, diff_all, steps, rule, adaptive.map(|t| (t as f64, share, path_cap)), k == 0)?;
+        map.scaled_add(1.0 / draws as f32, &p.map);
+        c.steps += p.report.gradients;
+        c.forwards += p.report.forwards;
+        budget.spent(p.report.gradients, p.used);
     }
     c.gap = gap_of(sum64(&map), diff_all);
+    if let Some(t) = adaptive {
+        // Within when the paths kept to their shared allowance, or when the mean's own gap is
+        // (the paths' errors can cancel).
+        c.reached = Some(budget.held() || c.gap.is_some_and(|g| g <= t as f64));
+    }
     Ok(Outcome { map, steps: Some(c.steps), score_baseline: Some(mean_fb as f32), gap: c.gap, completeness: Some(c) })
 }
 
-/// One straight path from `xb` (score `fb`): a fixed rule, or the refinement held to the target
-/// share of `|scale_diff|`. The first path begins the progress total, later ones grow it.
+/// What the paths of one reading share: the gradients of the cap, and the completeness error the
+/// target allows the mean of the paths. The mean map's error is the mean of the paths' errors,
+/// so it is within the target when the paths' errors, each as a share of the target's allowance,
+/// sum to at most the number of paths. A path that lands well inside its allowance leaves the
+/// rest to the later ones, and one that overshoots (stopped by its cap) tightens them.
+struct Budget {
+    paths: usize,
+    done: usize,
+    left: usize,
+    /// Σ of the finished paths' |error| / allowance (a path with nothing to judge adds 0, as
+    /// the refinement counts it within).
+    used: f64,
+}
+
+impl Budget {
+    fn new(paths: usize, cap: usize) -> Self {
+        Budget { paths, done: 0, left: cap, used: 0.0 }
+    }
+
+    /// The next path's gradient cap (an even share of what is left, never under the start) and
+    /// its share of the target (what the earlier paths left, evenly; at least a quarter, so that
+    /// one path's overshoot does not demand the impossible of the rest).
+    fn next(&self, start: usize) -> (usize, f64) {
+        let rest = (self.paths - self.done).max(1);
+        let cap = (self.left / rest).max(start);
+        let share = ((self.paths as f64 - self.used) / rest as f64).max(0.25);
+        (cap, share)
+    }
+
+    /// A path finished with `gradients` spent and its error as a share of its full allowance
+    /// (`None`: nothing to judge).
+    fn spent(&mut self, gradients: usize, used: Option<f64>) {
+        self.done += 1;
+        self.left = self.left.saturating_sub(gradients);
+        self.used += used.unwrap_or(0.0);
+    }
+
+    /// Whether the mean of the paths is within the target.
+    fn held(&self) -> bool {
+        self.used <= self.paths as f64 * (1.0 + 1e-9)
+    }
+}
+
+/// One path's map, what the refinement did, and its error as a share of the full target's
+/// allowance (`None` for a fixed rule, or when there was nothing to refine).
+struct PathMap {
+    map: ArrayD<f32>,
+    report: adaptive::Report,
+    used: Option<f64>,
+}
+
+/// One straight path from `xb` (score `fb`): a fixed rule, or the refinement held to
+/// `target · share` of `|scale_diff|` and stopped at `cap` gradients (`adaptive` = (target,
+/// share, cap)). The first path begins the progress total, later ones grow it.
 #[allow(clippy::too_many_arguments)]
 fn one_path(
     job: &Job,
@@ -71,9 +133,9 @@ fn one_path(
     scale_diff: f64,
     steps: usize,
     rule: Rule,
-    adaptive: Option<f32>,
+    adaptive: Option<(f64, f64, usize)>,
     first: bool,
-) -> Result<(ArrayD<f32>, adaptive::Report)> {
+) -> Result<PathMap> {
     let diff = job.x - xb;
     let diff_scores = job.score_x as f64 - fb;
     let begin = |n: usize| if first { job.ctl.begin(n as u64) } else { job.ctl.grow(n as u64) };
@@ -83,15 +145,11 @@ fn one_path(
             begin(nodes.len());
             let map = path_sum(job, xb, &nodes)? * &diff;
             let report = adaptive::Report { gradients: nodes.len(), forwards: 0, reached: true, cells: nodes.len(), rounds: 0 };
-            Ok((map, report))
+            Ok(PathMap { map, report, used: None })
         }
-        Some(target) => {
+        Some((target, share, cap)) => {
             let path = job.model.straight_path(xb, &diff, job.scorer.tap)?;
-            let settings = adaptive::Settings {
-                start: steps,
-                cap: MAX_REFINED_STEPS.max(steps),
-                keep: (HELD_BYTES / path.point_bytes().max(1)).max(4 * steps),
-            };
+            let settings = adaptive::Settings { start: steps, cap: cap.max(steps), keep: (HELD_BYTES / path.point_bytes().max(1)).max(4 * steps) };
             begin(steps);
             let mut p = Refining {
                 job,
@@ -101,11 +159,15 @@ fn one_path(
                 acc: path.zeros(),
                 diff_scores,
                 scale_diff,
-                target: target as f64,
+                target: target * share,
                 begun: false,
+                last: None,
             };
             let report = adaptive::refine(&mut p, fb, job.score_x as f64, &settings)?;
-            Ok((p.path.to_input(&p.acc)? * &diff, report))
+            // The error against the full target's allowance (the share only tightened it).
+            let used = p.last.map(|(err, scale)| err / (target * scale).max(f64::MIN_POSITIVE));
+            let map = p.path.to_input(&p.acc)? * &diff;
+            Ok(PathMap { map, report, used })
         }
     }
 }
@@ -124,6 +186,8 @@ struct Refining<'a> {
     target: f64,
     /// Whether the first gradients (the progress total begun with) were taken.
     begun: bool,
+    /// The last standing's |error| and the score scale its allowance is a share of.
+    last: Option<(f64, f64)>,
 }
 
 impl PathIntegral for Refining<'_> {
@@ -170,9 +234,11 @@ impl PathIntegral for Refining<'_> {
         let mass: f64 = map.iter().map(|v| v.abs() as f64).sum();
         let scale = self.scale_diff.abs().max(super::defaults::IG_GAP_FLOOR * mass);
         if gap.is_none_or(|g| !g.is_finite()) {
+            self.last = None;
             return Ok(adaptive::Standing { within: true, allowed: None });
         }
         let allowed = self.target * scale;
+        self.last = Some(((total - self.diff_scores).abs(), scale));
         Ok(adaptive::Standing { within: (total - self.diff_scores).abs() <= allowed, allowed: Some(allowed) })
     }
 }
@@ -181,4 +247,46 @@ impl PathIntegral for Refining<'_> {
 /// completeness gap.
 fn sum64(map: &ArrayD<f32>) -> f64 {
     map.iter().map(|v| *v as f64).sum()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Budget;
+
+    #[test]
+    fn the_draws_share_one_cap() {
+        // Four paths, a cap of 1024: each may take an even share of what the earlier ones left,
+        // and all of them together never more than the cap.
+        let mut b = Budget::new(4, 1024);
+        assert_eq!(b.next(8), (256, 1.0));
+        b.spent(40, Some(0.1));
+        let (cap, share) = b.next(8);
+        assert_eq!(cap, (1024 - 40) / 3);
+        // The first path used a tenth of its allowance: the other three may use the rest evenly.
+        assert!((share - 3.9 / 3.0).abs() < 1e-12, "{share}");
+        b.spent(cap, Some(1.3));
+        b.spent(8, Some(1.0));
+        let (cap, _) = b.next(8);
+        assert_eq!(cap, 1024 - 40 - 328 - 8);
+        b.spent(cap, Some(1.6));
+        // 0.1 + 1.3 + 1.0 + 1.6 = 4.0: the mean is just within.
+        assert!(b.held());
+    }
+
+    #[test]
+    fn an_overshoot_tightens_the_rest_and_is_reported() {
+        let mut b = Budget::new(4, 64);
+        b.spent(16, Some(3.0));
+        let (_, share) = b.next(8);
+        assert!((share - 1.0 / 3.0).abs() < 1e-12, "{share}");
+        b.spent(16, Some(0.9));
+        // Never less than a quarter of the target, whatever the earlier paths did.
+        assert_eq!(b.next(8).1, 0.25);
+        b.spent(16, Some(0.5));
+        b.spent(16, Some(0.2));
+        assert!(!b.held(), "3.0 + 0.9 + 0.5 + 0.2 > 4");
+        // A start larger than the share left still gets its start.
+        let b = Budget::new(2, 10);
+        assert_eq!(b.next(8).0, 8);
+    }
 }
