@@ -9,7 +9,8 @@
 //! in CI). `benches/peer_speed.py` builds a ResNet-18 with random weights, exports it, and times
 //! every peer setting (see its header); the table compares spurion with the fastest.
 //! Environment: SPURION_BENCH_REPEATS (default 3), SPURION_BENCH_THREADS (default: all cores),
-//! SPURION_BENCH_TASKS (comma-separated among ig, occlusion, refine, saturating, vit; default all),
+//! SPURION_BENCH_TASKS (comma-separated among ig, occlusion, refine, saturating, vit, cli; default
+//! all),
 //! SPURION_BENCH_PEERS=0 (spurion only, on the files of an earlier run: for profiling).
 //!
 //! Tasks (issue 11's targets in brackets):
@@ -24,6 +25,9 @@
 //!   (issue 24), with the peak resident memory of both: spurion's is this process's high-water
 //!   mark from just before loading the ViT (reset through /proc/self/clear_refs), PyTorch's the
 //!   ru_maxrss of a fresh process running its best setting once (interpreter and torch included).
+//!   one CLI reading, set-up included: `spurion explain` (IG, 64 midpoint steps, black baseline) as
+//!   a fresh process against a fresh Python process doing the same at PyTorch's best setting
+//!   [≤ 1.0×]; and one default reading of the demo, timed alone.
 
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -121,7 +125,7 @@ fn main() -> Result<()> {
     let repeats = env_usize("SPURION_BENCH_REPEATS", 3)?.max(1);
     let cores = std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1);
     let threads = env_usize("SPURION_BENCH_THREADS", cores)?.max(1);
-    let tasks = std::env::var("SPURION_BENCH_TASKS").unwrap_or_else(|_| "ig,occlusion,refine,saturating,vit".into());
+    let tasks = std::env::var("SPURION_BENCH_TASKS").unwrap_or_else(|_| "ig,occlusion,refine,saturating,vit,cli".into());
     let task = |t: &str| tasks.split(',').any(|s| s.trim() == t);
     let with_peers = std::env::var("SPURION_BENCH_PEERS").map_or(true, |v| v != "0");
     rayon::ThreadPoolBuilder::new().num_threads(threads).build_global()?;
@@ -138,7 +142,7 @@ fn main() -> Result<()> {
         );
         return Ok(());
     }
-    let resnet = task("ig") || task("occlusion") || task("refine");
+    let resnet = task("ig") || task("occlusion") || task("refine") || task("cli");
     let peer = match &py {
         Some(py) if with_peers && resnet => run_peer(py, &dir, threads, repeats, &[])?,
         _ => {
@@ -302,12 +306,33 @@ fn resnet_tasks(
         eprintln!("spurion: integrated gradients refined to a 1 % gap ...");
         let (times, r) = time_reading(&model, &x, &req, repeats)?;
         let c = r.completeness.clone().context("a refined reading reports its completeness")?;
+        // How far the refined maps are from a fine rule's, pixel by pixel (the gap checks only
+        // the total): 128 midpoint steps as the reference, computed once, not timed.
+        let fine_req = Request { method: Method::IntegratedGradients { steps: 128, rule: Rule::Midpoint, adaptive: None }, ..base.clone() };
+        let fine = explain(&model, None, &Input::tensor(x.clone(), "x.npy"), &fine_req, &Control::new())?;
+        let l1 = |m: &ArrayD<f32>| {
+            let num: f64 = m.iter().zip(fine.map.iter()).map(|(a, b)| (a - b).abs() as f64).sum();
+            num / fine.map.iter().map(|v| v.abs() as f64).sum::<f64>()
+        };
         notes.push(format!(
-            "spurion to 1 %: {} gradients and {} forwards, gap {:.3} %, target {} (times {times:.2?} s)",
+            "spurion to 1 %: {} gradients and {} forwards, gap {:.3} %, target {}, map {:.1} % (L1) from 128 midpoint steps' (times {times:.2?} s)",
             c.steps,
             c.forwards,
             100.0 * c.gap.unwrap_or(f64::NAN),
-            if c.reached == Some(true) { "reached" } else { "NOT reached" }
+            if c.reached == Some(true) { "reached" } else { "NOT reached" },
+            100.0 * l1(&r.map)
+        ));
+        // The same refinement from 4 cells (`--steps 4 --adaptive`): what a start small enough to
+        // win this row would cost in the map.
+        let small = Request { method: Method::IntegratedGradients { steps: 4, rule: Rule::Midpoint, adaptive: Some(0.01) }, ..base.clone() };
+        let (small_times, rs) = time_reading(&model, &x, &small, repeats)?;
+        let cs = rs.completeness.clone().context("a refined reading reports its completeness")?;
+        notes.push(format!(
+            "spurion to 1 % from 4 cells: {} gradients, gap {:.3} %, map {:.1} % (L1) from 128 steps', median {:.2} s",
+            cs.steps,
+            100.0 * cs.gap.unwrap_or(f64::NAN),
+            100.0 * l1(&rs.map),
+            median(&small_times)
         ));
         let refine = &peer["refine"];
         if let Some(run) = refine["runs"].as_array().and_then(|r| r.first()).and_then(|r| r.as_array()) {
@@ -318,12 +343,81 @@ fn resnet_tasks(
             notes.push(format!("PyTorch to 1 % (first run): {}", levels.join(", ")));
         }
         let setting = if refine.is_null() { "-".to_string() } else { format!("{} (8, 16, 32, … steps)", torch_setting(refine)) };
-        rows.push(("time to a 1 % completeness gap".into(), median(&times), refine["median"].as_f64().unwrap_or(f64::NAN), setting, Some(0.6)));
+        rows.push(("time to a 1 % completeness gap".into(), median(&times), refine["median"].as_f64().unwrap_or(f64::NAN), setting.clone(), Some(0.6)));
+        rows.push(("  the same from 4 cells".into(), median(&small_times), refine["median"].as_f64().unwrap_or(f64::NAN), setting, None));
     }
 
+    if task("cli") {
+        cli_task(peer, dir, repeats, with_peers, rows, notes, disagree)?;
+    }
     if task("saturating") {
         notes.push(saturating_counts()?);
     }
+    Ok(())
+}
+
+/// One reading as a user runs it, set-up included: `spurion explain` as a fresh process (model
+/// loading, plan building, files written) against a fresh Python process that imports torch,
+/// builds the network and computes the same integrated gradients at the peer's best setting.
+/// Also one default reading of the demo (sample model, every setting at its default), no peer.
+fn cli_task(peer: &Value, dir: &Path, repeats: usize, with_peers: bool, rows: &mut Rows, notes: &mut Vec<String>, disagree: &mut Vec<&'static str>) -> Result<()> {
+    let exe = Path::new(env!("CARGO_BIN_EXE_spurion"));
+    let threads = rayon::current_num_threads().to_string();
+    let run = |args: &[&str], out: &Path| -> Result<f64> {
+        let _ = std::fs::remove_dir_all(out);
+        let t0 = Instant::now();
+        let o = Command::new(exe).args(args).arg("--out").arg(out).arg("-q").env("RAYON_NUM_THREADS", &threads).output()?;
+        let s = t0.elapsed().as_secs_f64();
+        if !o.status.success() {
+            bail!("spurion explain failed: {}", String::from_utf8_lossy(&o.stderr));
+        }
+        Ok(s)
+    };
+    let target = peer["target"].as_u64().map(|t| t.to_string()).unwrap_or_else(|| "top".into());
+    let model = dir.join("resnet18.onnx");
+    let x = dir.join("x.npy");
+    let args = [
+        "explain", "--model", model.to_str().context("path")?, "--tensor", x.to_str().context("path")?, "--baseline", "black", "--steps", "64",
+        "--rule", "midpoint", "--score", "raw", "--target", &target,
+    ];
+    eprintln!("spurion: one CLI reading (integrated gradients, 64 steps), set-up included ...");
+    let out = dir.join("cli-reading");
+    let times: Vec<f64> = (0..repeats).map(|_| run(&args, &out)).collect::<Result<_>>()?;
+    let ours: ArrayD<f32> = spurion::feed::read_tensor(&out.join("map.npy"))?;
+    let ours_sum: f64 = ours.iter().map(|v| *v as f64).sum();
+    let py = std::env::var_os("SPURION_BENCH_PYTHON").map(PathBuf::from).filter(|_| with_peers);
+    let best = fastest(&peer["ig"], torch_setting);
+    let (peer_s, setting) = match (py, best) {
+        (Some(py), Some((_, setting, b))) => {
+            let batch = b["batch"].as_u64().context("the peer's batch")?.to_string();
+            let cl = if b["channels_last"].as_bool() == Some(true) { "1" } else { "0" };
+            let threads = b["threads"].as_u64().context("the peer's threads")? as usize;
+            let mut ts = vec![];
+            let mut sum = f64::NAN;
+            for _ in 0..repeats {
+                let t0 = Instant::now();
+                let v = run_peer(&py, dir, threads, 1, &["user", &batch, cl])?;
+                ts.push(t0.elapsed().as_secs_f64());
+                sum = v["sum"].as_f64().unwrap_or(f64::NAN);
+            }
+            let err = (ours_sum - sum).abs() / sum.abs().max(1e-6);
+            notes.push(format!("CLI reading's attribution sum: spurion {ours_sum:.5}, PyTorch {sum:.5} (rel. difference {err:.1e}); PyTorch process times (s): {ts:.2?}"));
+            if !(err <= 1e-3) {
+                disagree.push("the CLI reading");
+            }
+            (median(&ts), format!("{setting}, a fresh Python process"))
+        }
+        _ => (f64::NAN, "-".to_string()),
+    };
+    notes.push(format!("spurion CLI reading times (s): {times:.2?}"));
+    rows.push(("one CLI reading, set-up included".into(), median(&times), peer_s, setting, Some(1.0)));
+    // The demo as a user first runs it: the sample model and a Hillmoor image, all defaults.
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let (m, i) = (root.join("sample-models/shortcut.onnx"), root.join("assets/demo/0002-hillmoor.png"));
+    let demo = ["explain", "--model", m.to_str().context("path")?, "--image", i.to_str().context("path")?];
+    let out = dir.join("cli-default");
+    let times: Vec<f64> = (0..repeats).map(|_| run(&demo, &out)).collect::<Result<_>>()?;
+    notes.push(format!("one default reading of the demo (sample model, Hillmoor image, every setting at its default, set-up and files included): median {:.2} s, times {times:.2?}", median(&times)));
     Ok(())
 }
 

@@ -11,6 +11,7 @@
 
 mod binary;
 mod conv;
+mod fastmath;
 mod einsum;
 mod gather;
 mod lrn;
