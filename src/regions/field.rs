@@ -85,13 +85,26 @@ enum Stroke {
     Bit,
 }
 
-fn classify(b: &Blob, short: f32, s: &FieldMarkSettings) -> Stroke {
+/// Whether the component's box reaches the image's outermost row or column. A mark is drawn
+/// inside the frame, whole; a structure the frame cuts (a retina's rim, a coin at the edge, a
+/// photograph's foreground running out of shot) continues beyond it, so its shape says nothing.
+/// Rulers are exempt: a scale is often laid along the very edge.
+fn touches_edge(b: &Blob, w: usize, h: usize) -> bool {
+    b.bbox[0] == 0 || b.bbox[1] == 0 || b.bbox[2] >= w || b.bbox[3] >= h
+}
+
+fn classify(b: &Blob, w: usize, h: usize, s: &FieldMarkSettings) -> Stroke {
+    if touches_edge(b, w, h) {
+        return Stroke::Bit;
+    }
+    let short = h.min(w) as f32;
     let size = b.size() as f32;
     let thin = b.stroke <= s.annotation_max_thinness * size;
     if b.size() >= s.annotation_min_px && thin && size <= s.max_size_fraction * short {
         return if b.hole >= s.ring_min_hole { Stroke::Ring } else { Stroke::Line };
     }
     if b.size() >= s.min_px
+        && b.width().min(b.height()) >= s.glyph_min_side_px
         && size <= s.glyph_max_fraction * short
         && b.stroke <= s.glyph_max_thinness * size
         && b.stroke <= s.max_stroke_px as f32
@@ -123,7 +136,15 @@ pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Optio
         let on: Vec<bool> = (0..h * w).map(|p| !taken[p] && th[p] >= ch.min_rise && ch.values[p] >= ch.stroke_floor).collect();
         // Long runs may be rulers; the size limits of the other kinds apply in `classify`.
         let found = blobs(h, w, &ch.values, &on, |bw, bh, area| area >= 3 && bw.max(bh) >= 3);
+        // The texture count below asks only that a component rise clearly over an even
+        // surrounding, not that it be flat inside: a photograph's relief is counted whether or
+        // not its highlights happen to be flat, so the count does not hinge on the core test.
+        let rising = found
+            .iter()
+            .filter(|b| b.size() >= s.min_px && b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread)
+            .count();
         let standing: Vec<Blob> = found.into_iter().filter(|b| stands_out(b, &ch, s)).collect();
+        let n_standing = standing.len();
         // Rulers first: their ticks would otherwise pass as glyphs or lines.
         let (rulers, rest) = super::ruler::find_rulers(w, standing, s);
         for (bbox, ticks, period) in rulers {
@@ -138,12 +159,12 @@ pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Optio
         // A photograph's own texture (mortar, highlights on relief, whiskers) stands out in many
         // places at once; marks are few. Past `max_marks_per_channel` standing components the
         // channel is texture and gives no glyph or annotation.
-        let few = rest.iter().filter(|b| b.size() >= s.min_px).count() <= s.max_marks_per_channel;
+        let few = rising.saturating_sub(n_standing - rest.len()) <= s.max_marks_per_channel;
         let mut glyphs = Vec::new();
         for b in rest.into_iter().filter(|_| few) {
-            match classify(&b, short, s) {
+            match classify(&b, w, h, s) {
                 Stroke::Ring | Stroke::Line => {
-                    let ring = matches!(classify(&b, short, s), Stroke::Ring);
+                    let ring = matches!(classify(&b, w, h, s), Stroke::Ring);
                     let detail = if ring { "ring" } else { "line, arrow or cross" };
                     let reason = format!(
                         "a thin {} {detail} {} px across, stroke {:.0} px, rising {:.2} over its surroundings ({:.0}× their spread) with a sharp edge",
@@ -210,7 +231,7 @@ fn stickers(h: usize, w: usize, ch: &Channel, taken: &mut [bool], out: &mut Vec<
     });
     for b in found {
         let thick = b.stroke >= 0.3 * b.size() as f32;
-        if !(stands_out(&b, ch, s) && thick && b.fill >= s.sticker_min_fill && b.inner_spread <= s.sticker_max_inner_spread) {
+        if !(stands_out(&b, ch, s) && !touches_edge(&b, w, h) && thick && b.fill >= s.sticker_min_fill && b.inner_spread <= s.sticker_max_inner_spread) {
             continue;
         }
         let reason = format!(
