@@ -12,9 +12,9 @@
 //! stroke (distance-transform width at most `annotation_max_thinness` of its size) at least
 //! `annotation_min_px` long is a drawn annotation (a ring when it encloses a large hole), a
 //! smaller stroked component a glyph (glyphs close together join one region), and rows of
-//! evenly spaced ticks a ruler. Stickers and pen blobs are searched the same way with a top-hat
-//! as wide as the largest sticker, and must be filled, flat inside and, on a grey image, at the
-//! image's extreme.
+//! evenly spaced ticks a ruler (along the rows, the columns or a tilted axis). Stickers and pen
+//! blobs are searched the same way with a top-hat as wide as the largest sticker, and must be
+//! filled, flat inside and, on a grey image, at the image's extreme.
 //!
 //! The masks follow the mark: a glyph group or ruler its box, an annotation or sticker its own
 //! pixels (a ring's box would hold the structure it rings, which is anatomy), each widened by a
@@ -72,8 +72,14 @@ fn channels(pixels: &Array3<f32>, luma: &[f32], ex: &[bool], s: &FieldMarkSettin
     out
 }
 
+/// Rises over its surroundings by enough, against their spread, and ends with a sharp edge.
+fn rises_sharply(b: &Blob, ch: &Channel, s: &FieldMarkSettings) -> bool {
+    b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread && b.fade <= s.max_fade
+}
+
+/// ... and holds one value in its core (one ink).
 fn stands_out(b: &Blob, ch: &Channel, s: &FieldMarkSettings) -> bool {
-    b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread && b.fade <= s.max_fade && b.core_spread <= s.max_core_spread
+    rises_sharply(b, ch, s) && b.core_spread <= s.max_core_spread
 }
 
 /// What a standing-out stroke component is.
@@ -116,7 +122,8 @@ fn classify(b: &Blob, w: usize, h: usize, s: &FieldMarkSettings) -> Stroke {
 
 /// Finds bare glyphs, drawn annotations, rulers, stickers and pen blobs in `pixels` (H×W×C,
 /// 0..1) whose luminance is `luma`. Pixels set in `exclude` (regions found before) are never
-/// part of a mark.
+/// part of a mark. Rulers are looked for when `s.rulers` or `s.enabled` is set, the other kinds
+/// when `s.enabled` is.
 pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Option<&Array2<bool>>, s: &FieldMarkSettings) -> Vec<Region> {
     let (h, w, v) = flat(luma);
     if h < 16 || w < 16 || pixels.dim().0 != h || pixels.dim().1 != w {
@@ -129,9 +136,15 @@ pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Optio
     let short = h.min(w) as f32;
     let mut taken = ex.clone();
     let mut out = Vec::new();
+    let (all, rulers_on) = (s.enabled, s.enabled || s.rulers);
+    if !rulers_on {
+        return Vec::new();
+    }
     for ch in channels(pixels, &v, &ex, s) {
         // Stickers first: the rim of a large blob passes the stroke top-hat as thin crescents.
-        stickers(h, w, &ch, &mut taken, &mut out, s);
+        if all {
+            stickers(h, w, &ch, &mut taken, &mut out, s);
+        }
         let th = top_hat(h, w, &ch.values, s.max_stroke_px.div_ceil(2));
         let on: Vec<bool> = (0..h * w).map(|p| !taken[p] && th[p] >= ch.min_rise && ch.values[p] >= ch.stroke_floor).collect();
         // Long runs may be rulers; the size limits of the other kinds apply in `classify`.
@@ -143,23 +156,35 @@ pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Optio
             .iter()
             .filter(|b| b.size() >= s.min_px && b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread)
             .count();
-        let standing: Vec<Blob> = found.into_iter().filter(|b| stands_out(b, &ch, s)).collect();
-        let n_standing = standing.len();
-        // Rulers first: their ticks would otherwise pass as glyphs or lines.
-        let (rulers, rest) = super::ruler::find_rulers(w, standing, s);
-        for (bbox, ticks, period) in rulers {
-            let reason = format!(
-                "{} {} ticks every {period:.1} px along a {} px run, standing out from the pixels around them",
-                ticks,
-                ch.name,
-                (bbox[2] - bbox[0]).max(bbox[3] - bbox[1])
-            );
-            push_box(&mut out, &mut taken, h, w, bbox, 0.8, MarkShape::Ruler, "ruler", reason);
+        // Rulers first: their ticks would otherwise pass as glyphs or lines. A ruler's evidence
+        // is its evenly spaced ticks, so its ticks need only rise over their surroundings with a
+        // sharp edge, not hold one value inside (a thin tilted tick's anti-aliased pixels never
+        // do); the other kinds are judged on the components that stand out in full.
+        let sharp: Vec<Blob> = found.into_iter().filter(|b| rises_sharply(b, &ch, s)).collect();
+        let n_sharp = sharp.len();
+        let (rulers, rest) = super::ruler::find_rulers(w, sharp, s);
+        let taken_by_rulers = n_sharp - rest.len();
+        let rest: Vec<Blob> = rest.into_iter().filter(|b| stands_out(b, &ch, s)).collect();
+        for (bbox, ticks, period, angle, pixels) in rulers {
+            let run = (bbox[2] - bbox[0]).max(bbox[3] - bbox[1]);
+            match pixels {
+                None => {
+                    let reason = format!("{ticks} {} ticks every {period:.1} px along a {run} px run, standing out from the pixels around them", ch.name);
+                    push_box(&mut out, &mut taken, h, w, bbox, 0.8, MarkShape::Ruler, "ruler", reason);
+                }
+                Some(px) => {
+                    let reason = format!(
+                        "{ticks} {} ticks every {period:.1} px along a run tilted {angle:.0}° from the rows, standing out from the pixels around them",
+                        ch.name
+                    );
+                    push_pixels(&mut out, &mut taken, h, w, &px, 0.8, MarkShape::Ruler, "ruler", reason);
+                }
+            }
         }
         // A photograph's own texture (mortar, highlights on relief, whiskers) stands out in many
         // places at once; marks are few. Past `max_marks_per_channel` standing components the
         // channel is texture and gives no glyph or annotation.
-        let few = rising.saturating_sub(n_standing - rest.len()) <= s.max_marks_per_channel;
+        let few = all && rising.saturating_sub(taken_by_rulers) <= s.max_marks_per_channel;
         let mut glyphs = Vec::new();
         for b in rest.into_iter().filter(|_| few) {
             match classify(&b, w, h, s) {
