@@ -14,7 +14,10 @@
 //! smaller stroked component a glyph (glyphs close together join one region), and rows of
 //! evenly spaced ticks a ruler (along the rows, the columns or a tilted axis). Stickers and pen
 //! blobs are searched the same way with a top-hat as wide as the largest sticker, and must be
-//! filled, flat inside and, on a grey image, at the image's extreme.
+//! filled, flat inside and, on a grey image, at the image's extreme. No glyph, annotation or
+//! sticker touches the image's outermost row or column (a mark is drawn whole inside the frame).
+//! With the defaults only rulers are looked for (`FieldMarkSettings::rulers`); the other kinds
+//! when `FieldMarkSettings::enabled` is set.
 //!
 //! The masks follow the mark: a glyph group or ruler its box, an annotation or sticker its own
 //! pixels (a ring's box would hold the structure it rings, which is anatomy), each widened by a

@@ -282,8 +282,9 @@ pub struct FieldMarkSettings {
     /// Glyphs join one region when the gap between their boxes is at most this many glyph
     /// sizes (the letters of one marker). Default 1.2.
     pub group_gap: f32,
-    /// A channel with more standing-out components than this (of at least `min_px`) is texture,
-    /// not marks, and gives no glyphs or annotations (rulers, found first, are kept). Default 12.
+    /// A channel with more components than this (of at least `min_px`) that rise clearly over
+    /// an even surrounding (contrast and isolation, whatever their core) is texture, not marks,
+    /// and gives no glyphs or annotations (rulers, found first, are kept). Default 12.
     pub max_marks_per_channel: usize,
     /// Drawn annotations are at least this long (longer box side, pixels). Default 16.
     pub annotation_min_px: usize,
