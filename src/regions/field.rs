@@ -12,9 +12,12 @@
 //! stroke (distance-transform width at most `annotation_max_thinness` of its size) at least
 //! `annotation_min_px` long is a drawn annotation (a ring when it encloses a large hole), a
 //! smaller stroked component a glyph (glyphs close together join one region), and rows of
-//! evenly spaced ticks a ruler. Stickers and pen blobs are searched the same way with a top-hat
-//! as wide as the largest sticker, and must be filled, flat inside and, on a grey image, at the
-//! image's extreme.
+//! evenly spaced ticks a ruler (along the rows, the columns or a tilted axis). Stickers and pen
+//! blobs are searched the same way with a top-hat as wide as the largest sticker, and must be
+//! filled, flat inside and, on a grey image, at the image's extreme. No glyph, annotation or
+//! sticker touches the image's outermost row or column (a mark is drawn whole inside the frame).
+//! With the defaults only rulers are looked for (`FieldMarkSettings::rulers`); the other kinds
+//! when `FieldMarkSettings::enabled` is set.
 //!
 //! The masks follow the mark: a glyph group or ruler its box, an annotation or sticker its own
 //! pixels (a ring's box would hold the structure it rings, which is anatomy), each widened by a
@@ -72,8 +75,14 @@ fn channels(pixels: &Array3<f32>, luma: &[f32], ex: &[bool], s: &FieldMarkSettin
     out
 }
 
+/// Rises over its surroundings by enough, against their spread, and ends with a sharp edge.
+fn rises_sharply(b: &Blob, ch: &Channel, s: &FieldMarkSettings) -> bool {
+    b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread && b.fade <= s.max_fade
+}
+
+/// ... and holds one value in its core (one ink).
 fn stands_out(b: &Blob, ch: &Channel, s: &FieldMarkSettings) -> bool {
-    b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread && b.fade <= s.max_fade && b.core_spread <= s.max_core_spread
+    rises_sharply(b, ch, s) && b.core_spread <= s.max_core_spread
 }
 
 /// What a standing-out stroke component is.
@@ -85,13 +94,26 @@ enum Stroke {
     Bit,
 }
 
-fn classify(b: &Blob, short: f32, s: &FieldMarkSettings) -> Stroke {
+/// Whether the component's box reaches the image's outermost row or column. A mark is drawn
+/// inside the frame, whole; a structure the frame cuts (a retina's rim, a coin at the edge, a
+/// photograph's foreground running out of shot) continues beyond it, so its shape says nothing.
+/// Rulers are exempt: a scale is often laid along the very edge.
+fn touches_edge(b: &Blob, w: usize, h: usize) -> bool {
+    b.bbox[0] == 0 || b.bbox[1] == 0 || b.bbox[2] >= w || b.bbox[3] >= h
+}
+
+fn classify(b: &Blob, w: usize, h: usize, s: &FieldMarkSettings) -> Stroke {
+    if touches_edge(b, w, h) {
+        return Stroke::Bit;
+    }
+    let short = h.min(w) as f32;
     let size = b.size() as f32;
     let thin = b.stroke <= s.annotation_max_thinness * size;
     if b.size() >= s.annotation_min_px && thin && size <= s.max_size_fraction * short {
         return if b.hole >= s.ring_min_hole { Stroke::Ring } else { Stroke::Line };
     }
     if b.size() >= s.min_px
+        && b.width().min(b.height()) >= s.glyph_min_side_px
         && size <= s.glyph_max_fraction * short
         && b.stroke <= s.glyph_max_thinness * size
         && b.stroke <= s.max_stroke_px as f32
@@ -103,7 +125,8 @@ fn classify(b: &Blob, short: f32, s: &FieldMarkSettings) -> Stroke {
 
 /// Finds bare glyphs, drawn annotations, rulers, stickers and pen blobs in `pixels` (H×W×C,
 /// 0..1) whose luminance is `luma`. Pixels set in `exclude` (regions found before) are never
-/// part of a mark.
+/// part of a mark. Rulers are looked for when `s.rulers` or `s.enabled` is set, the other kinds
+/// when `s.enabled` is.
 pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Option<&Array2<bool>>, s: &FieldMarkSettings) -> Vec<Region> {
     let (h, w, v) = flat(luma);
     if h < 16 || w < 16 || pixels.dim().0 != h || pixels.dim().1 != w {
@@ -116,34 +139,60 @@ pub fn find_field_marks(pixels: &Array3<f32>, luma: &Array2<f32>, exclude: Optio
     let short = h.min(w) as f32;
     let mut taken = ex.clone();
     let mut out = Vec::new();
+    let (all, rulers_on) = (s.enabled, s.enabled || s.rulers);
+    if !rulers_on {
+        return Vec::new();
+    }
     for ch in channels(pixels, &v, &ex, s) {
         // Stickers first: the rim of a large blob passes the stroke top-hat as thin crescents.
-        stickers(h, w, &ch, &mut taken, &mut out, s);
+        if all {
+            stickers(h, w, &ch, &mut taken, &mut out, s);
+        }
         let th = top_hat(h, w, &ch.values, s.max_stroke_px.div_ceil(2));
         let on: Vec<bool> = (0..h * w).map(|p| !taken[p] && th[p] >= ch.min_rise && ch.values[p] >= ch.stroke_floor).collect();
         // Long runs may be rulers; the size limits of the other kinds apply in `classify`.
         let found = blobs(h, w, &ch.values, &on, |bw, bh, area| area >= 3 && bw.max(bh) >= 3);
-        let standing: Vec<Blob> = found.into_iter().filter(|b| stands_out(b, &ch, s)).collect();
-        // Rulers first: their ticks would otherwise pass as glyphs or lines.
-        let (rulers, rest) = super::ruler::find_rulers(w, standing, s);
-        for (bbox, ticks, period) in rulers {
-            let reason = format!(
-                "{} {} ticks every {period:.1} px along a {} px run, standing out from the pixels around them",
-                ticks,
-                ch.name,
-                (bbox[2] - bbox[0]).max(bbox[3] - bbox[1])
-            );
-            push_box(&mut out, &mut taken, h, w, bbox, 0.8, MarkShape::Ruler, "ruler", reason);
+        // The texture count below asks only that a component rise clearly over an even
+        // surrounding, not that it be flat inside: a photograph's relief is counted whether or
+        // not its highlights happen to be flat, so the count does not hinge on the core test.
+        let rising = found
+            .iter()
+            .filter(|b| b.size() >= s.min_px && b.contrast >= ch.min_rise && b.contrast >= s.min_isolation * b.ring_spread)
+            .count();
+        // Rulers first: their ticks would otherwise pass as glyphs or lines. A ruler's evidence
+        // is its evenly spaced ticks, so its ticks need only rise over their surroundings with a
+        // sharp edge, not hold one value inside (a thin tilted tick's anti-aliased pixels never
+        // do); the other kinds are judged on the components that stand out in full.
+        let sharp: Vec<Blob> = found.into_iter().filter(|b| rises_sharply(b, &ch, s)).collect();
+        let n_sharp = sharp.len();
+        let (rulers, rest) = super::ruler::find_rulers(w, sharp, s);
+        let taken_by_rulers = n_sharp - rest.len();
+        let rest: Vec<Blob> = rest.into_iter().filter(|b| stands_out(b, &ch, s)).collect();
+        for (bbox, ticks, period, angle, pixels) in rulers {
+            let run = (bbox[2] - bbox[0]).max(bbox[3] - bbox[1]);
+            match pixels {
+                None => {
+                    let reason = format!("{ticks} {} ticks every {period:.1} px along a {run} px run, standing out from the pixels around them", ch.name);
+                    push_box(&mut out, &mut taken, h, w, bbox, 0.8, MarkShape::Ruler, "ruler", reason);
+                }
+                Some(px) => {
+                    let reason = format!(
+                        "{ticks} {} ticks every {period:.1} px along a run tilted {angle:.0}° from the rows, standing out from the pixels around them",
+                        ch.name
+                    );
+                    push_pixels(&mut out, &mut taken, h, w, &px, 0.8, MarkShape::Ruler, "ruler", reason);
+                }
+            }
         }
         // A photograph's own texture (mortar, highlights on relief, whiskers) stands out in many
         // places at once; marks are few. Past `max_marks_per_channel` standing components the
         // channel is texture and gives no glyph or annotation.
-        let few = rest.iter().filter(|b| b.size() >= s.min_px).count() <= s.max_marks_per_channel;
+        let few = all && rising.saturating_sub(taken_by_rulers) <= s.max_marks_per_channel;
         let mut glyphs = Vec::new();
         for b in rest.into_iter().filter(|_| few) {
-            match classify(&b, short, s) {
+            match classify(&b, w, h, s) {
                 Stroke::Ring | Stroke::Line => {
-                    let ring = matches!(classify(&b, short, s), Stroke::Ring);
+                    let ring = matches!(classify(&b, w, h, s), Stroke::Ring);
                     let detail = if ring { "ring" } else { "line, arrow or cross" };
                     let reason = format!(
                         "a thin {} {detail} {} px across, stroke {:.0} px, rising {:.2} over its surroundings ({:.0}× their spread) with a sharp edge",
@@ -210,7 +259,7 @@ fn stickers(h: usize, w: usize, ch: &Channel, taken: &mut [bool], out: &mut Vec<
     });
     for b in found {
         let thick = b.stroke >= 0.3 * b.size() as f32;
-        if !(stands_out(&b, ch, s) && thick && b.fill >= s.sticker_min_fill && b.inner_spread <= s.sticker_max_inner_spread) {
+        if !(stands_out(&b, ch, s) && !touches_edge(&b, w, h) && thick && b.fill >= s.sticker_min_fill && b.inner_spread <= s.sticker_max_inner_spread) {
             continue;
         }
         let reason = format!(

@@ -292,7 +292,7 @@ pub fn find_regions_in(pixels: &Array3<f32>, settings: &FinderSettings) -> Vec<R
     }
     // The field's marks before the text tags when they are on: a ruler's separate ticks would
     // otherwise pass as letters on a line.
-    if settings.field_marks.enabled {
+    if settings.field_marks.enabled || settings.field_marks.rulers {
         let mut marks = find_field_marks(pixels, &image, Some(&exclude(&out)), &settings.field_marks);
         grown(&mut marks);
         out.extend(marks);

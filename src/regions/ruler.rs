@@ -7,14 +7,33 @@
 //! above it as narrow pulses. The run is a ruler when it has at least `ruler_min_ticks` pulses,
 //! each narrow (at most 3 px or half the spacing), spaced evenly: nine gaps in ten within
 //! `ruler_spacing_tolerance` of their median. Letters on a line make wide, unevenly spaced
-//! pulses and are left to the glyph finders. Rulers are looked for along the rows and columns
-//! only; a tilted scale is not found as a ruler (its strokes may still be found as a line).
+//! pulses and are left to the glyph finders.
+//!
+//! A run whose main axis (the principal axis of its pixels, common practice) is tilted by more
+//! than `TILT_SNAP_DEG` from the rows and columns is profiled along that axis instead, and by
+//! its **extent across** the axis in each step rather than its pixel count: a tilted line's
+//! pixel count per step wobbles with the staircase of its rendering (a periodic ripple that
+//! would pass for ticks), its extent across the axis does not by more than a pixel, while a
+//! tick adds its length. Its mask is its own pixels rather than its box (a tilted box holds
+//! the anatomy beside the scale).
 
 use super::FieldMarkSettings;
 use super::measure::Blob;
 
-/// A found ruler: its box, tick count and tick spacing (pixels).
-pub(crate) type Ruler = ([usize; 4], usize, f32);
+/// A found ruler: its box, tick count, tick spacing (pixels), its axis' angle from the rows
+/// (degrees, 0..180) and, for a tilted ruler, its pixels (flat indices).
+pub(crate) type Ruler = ([usize; 4], usize, f32, f32, Option<Vec<usize>>);
+
+/// Runs whose axis lies within this many degrees of the rows or columns are profiled along
+/// them, as before tilted rulers were searched: a scale drawn along the image's axes stays on
+/// the path its tests were written for, and a few degrees of tilt leave its per-column
+/// profile's pulses sharp (a 60 px run tilted 3 degrees drifts 3 px across).
+const TILT_SNAP_DEG: f32 = 3.0;
+
+/// A tilted ruler's ticks rise at least this many pixels across its axis above its baseline's
+/// extent: a tick is drawn to be seen, and the staircase of a rendered tilted line changes its
+/// extent by at most about one pixel (so 2.5 leaves room for that and an anti-aliased rim).
+const TILTED_MIN_TICK_PX: f32 = 2.5;
 
 /// Splits `blobs` into rulers and the blobs that are not part of one.
 pub(crate) fn find_rulers(w: usize, blobs: Vec<Blob>, s: &FieldMarkSettings) -> (Vec<Ruler>, Vec<Blob>) {
@@ -55,6 +74,14 @@ pub(crate) fn find_rulers(w: usize, blobs: Vec<Blob>, s: &FieldMarkSettings) -> 
             let b = blobs[i].bbox;
             bb = [bb[0].min(b[0]), bb[1].min(b[1]), bb[2].max(b[2]), bb[3].max(b[3])];
         }
+        if let Some((ticks, period, angle)) = tilted(w, members.iter().map(|&i| &blobs[i]), s) {
+            for &i in members {
+                used[i] = true;
+            }
+            let px = members.iter().flat_map(|&i| blobs[i].pixels.iter().copied()).collect();
+            rulers.push((bb, ticks, period, angle, Some(px)));
+            continue;
+        }
         let (bw, bh) = (bb[2] - bb[0], bb[3] - bb[1]);
         let (len, thick) = (bw.max(bh), bw.min(bh));
         if len < s.ruler_min_len || len < 3 * thick {
@@ -72,11 +99,65 @@ pub(crate) fn find_rulers(w: usize, blobs: Vec<Blob>, s: &FieldMarkSettings) -> 
             for &i in members {
                 used[i] = true;
             }
-            rulers.push((bb, ticks, period));
+            rulers.push((bb, ticks, period, if across_x { 0.0 } else { 90.0 }, None));
         }
     }
     let rest = blobs.into_iter().zip(used).filter(|(_, u)| !u).map(|(b, _)| b).collect();
     (rulers, rest)
+}
+
+/// A run of `members` tilted by more than `TILT_SNAP_DEG` from the rows and columns, long and
+/// thin along its principal axis, whose extent across that axis pulses like ticks: its tick
+/// count, spacing and angle (degrees from the rows, 0..180).
+fn tilted<'a>(w: usize, members: impl Iterator<Item = &'a Blob>, s: &FieldMarkSettings) -> Option<(usize, f32, f32)> {
+    let pts: Vec<(f32, f32)> = members.flat_map(|b| b.pixels.iter().map(|&p| ((p % w) as f32, (p / w) as f32))).collect();
+    let n = pts.len() as f32;
+    if pts.len() < s.ruler_min_len {
+        return None;
+    }
+    let (mx, my) = (pts.iter().map(|p| p.0).sum::<f32>() / n, pts.iter().map(|p| p.1).sum::<f32>() / n);
+    let (mut sxx, mut syy, mut sxy) = (0f32, 0f32, 0f32);
+    for &(x, y) in &pts {
+        sxx += (x - mx) * (x - mx);
+        syy += (y - my) * (y - my);
+        sxy += (x - mx) * (y - my);
+    }
+    // Principal axis of the pixel cloud: half the angle of (sxx - syy, 2 sxy).
+    let theta = 0.5 * (2.0 * sxy).atan2(sxx - syy);
+    let deg = theta.to_degrees().rem_euclid(180.0);
+    let off_axis = (deg % 90.0).min(90.0 - deg % 90.0);
+    if off_axis <= TILT_SNAP_DEG {
+        return None;
+    }
+    let (ux, uy) = (theta.cos(), theta.sin());
+    let along: Vec<f32> = pts.iter().map(|&(x, y)| (x - mx) * ux + (y - my) * uy).collect();
+    let across: Vec<f32> = pts.iter().map(|&(x, y)| -(x - mx) * uy + (y - my) * ux).collect();
+    let (t0, t1) = along.iter().fold((f32::MAX, f32::MIN), |(a, b), &t| (a.min(t), b.max(t)));
+    let (v0, v1) = across.iter().fold((f32::MAX, f32::MIN), |(a, b), &v| (a.min(v), b.max(v)));
+    let (len, thick) = (t1 - t0, v1 - v0);
+    if len < s.ruler_min_len as f32 || len < 3.0 * thick {
+        return None;
+    }
+    // Extent across the axis in each one-pixel step along it (0 where the step is empty).
+    let steps = len.floor() as usize + 1;
+    let mut lo = vec![f32::MAX; steps];
+    let mut hi = vec![f32::MIN; steps];
+    for (&t, &v) in along.iter().zip(&across) {
+        let k = ((t - t0).floor() as usize).min(steps - 1);
+        lo[k] = lo[k].min(v);
+        hi[k] = hi[k].max(v);
+    }
+    let extent: Vec<f32> = lo.iter().zip(&hi).map(|(&a, &b)| if b >= a { b - a + 1.0 } else { 0.0 }).collect();
+    // The baseline's extent: the lower quartile of the steps (ticks are narrow, so most steps
+    // hold only the baseline, or nothing for a scale of separate ticks).
+    let mut sorted = extent.clone();
+    sorted.sort_by(|a, b| a.total_cmp(b));
+    let base = sorted[sorted.len() / 4];
+    let top = sorted[sorted.len() - 1];
+    let need = (0.3 * (top - base)).max(TILTED_MIN_TICK_PX);
+    // Two per tick step, none elsewhere: `ticks` reads pulses at least 2 high.
+    let profile: Vec<usize> = extent.iter().map(|&e| 2 * usize::from(e - base >= need)).collect();
+    ticks(&profile, s).map(|(k, p)| (k, p, deg))
 }
 
 /// Tick count and spacing when `profile` is a train of narrow, evenly spaced pulses.

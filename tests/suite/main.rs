@@ -49,6 +49,7 @@ mod regions_finders;
 mod regions_flag;
 mod regions_grow;
 mod regions_marks;
+mod regions_precision;
 mod regions_hotspot;
 mod regions_repeated;
 mod sweep;
