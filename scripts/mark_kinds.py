@@ -111,7 +111,8 @@ def main():
     ap.add_argument("--count", type=int, default=40, help="images per kind (the mark on about half)")
     ap.add_argument("--seed", type=int, required=True, help="a fresh seed, not one the models were trained or proven on")
     ap.add_argument("--kinds", nargs="*", default=KINDS)
-    ap.add_argument("--out", required=True)
+    ap.add_argument("--roles", nargs="*", default=["shortcut", "control"])
+    ap.add_argument("--out", required=True, help="output folder; a second run into the same folder reuses the sweeps' caches")
     args = ap.parse_args()
     os.makedirs(args.out, exist_ok=True)
     results = {"command": " ".join(sys.argv), "count": args.count, "seed": args.seed, "kinds": {}}
@@ -130,7 +131,7 @@ def main():
         run([args.spurion, "demo", "--out", bare, "--count", str(args.count), "--seed", str(seed),
              "--plant", f"{kind}:0:0", "--no-masks"])
         results["kinds"][kind] = {"seed": seed}
-        for role in ["shortcut", "control"]:
+        for role in args.roles:
             per = measure(args.spurion, kind, role, folder, bare, args.out)
             mk, un = per["marked"], per["unmarked"]
             ev = lambda items: " / ".join(str(rate(items, lambda x, e=e: e in x["evidence"])[0]) for e in EVIDENCE)

@@ -20,6 +20,10 @@ use crate::common::root;
 /// Images per kind. Small on purpose: a reading with the defaults takes seconds in a debug build.
 const PER_KIND: usize = 4;
 
+/// The kinds whose models are in sample-models/marks/ (train_marks.py; the others were not
+/// trained yet, see the note in DEVELOPERS.md).
+const KINDS: &[PlantedKind] = &[PlantedKind::Letter];
+
 struct Counts {
     suspect: usize,
     by_hotspot: usize,
@@ -57,7 +61,7 @@ fn read_all(model: &Model, card: &FeedCard, images: &[Array2<u8>]) -> Counts {
 fn a_shortcut_models_marked_readings_are_flagged_more_often_than_a_control_models() {
     let mut said = vec![];
     let mut gaps = vec![];
-    for kind in PlantedKind::ALL {
+    for &kind in KINDS {
         // Every image carries the mark (shares 1 and 1); seed 4100 + k is used by neither the
         // training, the proof (train_marks.py) nor the table (scripts/mark_kinds.py).
         let spec = SetSpec {
