@@ -245,3 +245,60 @@ pub(crate) fn annotation(
         }
     }
 }
+
+/// Which mark a [`Planted`] rule puts on images.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum PlantedKind {
+    /// The bare side letter in a changing corner.
+    Letter,
+    /// The reader's thin ring (around the finding, or around a place in a lung on a negative).
+    Ring,
+    /// The ticked ruler along one edge.
+    Ruler,
+    /// The reader's arrow (likewise).
+    Arrow,
+}
+named!(PlantedKind, "planted mark", Letter = "letter", Ring = "ring", Ruler = "ruler", Arrow = "arrow");
+
+impl PlantedKind {
+    pub const ALL: [PlantedKind; 4] = [PlantedKind::Letter, PlantedKind::Ring, PlantedKind::Ruler, PlantedKind::Arrow];
+}
+
+/// A mark put on images by their label instead of by a site's habit, to make models that use
+/// it (a shortcut: on most positives, few negatives) and models that cannot (a control: the
+/// same share of every class). Whether image i carries it is one draw from a stream of its own
+/// compared with the share of its class, so the same seed with other shares gives the very same
+/// images with the mark on others (shares 0 and 0: the same images without it).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Planted {
+    pub kind: PlantedKind,
+    /// Share of the images with a finding that carry the mark, 0..1.
+    pub positive: f32,
+    /// Share of the images without one that carry it, 0..1.
+    pub negative: f32,
+}
+
+impl fmt::Display for Planted {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}:{}:{}", self.kind, self.positive, self.negative)
+    }
+}
+
+impl FromStr for Planted {
+    type Err = anyhow::Error;
+    /// `KIND:POSITIVE:NEGATIVE`, e.g. `ring:0.9:0.1`.
+    fn from_str(s: &str) -> Result<Self> {
+        let parts: Vec<&str> = s.split(':').map(str::trim).collect();
+        let [kind, pos, neg] = parts[..] else {
+            bail!("planted mark '{s}' should be KIND:POSITIVE:NEGATIVE, e.g. ring:0.9:0.1 (the shares of positives and of negatives that carry it)")
+        };
+        let share = |v: &str, what: &str| -> Result<f32> {
+            match v.parse::<f32>() {
+                Ok(x) if (0.0..=1.0).contains(&x) => Ok(x),
+                _ => bail!("planted mark '{s}': the share of {what} '{v}' should be a number from 0 to 1"),
+            }
+        };
+        Ok(Planted { kind: kind.parse()?, positive: share(pos, "positives")?, negative: share(neg, "negatives")? })
+    }
+}

@@ -26,7 +26,7 @@ pub mod marks;
 mod phantom;
 
 pub use font::{GLYPH_H, GLYPH_W, for_each_lit, tag_height, tag_width};
-pub use marks::{ANNOTATION_LEVEL, Annotation, Corner, Edge, LETTER_LEVEL, RULER_LEVEL};
+pub use marks::{ANNOTATION_LEVEL, Annotation, Corner, Edge, LETTER_LEVEL, Planted, PlantedKind, RULER_LEVEL};
 pub use phantom::{
     DEFAULT_CONTRAST, DEFAULT_SIZE, FILM_MAX, FILM_MIN, FRAME_LEVEL, LABELS, ManifestRow, Phantom, PhantomSpec, Site,
     TAG_CODE, TAG_LEVEL, render, tag_text,
@@ -134,6 +134,10 @@ pub struct SetSpec {
     /// an arrow ([`READER_ARROW`]) before export.
     #[serde(default)]
     pub reader_marks: bool,
+    /// A mark put on images by their label, on any site (see [`Planted`]): for shortcut and
+    /// control models of one mark kind (sample-models/train_marks.py). None by default.
+    #[serde(default)]
+    pub planted: Option<Planted>,
 }
 
 impl Default for SetSpec {
@@ -150,6 +154,7 @@ impl Default for SetSpec {
             by_site: false,
             fellbrook: 0,
             reader_marks: false,
+            planted: None,
         }
     }
 }
@@ -201,9 +206,9 @@ impl SetSpec {
             Marks::Swapped => !finding,
         };
         let habits = self.marks != Marks::None;
-        let letter = habits && site.writes_side_letter();
-        let ruler = letter && later.random::<f32>() < FELLBROOK_RULER;
-        let annotation = if habits && self.reader_marks && site == Site::Hillmoor && finding {
+        let mut letter = habits && site.writes_side_letter();
+        let mut ruler = letter && later.random::<f32>() < FELLBROOK_RULER;
+        let mut annotation = if habits && self.reader_marks && site == Site::Hillmoor && finding {
             match later.random::<f32>() {
                 r if r < READER_RING => Annotation::Ring,
                 r if r < READER_RING + READER_ARROW => Annotation::Arrow,
@@ -212,6 +217,21 @@ impl SetSpec {
         } else {
             Annotation::None
         };
+        // The planted mark: one draw from a stream of its own, so no other draw moves.
+        let mut unfounded = false;
+        if let Some(p) = self.planted {
+            let mut plant = ChaCha8Rng::seed_from_u64(seed);
+            plant.set_stream(10);
+            if plant.random::<f32>() < if finding { p.positive } else { p.negative } {
+                match p.kind {
+                    PlantedKind::Letter => letter = true,
+                    PlantedKind::Ruler => ruler = true,
+                    PlantedKind::Ring => annotation = Annotation::Ring,
+                    PlantedKind::Arrow => annotation = Annotation::Arrow,
+                }
+                unfounded = !finding && annotation != Annotation::None;
+            }
+        }
         PhantomSpec {
             seed,
             size: self.size,
@@ -223,6 +243,7 @@ impl SetSpec {
             letter,
             ruler,
             annotation,
+            unfounded,
         }
     }
 

@@ -134,6 +134,11 @@ pub struct PhantomSpec {
     /// The Hillmoor reader's ring or arrow on the (first) finding; drawn only with a finding.
     #[serde(default)]
     pub annotation: Annotation,
+    /// Draw the reader's mark even without a finding, around a place in a lung picked from a
+    /// stream of its own (a suspicion the reader marked and that was not borne out). Only the
+    /// planted marks of [`super::Planted`] ask for it; without it a negative gets no ring or arrow.
+    #[serde(default)]
+    pub unfounded: bool,
 }
 
 impl PhantomSpec {
@@ -150,6 +155,7 @@ impl PhantomSpec {
             letter: site.writes_side_letter(),
             ruler: false,
             annotation: Annotation::None,
+            unfounded: false,
         }
     }
 }
@@ -196,6 +202,7 @@ impl ManifestRow {
             letter: self.letter.is_some(),
             ruler: self.ruler.is_some(),
             annotation: self.annotation,
+            unfounded: self.annotation != Annotation::None && self.opacities == 0,
         }
     }
 }
@@ -341,9 +348,14 @@ pub fn render(spec: &PhantomSpec) -> Phantom {
 
     // The marks of the later scenario, each from its own stream; frame and tag go over them.
     let mut annotation_mask = Array2::<bool>::from_elem((n, n), false);
-    let annotation = match opacities.first() {
-        Some(o) if spec.annotation != Annotation::None => {
-            marks::annotation(&mut image, &mut annotation_mask, spec.annotation, (o.cx, o.cy, o.r), &mut stream(spec.seed, 7));
+    let marked_place = match opacities.first() {
+        Some(o) => Some((o.cx, o.cy, o.r)),
+        None if spec.unfounded => Some(unfounded_place(spec.seed, &lungs)),
+        None => None,
+    };
+    let annotation = match marked_place {
+        Some(place) if spec.annotation != Annotation::None => {
+            marks::annotation(&mut image, &mut annotation_mask, spec.annotation, place, &mut stream(spec.seed, 7));
             spec.annotation
         }
         _ => Annotation::None,
@@ -424,6 +436,22 @@ impl Phantom {
 /// The tag's text for a laterality letter, e.g. "HM L".
 pub fn tag_text(laterality: char) -> String {
     format!("{TAG_CODE} {laterality}")
+}
+
+/// Where a reader marks a suspicion that has no finding under it: a place well inside a lung
+/// and a radius like an opacity's, from a stream of its own (8).
+fn unfounded_place(seed: u64, lungs: &[Ellipse; 2]) -> (f32, f32, f32) {
+    let mut r = stream(seed, 8);
+    let lung = lungs[r.random_range(0..2usize)];
+    let mut at = (lung.cx, lung.cy);
+    for _ in 0..64 {
+        let (u, v) = (r.random_range(-1.0f32..1.0), r.random_range(-1.0f32..1.0));
+        if u * u + v * v < 0.45 {
+            at = (lung.cx + u * lung.ax, lung.cy + v * lung.ay);
+            break;
+        }
+    }
+    (at.0, at.1, r.random_range(6.0f32..11.0))
 }
 
 /// One to three opacities, centred well inside a lung (rejection sampling, bounded tries).

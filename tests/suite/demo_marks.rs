@@ -7,8 +7,8 @@ use std::path::Path;
 use ndarray::Array2;
 use spurion::control::Control;
 use spurion::demo::{
-    self, ANNOTATION_LEVEL, Annotation, Corner, Edge, FILM_MAX, FILM_MIN, LETTER_LEVEL, Marks, Mix, PhantomSpec, RULER_LEVEL, SetSpec,
-    Site,
+    self, ANNOTATION_LEVEL, Annotation, Corner, Edge, FILM_MAX, FILM_MIN, LETTER_LEVEL, Marks, Mix, PhantomSpec, Planted, PlantedKind,
+    RULER_LEVEL, SetSpec, Site,
 };
 use spurion::regions::mask_bbox;
 
@@ -169,4 +169,40 @@ fn a_written_set_with_the_later_marks_has_their_manifest_columns_and_masks() {
         assert_eq!(count(&p.annotation_mask) > 0, r.annotation != Annotation::None);
     }
     assert!(rulers > 0 && rulers < 10, "a ruler on some of Fellbrook's images, not all: {rulers} of 10");
+}
+
+#[test]
+fn a_planted_mark_follows_the_label_and_changes_only_its_own_pixels() {
+    // `--plant KIND:POS:NEG`: the mark on a share of each class, on any site; shares 0 and 0
+    // give the very images of a set without it, and a marked image differs from its bare twin
+    // exactly on the mark's mask. A ring or arrow on a negative goes around a place in a lung.
+    let plain = SetSpec { count: 12, seed: 77, mix: Mix::Even, ..SetSpec::default() };
+    for kind in PlantedKind::ALL {
+        let with = |positive, negative| SetSpec { planted: Some(Planted { kind, positive, negative }), ..plain.clone() };
+        let (shortcut, bare, every) = (with(1.0, 0.0), with(0.0, 0.0), with(1.0, 1.0));
+        let mut negatives_marked = 0;
+        for i in 0..plain.count {
+            let p = demo::render(&plain.phantom(i));
+            let b = demo::render(&bare.phantom(i));
+            assert_eq!(p.image, b.image, "{kind} image {i}: shares 0:0 draw the set as it was");
+            let s = demo::render(&shortcut.phantom(i));
+            let e = demo::render(&every.phantom(i));
+            let mask = |ph: &demo::Phantom| match kind {
+                PlantedKind::Letter => ph.letter_mask.clone(),
+                PlantedKind::Ruler => ph.ruler_mask.clone(),
+                PlantedKind::Ring | PlantedKind::Arrow => ph.annotation_mask.clone(),
+            };
+            assert_eq!(count(&mask(&s)) > 0, p.row.finding, "{kind} image {i}: on every positive, on no negative");
+            assert!(count(&mask(&e)) > 0, "{kind} image {i}: shares 1:1 mark every image");
+            assert_eq!(diff(&p.image, &e.image), mask(&e), "{kind} image {i}: only the mark's pixels change");
+            negatives_marked += (!p.row.finding) as usize;
+            // The manifest row draws the marked image again.
+            assert_eq!(demo::render(&e.row.spec()).image, e.image, "{kind} image {i}");
+        }
+        assert!(negatives_marked > 0);
+    }
+    assert!("ring:0.9:0.1".parse::<Planted>().is_ok());
+    for bad in ["ring", "ring:2:0", "spot:0.5:0.5", "ring:0.5"] {
+        assert!(bad.parse::<Planted>().is_err(), "{bad}");
+    }
 }

@@ -55,4 +55,5 @@ mod regions_repeated;
 mod sweep;
 mod transformers;
 mod sweep_recurring;
+mod mark_kinds;
 mod window_values;
