@@ -55,3 +55,4 @@ mod sweep;
 mod transformers;
 mod sweep_recurring;
 mod window_values;
+mod zoo;
