@@ -16,9 +16,28 @@ use tract_onnx::prelude::*;
 /// An optimised, runnable tract plan. Shared between threads; each run spawns its own state.
 pub type Plan = Arc<TypedSimplePlan>;
 
+/// tract's declutter; when its axis-moving pass fails (tract 0.23.9 builds a convolution with a
+/// [C, 1] bias while pushing axes through some exports that turn NHWC input into NCHW by
+/// transposes and add the bias as a separate, reshaped operand), the same passes without that
+/// one. The graph then keeps its transposes, which the reverse pass handles as `MoveAxis`.
+pub fn declutter(g: TypedModel) -> Result<TypedModel> {
+    let spare = g.clone();
+    match g.into_decluttered() {
+        Ok(g) => Ok(g),
+        Err(first) => {
+            let mut passes = tract_onnx::tract_core::optim::Optimizer::declutter();
+            passes.passes.retain(|p| format!("{p:?}") != "ChangeAxes");
+            let mut g = spare;
+            passes.optimize(&mut g).map_err(|_| anyhow!("{first:#}"))?;
+            Ok(g)
+        }
+    }
+}
+
 /// An optimised plan of `m` as it is (its own inputs and outputs).
 pub fn plan(m: TypedModel) -> Result<Plan> {
-    let m = m.into_optimized().map_err(|e| anyhow!("tract could not optimize the graph: {e:#}"))?;
+    let mut m = declutter(m).map_err(|e| anyhow!("tract could not optimize the graph: {e:#}"))?;
+    m.optimize().map_err(|e| anyhow!("tract could not optimize the graph: {e:#}"))?;
     TypedSimplePlan::new(m).map_err(|e| anyhow!("tract could not plan the graph: {e:#}"))
 }
 

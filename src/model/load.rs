@@ -40,7 +40,17 @@ pub(crate) fn proto_sha256(proto: &pb::ModelProto) -> String {
 /// A protobuf model as tract's inference graph; `path` is where it came from (external data is
 /// looked for beside it, and errors name it).
 pub(crate) fn parse_proto(path: &Path, proto: &pb::ModelProto) -> Result<InferenceModel> {
-    let onnx = tract_onnx::onnx();
+    parse_proto_with(path, proto, false)
+}
+
+/// As [`parse_proto`]; `without_declared_shapes` ignores the shapes the file declares for its
+/// outputs and intermediate values (`value_info`). Some exporters declare them in terms of a
+/// named batch symbol (PaddlePaddle's `DynamicDimension.0`) that tract will not unify with the
+/// batch of 1 spurion feeds; tract works the shapes out from the input without them.
+pub(crate) fn parse_proto_with(path: &Path, proto: &pb::ModelProto, without_declared_shapes: bool) -> Result<InferenceModel> {
+    let onnx = tract_onnx::onnx()
+        .with_ignore_value_info(without_declared_shapes)
+        .with_ignore_output_shapes(without_declared_shapes);
     let graph = proto.graph.as_ref().ok_or_else(|| {
         anyhow!(
             "the model file {} holds no graph (corrupt, truncated or not ONNX); export it again",

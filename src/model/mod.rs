@@ -128,6 +128,12 @@ pub struct Model {
     split: [OnceLock<std::result::Result<Option<Arc<grad::AffineSplit>>, String>>; 2],
 }
 
+/// The inference graph typed at a concrete input shape.
+fn typed_at(mut inference: InferenceModel, input_shape: &[usize]) -> Result<TypedModel> {
+    inference.set_input_fact(0, f32::fact(input_shape).into()).map_err(|e| anyhow!("{e}"))?;
+    inference.into_typed().map_err(|e| anyhow!("{e:#}"))
+}
+
 impl Model {
     pub fn load(path: &Path, opts: &LoadOptions) -> Result<Model> {
         let (proto, sha256) = load::read(path)?;
@@ -142,22 +148,30 @@ impl Model {
     }
 
     fn from_proto(path: &Path, proto: &pb::ModelProto, sha256: String, opts: &LoadOptions) -> Result<Model> {
-        let mut inference = load::parse_proto(path, proto)?;
+        let inference = load::parse_proto(path, proto)?;
         let onnx_ops = onnx_op_counts(proto);
         let input_shape = load::concrete_input_shape(path, &inference, opts.input_shape.as_deref())?;
-        inference
-            .set_input_fact(0, f32::fact(input_shape.clone()).into())
-            .map_err(|e| anyhow!("{e}"))?;
-        let typed = inference.into_typed().map_err(|e| {
+        let typed = match typed_at(inference, &input_shape) {
+            Ok(t) => t,
+            // Shapes the file declares for inner values can disagree with the batch of 1 fed
+            // here (a named batch symbol); tract infers them from the input without them.
+            Err(first) => load::parse_proto_with(path, proto, true)
+                .and_then(|lenient| typed_at(lenient, &input_shape))
+                .map_err(|_| {
+                    anyhow!(
+                        "tract could not work out the types and shapes of {} with input shape {:?}: \
+                         {first:#}. Check the input shape (it must be the one the model was exported for)",
+                        path.display(),
+                        input_shape
+                    )
+                })?,
+        };
+        let graph = crate::graph::declutter(typed).map_err(|e| {
             anyhow!(
-                "tract could not work out the types and shapes of {} with input shape {:?}: \
-                 {e:#}. Check the input shape (it must be the one the model was exported for)",
-                path.display(),
-                input_shape
+                "tract could not simplify the graph of {}: {e:#}. Re-exporting the model (a recent \
+                 opset, constant folding on) may avoid the construct tract trips on",
+                path.display()
             )
-        })?;
-        let graph = typed.into_decluttered().map_err(|e| {
-            anyhow!("tract could not simplify the graph of {}: {e:#}", path.display())
         })?;
         let mut graph = graph;
         let input_name = graph.node(graph.input_outlets()?[0].node).name.clone();

@@ -57,3 +57,4 @@ mod transformers;
 mod sweep_recurring;
 mod mark_kinds;
 mod window_values;
+mod zoo;
