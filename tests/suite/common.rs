@@ -52,3 +52,31 @@ pub fn rel_err(a: &[f32], b: &[f32], floor: f32) -> f32 {
     let scale = b.iter().fold(floor, |m, v| m.max(v.abs()));
     a.iter().zip(b).fold(0.0f32, |m, (x, y)| m.max((x - y).abs())) / scale
 }
+
+/// The committed clean photographs in tests/fixtures/regions (open images: scikit-image's data and
+/// pydicom's test files; `SOURCES.txt` there names each), none of which carries a mark.
+pub const CLEAN_PHOTOS: &[&str] = &[
+    "skimage-camera.png",
+    "skimage-astronaut.png",
+    "skimage-coins.png",
+    "skimage-moon.png",
+    "skimage-brick.png",
+    "skimage-grass.png",
+    "skimage-gravel.png",
+    "skimage-shepp_logan_phantom.png",
+    "skimage-chelsea.png",
+    "skimage-coffee.png",
+    "skimage-rgb-astronaut.png",
+    "skimage-rgb-chelsea.png",
+    "skimage-rgb-coffee.png",
+    "skimage-rgb-retina.png",
+    "skimage-rgb-immunohistochemistry.png",
+    "skimage-rgb-hubble_deep_field.png",
+    "pydicom-ct-small.png",
+    "pydicom-mr-small.png",
+];
+
+/// The grey ones of [`CLEAN_PHOTOS`] (the RGB copies left out).
+pub fn clean_grey_photos() -> impl Iterator<Item = &'static str> {
+    CLEAN_PHOTOS.iter().copied().filter(|f| !f.starts_with("skimage-rgb-"))
+}

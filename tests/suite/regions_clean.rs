@@ -8,27 +8,12 @@ use std::path::PathBuf;
 
 use spurion::regions::{FinderSettings, RegionKind, find_regions, load_luminance};
 
-const FILES: &[&str] = &[
-    "skimage-camera.png",
-    "skimage-astronaut.png",
-    "skimage-coins.png",
-    "skimage-moon.png",
-    "skimage-brick.png",
-    "skimage-grass.png",
-    "skimage-gravel.png",
-    "skimage-shepp_logan_phantom.png",
-    "skimage-chelsea.png",
-    "skimage-coffee.png",
-    "pydicom-ct-small.png",
-    "pydicom-mr-small.png",
-];
-
 #[test]
 fn clean_real_images_give_few_false_positives() {
     let dir = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/regions");
     let settings = FinderSettings::default();
     let (mut bands, mut marks) = (0, 0);
-    for f in FILES {
+    for f in crate::common::clean_grey_photos() {
         let img = load_luminance(&dir.join(f)).unwrap();
         let found = find_regions(&img, &settings);
         let b = found.iter().filter(|r| r.kind == RegionKind::BorderBand).count();
@@ -40,6 +25,6 @@ fn clean_real_images_give_few_false_positives() {
         bands += b;
         marks += m;
     }
-    eprintln!("total false positives: {bands} border bands, {marks} burned-in marks over {} images", FILES.len());
+    eprintln!("total false positives: {bands} border bands, {marks} burned-in marks over {} images", crate::common::clean_grey_photos().count());
     assert_eq!(bands + marks, 0, "false positives on clean images (see the list above)");
 }

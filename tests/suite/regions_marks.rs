@@ -320,27 +320,6 @@ fn stickers_and_pen_blobs() {
     assert!(named >= 0.75, "stickers named {named:.2}");
 }
 
-const CLEAN: &[&str] = &[
-    "skimage-camera.png",
-    "skimage-astronaut.png",
-    "skimage-coins.png",
-    "skimage-moon.png",
-    "skimage-brick.png",
-    "skimage-grass.png",
-    "skimage-gravel.png",
-    "skimage-shepp_logan_phantom.png",
-    "skimage-chelsea.png",
-    "skimage-coffee.png",
-    "skimage-rgb-astronaut.png",
-    "skimage-rgb-chelsea.png",
-    "skimage-rgb-coffee.png",
-    "skimage-rgb-retina.png",
-    "skimage-rgb-immunohistochemistry.png",
-    "skimage-rgb-hubble_deep_field.png",
-    "pydicom-ct-small.png",
-    "pydicom-mr-small.png",
-];
-
 fn shape_name(r: &Region) -> String {
     r.mark.map_or(r.kind.name().to_string(), |m| m.name().to_string())
 }
@@ -350,7 +329,7 @@ fn clean_photographs_grey_and_colour_give_no_marks() {
     let dir = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/regions");
     let mut total = 0;
     let mut by_shape = std::collections::BTreeMap::new();
-    for f in CLEAN {
+    for f in crate::common::CLEAN_PHOTOS {
         let pic = Picture::open(&dir.join(f)).unwrap();
         let found = find_regions_in(&pic.pixels, &with_field_marks());
         eprintln!("{f} ({} channel(s)): {} region(s)", pic.channels(), found.len());
@@ -360,7 +339,7 @@ fn clean_photographs_grey_and_colour_give_no_marks() {
         }
         total += found.len();
     }
-    eprintln!("false finds of the field-mark finders (on) on {} clean photographs: {total}", CLEAN.len());
+    eprintln!("false finds of the field-mark finders (on) on {} clean photographs: {total}", crate::common::CLEAN_PHOTOS.len());
     for (shape, n) in &by_shape {
         eprintln!("    {shape}: {n}");
     }

@@ -39,28 +39,6 @@ fn shape_name(r: &Region) -> String {
         .map_or(r.kind.name().to_string(), |m| m.name().to_string())
 }
 
-/// The committed clean photographs (tuning set, first part).
-const TUNING_COMMITTED: &[&str] = &[
-    "skimage-camera.png",
-    "skimage-astronaut.png",
-    "skimage-coins.png",
-    "skimage-moon.png",
-    "skimage-brick.png",
-    "skimage-grass.png",
-    "skimage-gravel.png",
-    "skimage-shepp_logan_phantom.png",
-    "skimage-chelsea.png",
-    "skimage-coffee.png",
-    "skimage-rgb-astronaut.png",
-    "skimage-rgb-chelsea.png",
-    "skimage-rgb-coffee.png",
-    "skimage-rgb-retina.png",
-    "skimage-rgb-immunohistochemistry.png",
-    "skimage-rgb-hubble_deep_field.png",
-    "pydicom-ct-small.png",
-    "pydicom-mr-small.png",
-];
-
 /// The files of `wider/` whose names start with `prefix`, sorted.
 fn wider(prefix: &str) -> Vec<PathBuf> {
     let dir = fixtures().join("wider");
@@ -102,7 +80,7 @@ fn false_finds(set: &str, files: &[PathBuf]) -> (usize, BTreeMap<String, usize>)
 
 #[test]
 fn false_finds_on_the_tuning_and_held_out_sets() {
-    let mut tuning: Vec<PathBuf> = TUNING_COMMITTED
+    let mut tuning: Vec<PathBuf> = crate::common::CLEAN_PHOTOS
         .iter()
         .map(|f| fixtures().join(f))
         .collect();
@@ -612,7 +590,7 @@ fn with_the_defaults_only_rulers_are_looked_for_and_none_is_found_on_clean_pictu
     blend(&mut ring, &[0.97], [40.0, 40.0, 90.0, 90.0], |x, y| (((x - 65.0).powi(2) + (y - 65.0).powi(2)).sqrt() - 20.0).abs() <= 1.0);
     assert!(find_regions_in(&ring, &defaults).iter().all(|r| r.mark != Some(MarkShape::DrawnAnnotation)));
     // No ruler on any clean picture of either set.
-    let mut all: Vec<PathBuf> = TUNING_COMMITTED.iter().map(|f| fixtures().join(f)).collect();
+    let mut all: Vec<PathBuf> = crate::common::CLEAN_PHOTOS.iter().map(|f| fixtures().join(f)).collect();
     all.extend(wider("tune-"));
     all.extend(wider("held-"));
     let mut rulers = 0;

@@ -12,26 +12,12 @@ use ndarray::{Array2, s};
 use spurion::demo::{PhantomSpec, Site, for_each_lit, render};
 use spurion::regions::{RepeatedPatchSettings, box_iou, find_repeated_patches, load_luminance, mask_bbox};
 
-const PHOTOS: &[&str] = &[
-    "skimage-camera.png",
-    "skimage-astronaut.png",
-    "skimage-coins.png",
-    "skimage-moon.png",
-    "skimage-brick.png",
-    "skimage-grass.png",
-    "skimage-gravel.png",
-    "skimage-shepp_logan_phantom.png",
-    "skimage-chelsea.png",
-    "skimage-coffee.png",
-    "pydicom-ct-small.png",
-];
-
 /// The centre 96×96 of every photograph (the smallest is 128 px on a side; pydicom's 64-px MR
 /// slice is left out).
 fn photos() -> Vec<Array2<f32>> {
     let dir = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/regions");
-    PHOTOS
-        .iter()
+    crate::common::clean_grey_photos()
+        .filter(|f| *f != "pydicom-mr-small.png")
         .map(|f| {
             let im = load_luminance(&dir.join(f)).unwrap();
             let (h, w) = im.dim();
