@@ -180,11 +180,38 @@ impl ModelArgs {
 
 #[derive(Args, Debug)]
 pub struct InfoArgs {
-    #[command(flatten)]
-    pub model: ModelArgs,
+    /// The ONNX model file (`spurion info model.onnx`; `--model` says the same).
+    #[arg(value_name = "MODEL", conflicts_with = "model", required_unless_present = "model")]
+    pub file: Option<PathBuf>,
+    /// The ONNX model file.
+    #[arg(long, short = 'm')]
+    pub model: Option<PathBuf>,
+    /// Input shape, e.g. 1,3,224,224, for models with dynamic input dimensions.
+    #[arg(long, value_delimiter = ',')]
+    pub input_shape: Option<Vec<usize>>,
+    /// Feed card to use instead of the sidecar MODEL.feed.toml.
+    #[arg(long)]
+    pub feed: Option<PathBuf>,
+    /// The model output to explain, by its ONNX name, for models with several outputs;
+    /// overrides the feed card's `[output] name`.
+    #[arg(long)]
+    pub output: Option<String>,
     /// Print JSON instead of a table.
     #[arg(long)]
     pub json: bool,
+}
+
+impl InfoArgs {
+    /// The model's arguments as every other command takes them.
+    fn model_args(&self) -> ModelArgs {
+        ModelArgs {
+            // clap requires one of the two, so the fallback is never used.
+            model: self.file.clone().or_else(|| self.model.clone()).unwrap_or_default(),
+            input_shape: self.input_shape.clone(),
+            feed: self.feed.clone(),
+            output: self.output.clone(),
+        }
+    }
 }
 
 #[derive(Args, Debug)]
@@ -317,10 +344,11 @@ pub(crate) fn warn_guessed_feed(card: &crate::feed::FeedCard, model: &Model) {
 }
 
 fn info(a: &InfoArgs) -> Result<()> {
-    let m = a.model.load()?;
+    let model = a.model_args();
+    let m = model.load()?;
     let info = m.info();
     // The feed a reading of an image would use (a model that takes no image has none).
-    let feed = a.model.card(&m).map(|c| c.summary(m.path()));
+    let feed = model.card(&m).map(|c| c.summary(m.path()));
     if a.json {
         let mut v = serde_json::to_value(&info)?;
         v["feed"] = match &feed {

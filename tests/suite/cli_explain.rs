@@ -136,6 +136,16 @@ fn a_model_with_open_height_and_width_takes_its_size_from_the_tensor_or_image() 
     let o = spurion(&["info", "--model", m]);
     assert_eq!(o.status.code(), Some(1));
     assert!(stderr(&o).contains("--input-shape") && stderr(&o).contains("feed card"), "{}", stderr(&o));
+    // The model may also be named without the flag, as a user first tries; the same refusal.
+    let o = spurion(&["info", m]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(stderr(&o).contains("--input-shape"), "{}", stderr(&o));
+    // With the shape given, both forms print the same description.
+    let flag = spurion(&["info", "--model", m, "--input-shape", "1,1,20,30"]);
+    let bare = spurion(&["info", m, "--input-shape", "1,1,20,30"]);
+    assert!(flag.status.success() && bare.status.success(), "{}{}", stderr(&flag), stderr(&bare));
+    assert_eq!(flag.stdout, bare.stdout);
+    assert!(String::from_utf8_lossy(&bare.stdout).contains("output"), "{}", String::from_utf8_lossy(&bare.stdout));
 }
 
 #[test]

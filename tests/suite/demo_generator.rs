@@ -29,16 +29,18 @@ fn stem(file: &str) -> &str {
 #[test]
 fn committed_demo_set_is_what_the_generator_writes() {
     let rows = committed_rows();
-    // `spurion demo --out assets/demo --count 36 --seed 1` wrote it (stratified, marks by site).
-    let spec = SetSpec { count: 36, seed: 1, ..SetSpec::default() };
-    assert_eq!(rows.len(), 36);
+    // `spurion demo --out assets/demo --count 36 --seed 1 --fellbrook 8` wrote it (stratified,
+    // marks by site; Fellbrook's eight images follow the founding sites' 36, which are bit for bit
+    // what `--count 36 --seed 1` alone writes).
+    let spec = SetSpec { count: 36, seed: 1, fellbrook: 8, ..SetSpec::default() };
+    assert_eq!(rows.len(), 44);
     for (i, r) in rows.iter().enumerate() {
         let want = spec.phantom(i);
         assert_eq!(r.spec(), want, "manifest row {i}");
         assert_eq!(r.file, format!("{}.png", spec.stem(i, want.site)));
     }
     // A few images, all sites and both labels among them: bytes of image and masks.
-    for i in [0, 2, 4, 5, 13, 35] {
+    for i in [0, 2, 4, 5, 13, 35, 36, 43] {
         let r = &rows[i];
         let p = demo::render(&r.spec());
         assert_eq!(p.row.laterality, r.laterality);
@@ -47,7 +49,7 @@ fn committed_demo_set_is_what_the_generator_writes() {
         assert_eq!(read_gray(&path), p.image, "pixels of {}", r.file);
         let bytes = std::fs::read(&path).unwrap();
         assert!(bytes == demo::png_bytes(&demo::to_gray_image(&p.image)).unwrap(), "PNG bytes of {}", r.file);
-        for (what, m) in [("tag", &p.tag_mask), ("frame", &p.frame_mask), ("finding", &p.finding_mask)] {
+        for (what, m) in [("tag", &p.tag_mask), ("frame", &p.frame_mask), ("finding", &p.finding_mask), ("letter", &p.letter_mask), ("ruler", &p.ruler_mask)] {
             let mpath = demo_dir().join(format!("masks/{}.{what}.png", stem(&r.file)));
             assert!(std::fs::read(&mpath).unwrap() == demo::png_bytes(&demo::mask_image(m)).unwrap(), "{}", mpath.display());
         }
@@ -57,17 +59,26 @@ fn committed_demo_set_is_what_the_generator_writes() {
 #[test]
 fn committed_demo_set_covers_sites_labels_and_marks() {
     let rows = committed_rows();
-    // The committed set is the founding sites' (no Fellbrook, no reader's marks: see the
-    // later-mark tests in demo_marks.rs).
+    // The founding sites' 36 and Fellbrook's 8 (side letter on each, a ruler on some); no
+    // reader's marks, which would redraw Hillmoor positives the sample models' recorded figures
+    // are pinned to (see the later-mark tests in demo_marks.rs).
     for site in Site::FOUNDING {
         for finding in [false, true] {
             let n = rows.iter().filter(|r| r.site == site && r.finding == finding).count();
             assert_eq!(n, 6, "{site} finding={finding}");
         }
     }
+    let fellbrook: Vec<_> = rows.iter().filter(|r| r.site == Site::Fellbrook).collect();
+    assert_eq!(fellbrook.len(), 8);
+    assert_eq!(fellbrook.iter().filter(|r| r.finding).count(), 4);
+    let rulers = fellbrook.iter().filter(|r| r.ruler.is_some()).count();
+    assert!((1..8).contains(&rulers), "a ruler on some of Fellbrook's images, not all or none: {rulers}");
     for r in &rows {
         assert_eq!(r.tag, r.site == Site::Hillmoor, "{}", r.file);
         assert_eq!(r.frame, r.site == Site::Hillmoor, "{}", r.file);
+        assert_eq!(r.letter.is_some(), r.site == Site::Fellbrook, "{}", r.file);
+        assert!(r.ruler.is_none() || r.site == Site::Fellbrook, "{}", r.file);
+        assert_eq!(r.annotation, demo::Annotation::None, "{}", r.file);
         assert_eq!(r.finding, r.opacities > 0, "{}", r.file);
         // The mask files agree with the manifest: marks where it says so, findings on positives.
         let s = stem(&r.file);
@@ -75,6 +86,10 @@ fn committed_demo_set_covers_sites_labels_and_marks() {
         assert_eq!(any("tag"), r.tag, "{s} tag");
         assert_eq!(any("frame"), r.frame, "{s} frame");
         assert_eq!(any("finding"), r.finding, "{s} finding");
+        if r.site == Site::Fellbrook {
+            assert!(any("letter"), "{s} letter");
+            assert_eq!(any("ruler"), r.ruler.is_some(), "{s} ruler");
+        }
     }
 }
 

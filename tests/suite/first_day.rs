@@ -137,13 +137,13 @@ fn the_bundled_demo_sweeps_each_image_once_in_readable_groups() {
             std::fs::read_to_string(dir.path().join(out).join("sweep.jsonl")).unwrap().lines().map(|l| serde_json::from_str(l).unwrap()).collect();
         rows
     };
-    // Folders: the 36 PNGs once each, in one group with a name a person reads.
+    // Folders: the 44 PNGs once each, in one group with a name a person reads.
     let rows = run(&[], "by-folder");
-    assert_eq!(rows.len(), 36, "each demo image once, no DICOM copy beside it");
+    assert_eq!(rows.len(), 44, "each demo image once, no DICOM copy beside it");
     assert!(rows.iter().all(|r| r["group"] == "(top folder)"), "{:?}", rows[0]["group"]);
-    // By the manifest's site: the scenario's three sites, 12 images each.
+    // By the manifest's site: the three founding sites, 12 images each, and Fellbrook's 8.
     let rows = run(&["--groups", &manifest], "by-site");
-    for site in ["north-quay", "saltmarsh", "hillmoor"] {
-        assert_eq!(rows.iter().filter(|r| r["group"] == site).count(), 12, "{site}");
+    for (site, n) in [("north-quay", 12), ("saltmarsh", 12), ("hillmoor", 12), ("fellbrook", 8)] {
+        assert_eq!(rows.iter().filter(|r| r["group"] == site).count(), n, "{site}");
     }
 }
