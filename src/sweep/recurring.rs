@@ -392,6 +392,7 @@ mod tests {
             descriptor,
             appearance,
             removal_area: 100,
+            removal_confined: true,
             removal: None,
             stroke_removal: None,
             flipped: Some(corner),

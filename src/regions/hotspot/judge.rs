@@ -59,6 +59,10 @@ pub struct HotspotReport {
     pub appearance: Vec<f32>,
     /// Area of the painted-out mask, pixels.
     pub removal_area: usize,
+    /// The painted-out mask stays within the size a hotspot may have (see [`judge`]); when it
+    /// does not and the hotspot has no strokes to paint alone, its removal is not a mark's.
+    #[serde(default = "yes")]
+    pub removal_confined: bool,
     /// What painting it out did (absent when no model was asked).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub removal: Option<Removal>,
@@ -74,6 +78,10 @@ pub struct HotspotReport {
     pub suspect: bool,
 }
 
+fn yes() -> bool {
+    true
+}
+
 impl HotspotReport {
     /// "corner hotspot at [x0, y0, x1, y1]".
     pub fn label(&self) -> String {
@@ -84,6 +92,13 @@ impl HotspotReport {
 /// The reports of `hotspots`, with what painting each out did (`removals`, one per hotspot,
 /// in order; `None` when no model was asked) given the top class at the input. Removal
 /// "matters" when it lowers the target's probability by at least `min_probability_drop`.
+///
+/// A hotspot that looks like a mark is suspect only when a removal confined to the mark moves
+/// the score: its strokes alone when it has strokes, else its whole removal mask as long as that
+/// mask stays within the size a hotspot may have (`max_area_fraction` of the image). Beyond that
+/// the ink joined to the hotspot has run on into the surroundings (a lung field, the body), and
+/// painting it out tests them as much as any mark: the change is the model's evidence, not a
+/// mark's.
 pub fn judge(hotspots: &[Hotspot], removals: Option<&[HotspotRemoval]>, top: usize, s: &FlagSettings) -> Vec<HotspotReport> {
     let matters = |r: &Removal| r.probability_drop >= s.min_probability_drop;
     hotspots
@@ -91,18 +106,23 @@ pub fn judge(hotspots: &[Hotspot], removals: Option<&[HotspotRemoval]>, top: usi
         .enumerate()
         .map(|(i, h)| {
             let r = removals.and_then(|r| r.get(i)).cloned();
+            let (hh, ww) = h.mask.dim();
+            let removal_area = h.removal_mask.iter().filter(|&&m| m).count();
+            let confined = removal_area as f64 <= s.hotspot.max_area_fraction * (hh * ww) as f64;
             let role = match &r {
                 None => HotspotRole::Untested,
                 Some(r) => match (matters(&r.whole), h.looks_like_mark, r.strokes.as_ref().map(matters)) {
                     // The strokes alone leave the answer: what matters lies under them.
                     (true, true, Some(false)) => HotspotRole::ModelEvidence,
-                    (true, true, _) => HotspotRole::SuspectMark,
-                    (true, false, _) => HotspotRole::ModelEvidence,
+                    (true, true, Some(true)) => HotspotRole::SuspectMark,
+                    // No strokes to paint alone: the whole removal speaks for the mark only
+                    // while it stays the size of one.
+                    (true, true, None) if confined => HotspotRole::SuspectMark,
+                    (true, _, _) => HotspotRole::ModelEvidence,
                     (false, true, _) => HotspotRole::UnusedMark,
                     (false, false, _) => HotspotRole::Minor,
                 },
             };
-            let (hh, ww) = h.mask.dim();
             HotspotReport {
                 bbox: h.bbox,
                 image_size: [ww, hh],
@@ -112,7 +132,8 @@ pub fn judge(hotspots: &[Hotspot], removals: Option<&[HotspotRemoval]>, top: usi
                 mark_likeness: h.mark_likeness,
                 looks_like_mark: h.looks_like_mark,
                 appearance: h.appearance.clone(),
-                removal_area: h.removal_mask.iter().filter(|&&m| m).count(),
+                removal_area,
+                removal_confined: confined,
                 flipped: r.as_ref().map(|r| r.whole.top != top),
                 stroke_removal: r.as_ref().and_then(|r| r.strokes.clone()),
                 removal: r.map(|r| r.whole),
@@ -173,4 +194,74 @@ pub fn add_hotspot_evidence(a: &mut Assessment, reports: Vec<HotspotReport>, s: 
         );
     }
     a.hotspots = reports;
+}
+
+#[cfg(test)]
+mod tests {
+    use ndarray::Array2;
+
+    use super::*;
+    use crate::regions::hotspot::Place;
+
+    /// A hotspot in a 100×100 image at rows and columns 40..50, that looks like a mark, whose
+    /// removal mask is the first `removal_rows` rows, and with strokes when asked.
+    fn hotspot(removal_rows: usize, strokes: bool) -> Hotspot {
+        let mask = Array2::from_shape_fn((100, 100), |(y, x)| (40..50).contains(&y) && (40..50).contains(&x));
+        let removal_mask = Array2::from_shape_fn((100, 100), |(y, x)| y < removal_rows || mask[[y, x]]);
+        let descriptor = Descriptor {
+            centre: [0.45, 0.45],
+            box_fraction: [0.4, 0.4, 0.5, 0.5],
+            place: Place::Interior,
+            edge_distance: 0.4,
+            outside_foreground: 0.0,
+            saturation: 1.0,
+            edge_sharpness: 1.0,
+            stroke_width_px: 1.0,
+            thinness: 0.9,
+            area_fraction: 0.01,
+        };
+        Hotspot {
+            bbox: [40, 40, 50, 50],
+            stroke_mask: strokes.then(|| mask.clone()),
+            mask,
+            removal_mask,
+            share: 0.5,
+            lift: 50.0,
+            mark_likeness: descriptor.mark_likeness(),
+            looks_like_mark: true,
+            descriptor,
+            appearance: vec![],
+        }
+    }
+
+    fn removal(probability_drop: f64) -> Removal {
+        Removal { fill: "harmonic".into(), score: 0.0, drop: 1.0, top: 1, top_label: None, probability_drop, mask: None }
+    }
+
+    fn role(h: Hotspot, whole: f64, strokes: Option<f64>) -> HotspotRole {
+        let r = HotspotRemoval { whole: removal(whole), strokes: strokes.map(removal) };
+        let s = FlagSettings::default();
+        judge(&[h], Some(&[r]), 0, &s)[0].role
+    }
+
+    #[test]
+    fn a_mark_is_suspect_only_on_a_removal_confined_to_it() {
+        // The default limit is 8 % of the image: 800 pixels here.
+        let limit = FlagSettings::default().hotspot.max_area_fraction;
+        assert!((limit - 0.08).abs() < 1e-12, "the test assumes the default limit, got {limit}");
+        // Small removal mask (100 px + 2 rows = 300 px), removal matters: suspect.
+        assert_eq!(role(hotspot(2, false), 0.6, None), HotspotRole::SuspectMark);
+        // The removal ran on over 30 rows (3,000+ px): the score moved, but not for a mark.
+        assert_eq!(role(hotspot(30, false), 0.6, None), HotspotRole::ModelEvidence);
+        // With strokes, the strokes alone decide, whatever the whole mask's size.
+        assert_eq!(role(hotspot(30, true), 0.6, Some(0.5)), HotspotRole::SuspectMark);
+        assert_eq!(role(hotspot(2, true), 0.6, Some(0.0)), HotspotRole::ModelEvidence);
+        // Removal that leaves the score: a mark not used, confined or not.
+        assert_eq!(role(hotspot(30, false), 0.0, None), HotspotRole::UnusedMark);
+        assert_eq!(role(hotspot(2, false), 0.1, None), HotspotRole::UnusedMark);
+        // The report says which.
+        let r = HotspotRemoval { whole: removal(0.6), strokes: None };
+        let rep = &judge(&[hotspot(30, false)], Some(&[r]), 0, &FlagSettings::default())[0];
+        assert!(!rep.removal_confined && !rep.suspect && rep.removal_area > 800);
+    }
 }
