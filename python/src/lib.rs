@@ -18,7 +18,7 @@ use pyo3::exceptions::{PyKeyboardInterrupt, PyRuntimeError, PyValueError};
 use pyo3::prelude::*;
 use pyo3::types::PyBytes;
 
-use spurion::cli::{Cli, Command, ModelArgs};
+use spurion::cli::{Cli, Command, ModelArgs, ModelHow};
 use spurion::control::Control;
 use spurion::feed::{FeedCard, Picture};
 use spurion::methods::Input;
@@ -186,8 +186,8 @@ impl ModelHandle {
             return Ok(m.clone());
         }
         let mut args = self.args.clone();
-        if args.input_shape.is_none() {
-            args.input_shape = tensor_shape.map(<[usize]>::to_vec);
+        if args.how.input_shape.is_none() {
+            args.how.input_shape = tensor_shape.map(<[usize]>::to_vec);
         }
         let input = spurion::cli::InputArgs { image: image.cloned(), tensor: None, frame: 0 };
         Ok(Arc::new(args.load_for(&input)?))
@@ -220,9 +220,9 @@ impl ModelHandle {
                         let (h, w) = (s.shape[0], s.shape[1]);
                         let dims = spurion::model::input_dims(&self.args.model)?;
                         let mut args = self.args.clone();
-                        if args.input_shape.is_none() && dims.len() == 4 {
+                        if args.how.input_shape.is_none() && dims.len() == 4 {
                             let fill = |d: Option<usize>, v: usize| d.unwrap_or(v);
-                            args.input_shape = match (dims[1], dims[3]) {
+                            args.how.input_shape = match (dims[1], dims[3]) {
                                 (Some(c @ (1 | 3)), _) => Some(vec![1, c, fill(dims[2], h), fill(dims[3], w)]),
                                 (_, Some(c @ (1 | 3))) => Some(vec![1, fill(dims[1], h), fill(dims[2], w), c]),
                                 _ => None,
@@ -245,10 +245,10 @@ impl ModelHandle {
     #[new]
     #[pyo3(signature = (path, feed=None, input_shape=None, output=None))]
     fn new(py: Python<'_>, path: PathBuf, feed: Option<PathBuf>, input_shape: Option<Vec<usize>>, output: Option<String>) -> PyResult<Self> {
-        let args = ModelArgs { model: path, input_shape, feed, output };
+        let args = ModelArgs { model: path, how: ModelHow { input_shape, feed, output } };
         py.detach(|| -> Result<ModelHandle> {
             let dims = spurion::model::input_dims(&args.model)?;
-            let fixed = if args.input_shape.is_some() || dims.iter().skip(1).all(Option::is_some) || args.card_path().is_some() {
+            let fixed = if args.how.input_shape.is_some() || dims.iter().skip(1).all(Option::is_some) || args.card_path().is_some() {
                 let m = args.load()?;
                 // A named card is checked now, so a wrong one fails at once.
                 args.card(&m)?;
@@ -322,13 +322,13 @@ fn explain<'py>(
 ) -> PyResult<(String, Bound<'py, PyBytes>, Vec<usize>)> {
     // The flags are parsed as the command line parses them; the model and input come from here.
     let mut full = vec!["explain".to_string(), "--model".into(), model.args.model.display().to_string()];
-    if let Some(f) = &model.args.feed {
+    if let Some(f) = &model.args.how.feed {
         full.extend(["--feed".into(), f.display().to_string()]);
     }
-    if let Some(s) = &model.args.input_shape {
+    if let Some(s) = &model.args.how.input_shape {
         full.extend(["--input-shape".into(), s.iter().map(usize::to_string).collect::<Vec<_>>().join(",")]);
     }
-    if let Some(o) = &model.args.output {
+    if let Some(o) = &model.args.how.output {
         full.extend(["--output".into(), o.clone()]);
     }
     match &path {

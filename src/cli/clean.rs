@@ -127,7 +127,7 @@ pub fn run(a: &CleanArgs) -> Result<()> {
         rayon::ThreadPoolBuilder::new().num_threads(n).build_global().context("cannot set up the worker threads")?;
     }
     let model = match &a.check {
-        Some(m) => Some(super::ModelArgs { model: m.clone(), input_shape: None, feed: a.feed.clone(), output: None }),
+        Some(m) => Some(super::ModelArgs { model: m.clone(), how: super::ModelHow { feed: a.feed.clone(), ..Default::default() } }),
         None => None,
     };
     let loaded = model.as_ref().map(|m| -> Result<_> {

@@ -46,7 +46,7 @@ pub fn run(a: &FeedArgs) -> Result<()> {
         return Ok(());
     }
     if let Some(m) = &a.model {
-        let margs = super::ModelArgs { model: m.clone(), input_shape: None, feed: a.feed.clone(), output: None };
+        let margs = super::ModelArgs { model: m.clone(), how: super::ModelHow { feed: a.feed.clone(), ..Default::default() } };
         let model = margs.load()?;
         let card = margs.card(&model)?;
         let pic = Picture::open_with(&a.image, &OpenOptions { frame: a.frame, window: card.input.window.clone() })?;

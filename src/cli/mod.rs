@@ -83,6 +83,13 @@ pub struct ModelArgs {
     /// The ONNX model file.
     #[arg(long, short = 'm')]
     pub model: PathBuf,
+    #[command(flatten)]
+    pub how: ModelHow,
+}
+
+/// How a model is loaded and fed, beside its file.
+#[derive(Args, Debug, Clone, Default)]
+pub struct ModelHow {
     /// Input shape, e.g. 1,3,224,224, for models with dynamic input dimensions.
     #[arg(long, value_delimiter = ',')]
     pub input_shape: Option<Vec<usize>>,
@@ -105,7 +112,7 @@ impl ModelArgs {
     /// card's `[output] name`; the card's label count picks among class-shaped outputs).
     fn options(&self, input_shape: Option<Vec<usize>>) -> LoadOptions {
         let card = self.card_path().and_then(|p| crate::feed::FeedCard::load(&p).ok());
-        let output = self.output.clone().or_else(|| card.as_ref().and_then(|c| c.output.name.clone()));
+        let output = self.how.output.clone().or_else(|| card.as_ref().and_then(|c| c.output.name.clone()));
         let classes = card.map(|c| c.output.labels.len()).filter(|&n| n > 0);
         LoadOptions { input_shape, output, classes }
     }
@@ -121,7 +128,7 @@ impl ModelArgs {
     }
 
     fn given_shape(&self) -> Option<Vec<usize>> {
-        self.input_shape.clone().or_else(|| {
+        self.how.input_shape.clone().or_else(|| {
             // A feed card fixes the input shape of a model with dynamic dimensions.
             self.card_path().and_then(|p| crate::feed::FeedCard::load(&p).ok()).map(|c| c.tensor_shape())
         })
@@ -152,7 +159,7 @@ impl ModelArgs {
 
     /// The feed card file in use: the one named, or the sidecar where it exists.
     pub fn card_path(&self) -> Option<PathBuf> {
-        self.feed.clone().or_else(|| {
+        self.how.feed.clone().or_else(|| {
             let p = crate::feed::FeedCard::sidecar_path(&self.model);
             p.exists().then_some(p)
         })
@@ -161,15 +168,15 @@ impl ModelArgs {
     /// The feed card: the one named, the sidecar, or one inferred from the graph.
     pub fn card(&self, model: &Model) -> Result<crate::feed::FeedCard> {
         use crate::feed::FeedCard;
-        let file = match &self.feed {
+        let file = match &self.how.feed {
             Some(p) => Some(FeedCard::load(p)?),
             None => FeedCard::for_model(&self.model)?,
         };
         match file {
             Some(mut c) => {
                 // --output overrides the card's `[output] name` (the model was loaded so).
-                if self.output.is_some() {
-                    c.output.name = self.output.clone();
+                if self.how.output.is_some() {
+                    c.output.name = self.how.output.clone();
                 }
                 c.for_model_graph(model)
             }
@@ -186,16 +193,8 @@ pub struct InfoArgs {
     /// The ONNX model file.
     #[arg(long, short = 'm')]
     pub model: Option<PathBuf>,
-    /// Input shape, e.g. 1,3,224,224, for models with dynamic input dimensions.
-    #[arg(long, value_delimiter = ',')]
-    pub input_shape: Option<Vec<usize>>,
-    /// Feed card to use instead of the sidecar MODEL.feed.toml.
-    #[arg(long)]
-    pub feed: Option<PathBuf>,
-    /// The model output to explain, by its ONNX name, for models with several outputs;
-    /// overrides the feed card's `[output] name`.
-    #[arg(long)]
-    pub output: Option<String>,
+    #[command(flatten)]
+    pub how: ModelHow,
     /// Print JSON instead of a table.
     #[arg(long)]
     pub json: bool,
@@ -204,13 +203,9 @@ pub struct InfoArgs {
 impl InfoArgs {
     /// The model's arguments as every other command takes them.
     fn model_args(&self) -> ModelArgs {
-        ModelArgs {
-            // clap requires one of the two, so the fallback is never used.
-            model: self.file.clone().or_else(|| self.model.clone()).unwrap_or_default(),
-            input_shape: self.input_shape.clone(),
-            feed: self.feed.clone(),
-            output: self.output.clone(),
-        }
+        // clap requires one of the two, so the fallback is never used.
+        let model = self.file.clone().or_else(|| self.model.clone()).unwrap_or_default();
+        ModelArgs { model, how: self.how.clone() }
     }
 }
 

@@ -183,7 +183,7 @@ fn compute_and_write(
     // The second model is loaded before any work, so a bad path fails at once.
     let second = match &a.against {
         Some(p) => {
-            let margs = ModelArgs { model: p.clone(), input_shape: None, feed: a.against_feed.clone(), output: None };
+            let margs = ModelArgs { model: p.clone(), how: super::ModelHow { feed: a.against_feed.clone(), ..Default::default() } };
             let m = margs.load_for(&a.input).with_context(|| format!("the --against model {}", p.display()))?;
             let c = if card.is_some() { Some(margs.card(&m).with_context(|| format!("the feed card of {}", p.display()))?) } else { margs.card(&m).ok() };
             Some((m, c))
